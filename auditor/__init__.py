@@ -1,0 +1,4 @@
+"""Power factor audit service: interval-meter data and bills in, reactive charges and a
+costed, safety-screened correction case out."""
+
+__version__ = "0.1.0"

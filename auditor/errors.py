@@ -1,0 +1,104 @@
+"""One hierarchy of user-facing errors.
+
+Every error a user can cause by a bad file, option or tariff is an ``AuditorError``. The CLI
+turns it into a one-line message and an exit code; the web layer into a flash message. A
+traceback reaching the user is a bug.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+
+class AuditorError(Exception):
+    """Base class: a problem the user can fix."""
+
+    exit_code = 1
+
+    def __init__(self, message: str):
+        super().__init__(message)
+        self.message = message
+
+    def __str__(self) -> str:
+        return self.message
+
+
+@dataclass(frozen=True)
+class Problem:
+    """One located problem in an input file (1-based line as a text editor shows it)."""
+
+    message: str
+    line: int | None = None
+    column: str | None = None
+
+    def as_dict(self) -> dict:
+        return {"line": self.line, "column": self.column, "message": self.message}
+
+    def describe(self, file: str | None = None) -> str:
+        where = []
+        if file:
+            where.append(str(file))
+        if self.line is not None:
+            where.append(f"line {self.line}")
+        if self.column:
+            where.append(f"column {self.column!r}")
+        return (", ".join(where) + ": " if where else "") + self.message
+
+
+class InputError(AuditorError):
+    """A bad input file. Carries every located problem found (the first few dozen)."""
+
+    def __init__(self, file: str | None, problems: list[Problem] | Problem | str):
+        if isinstance(problems, str):
+            problems = [Problem(problems)]
+        elif isinstance(problems, Problem):
+            problems = [problems]
+        self.file = file
+        self.problems: list[Problem] = list(problems)
+        first = self.problems[0].describe(file) if self.problems else f"{file}: bad input"
+        more = len(self.problems) - 1
+        super().__init__(first + (f" (and {more} more problem{'s' if more > 1 else ''})" if more > 0 else ""))
+
+
+class TariffError(AuditorError):
+    """A tariff file that does not validate; names the key and what is allowed."""
+
+    def __init__(self, key: str, message: str, file: str | None = None):
+        self.key = key
+        self.file = file
+        prefix = f"{file}: " if file else ""
+        super().__init__(f"{prefix}tariff key {key!r}: {message}")
+
+
+class ProfileError(AuditorError):
+    """A mapping profile that does not validate; names the key."""
+
+    def __init__(self, key: str, message: str, file: str | None = None):
+        self.key = key
+        self.file = file
+        prefix = f"{file}: " if file else ""
+        super().__init__(f"{prefix}profile key {key!r}: {message}")
+
+
+class NotFoundError(AuditorError):
+    """A meter, site, scenario or bill asked for by name that is not in the database."""
+
+
+class StoreError(AuditorError):
+    """The database cannot be opened or written (read-only, disk full, locked, bad URL)."""
+
+
+class UsageError(AuditorError):
+    """Options that contradict each other or are out of range."""
+
+    exit_code = 2
+
+
+@dataclass
+class Warnings:
+    """Collects non-fatal findings to report beside a result, never silently dropped."""
+
+    items: list[str] = field(default_factory=list)
+
+    def add(self, message: str) -> None:
+        if message not in self.items:
+            self.items.append(message)
