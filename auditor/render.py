@@ -1,0 +1,75 @@
+"""Terminal rendering shared by the commands: a plain aligned table and JSON from one dict."""
+from __future__ import annotations
+
+import json
+import math
+from collections.abc import Iterable, Sequence
+from datetime import date, datetime
+from typing import Any
+
+import click
+import numpy as np
+
+
+def _default(value: Any) -> Any:
+    if isinstance(value, datetime | date):
+        return value.isoformat()
+    if isinstance(value, np.integer):
+        return int(value)
+    if isinstance(value, np.floating):
+        return None if not np.isfinite(value) else float(value)
+    if isinstance(value, np.bool_):
+        return bool(value)
+    if hasattr(value, "isoformat"):
+        return value.isoformat()
+    raise TypeError(f"not JSON serialisable: {type(value).__name__}")
+
+
+def _clean(value: Any) -> Any:
+    """Replace NaN/inf by None so the JSON is standard (no bare NaN tokens)."""
+    if isinstance(value, float | np.floating):
+        return None if not math.isfinite(float(value)) else float(value)
+    if isinstance(value, dict):
+        return {str(k): _clean(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_clean(v) for v in value]
+    return value
+
+
+def to_json(data: Any) -> str:
+    return json.dumps(_clean(data), indent=2, default=_default, allow_nan=False)
+
+
+def echo_json(data: Any) -> None:
+    click.echo(to_json(data))
+
+
+def fmt(value: Any, digits: int = 2) -> str:
+    if value is None:
+        return "-"
+    if isinstance(value, float | np.floating):
+        if not math.isfinite(float(value)):
+            return "-"
+        return f"{value:,.{digits}f}"
+    return str(value)
+
+
+def table(headers: Sequence[str], rows: Iterable[Sequence[Any]], digits: int = 2) -> str:
+    """An aligned plain-text table; numbers right-aligned."""
+    cells = [[fmt(c, digits) for c in row] for row in rows]
+    raw = [list(r) for r in rows] if not isinstance(rows, list) else rows
+    widths = [len(h) for h in headers]
+    for row in cells:
+        for i, c in enumerate(row):
+            widths[i] = max(widths[i], len(c))
+    numeric = [
+        all(isinstance(r[i], int | float | np.number) or r[i] is None for r in raw) and raw
+        for i in range(len(headers))
+    ]
+    def line(values: Sequence[str]) -> str:
+        return "  ".join(
+            v.rjust(widths[i]) if numeric[i] else v.ljust(widths[i]) for i, v in enumerate(values)
+        ).rstrip()
+    out = [line(list(headers)), "  ".join("-" * w for w in widths)]
+    out.extend(line(r) for r in cells)
+    return "\n".join(out)

@@ -1,0 +1,165 @@
+"""Engine, sessions and schema upgrades.
+
+The database is named by a SQLAlchemy URL: ``--db URL``, else ``AUDITOR_DB_URL``, else an SQLite
+file ``auditor.sqlite3`` in the user's data directory (``platformdirs.user_data_dir("pf-auditor")``,
+on Linux ``~/.local/share/pf-auditor/``). The schema is created and upgraded only by the Alembic
+migrations, on first use and by ``auditor db upgrade``.
+"""
+from __future__ import annotations
+
+import os
+from collections.abc import Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass
+from importlib import resources
+from pathlib import Path
+
+import platformdirs
+from sqlalchemy import Engine, create_engine, event, inspect
+from sqlalchemy.exc import ArgumentError, NoSuchModuleError, OperationalError, SQLAlchemyError
+from sqlalchemy.orm import Session, sessionmaker
+
+from auditor.errors import StoreError
+
+APP_DIR_NAME = "pf-auditor"
+SQLITE_BUSY_TIMEOUT_MS = 30_000
+
+
+def default_db_url() -> str:
+    env = os.environ.get("AUDITOR_DB_URL")
+    if env:
+        return env
+    folder = Path(platformdirs.user_data_dir(APP_DIR_NAME))
+    return f"sqlite:///{folder / 'auditor.sqlite3'}"
+
+
+def _sqlite_pragmas(dbapi_conn, _record) -> None:
+    # WAL lets readers (the dashboard) run beside an import; the busy timeout makes a second
+    # writer wait instead of failing; NORMAL sync is safe in WAL mode (a crash loses at most the
+    # last transactions, never consistency).
+    cur = dbapi_conn.cursor()
+    cur.execute("PRAGMA journal_mode=WAL")
+    cur.execute(f"PRAGMA busy_timeout={SQLITE_BUSY_TIMEOUT_MS}")
+    cur.execute("PRAGMA synchronous=NORMAL")
+    cur.execute("PRAGMA foreign_keys=ON")
+    cur.close()
+
+
+def make_engine(url: str) -> Engine:
+    try:
+        if url.startswith("sqlite"):
+            path = url.split("///", 1)[1] if "///" in url else ""
+            if path and path != ":memory:":
+                try:
+                    Path(path).parent.mkdir(parents=True, exist_ok=True)
+                except OSError as exc:
+                    raise StoreError(f"cannot create the database folder for {path}: {exc.strerror}") from exc
+            engine = create_engine(url, connect_args={"timeout": SQLITE_BUSY_TIMEOUT_MS / 1000})
+            # Take the transaction ourselves so that BEGIN is emitted (pysqlite's legacy mode
+            # would delay it and break the one-transaction-per-file rule).
+            event.listen(engine, "connect", _sqlite_pragmas)
+
+            @event.listens_for(engine, "connect")
+            def _no_autobegin(dbapi_conn, _rec):
+                dbapi_conn.isolation_level = None
+
+            @event.listens_for(engine, "begin")
+            def _begin(conn):
+                conn.exec_driver_sql("BEGIN")
+
+        else:
+            engine = create_engine(url, pool_pre_ping=True)
+    except (ArgumentError, NoSuchModuleError) as exc:
+        raise StoreError(f"bad database URL {url!r}: {exc}") from exc
+    return engine
+
+
+def migrations_dir() -> str:
+    return str(resources.files("auditor.migrations"))
+
+
+def alembic_config(url: str):
+    from alembic.config import Config
+
+    cfg = Config()
+    cfg.set_main_option("script_location", migrations_dir())
+    cfg.set_main_option("sqlalchemy.url", url.replace("%", "%%"))
+    return cfg
+
+
+@dataclass
+class Store:
+    url: str
+    engine: Engine
+
+    def __post_init__(self) -> None:
+        self._sessions = sessionmaker(self.engine, expire_on_commit=False)
+
+    @contextmanager
+    def session(self) -> Iterator[Session]:
+        """A session in one transaction: committed on success, rolled back on any error."""
+        with self._sessions() as s:
+            with s.begin():
+                yield s
+
+    @property
+    def is_sqlite(self) -> bool:
+        return self.engine.dialect.name == "sqlite"
+
+    def upgrade(self, revision: str = "head") -> None:
+        from alembic import command
+
+        cfg = alembic_config(self.url)
+        with self.engine.begin() as conn:
+            cfg.attributes["connection"] = conn
+            command.upgrade(cfg, revision)
+
+    def downgrade(self, revision: str) -> None:
+        from alembic import command
+
+        cfg = alembic_config(self.url)
+        with self.engine.begin() as conn:
+            cfg.attributes["connection"] = conn
+            command.downgrade(cfg, revision)
+
+    def current_revision(self) -> str | None:
+        from alembic.runtime.migration import MigrationContext
+
+        with self.engine.connect() as conn:
+            return MigrationContext.configure(conn).get_current_revision()
+
+    def head_revision(self) -> str:
+        from alembic.script import ScriptDirectory
+
+        return ScriptDirectory.from_config(alembic_config(self.url)).get_current_head()
+
+    def dispose(self) -> None:
+        self.engine.dispose()
+
+
+def open_store(url: str | None = None, *, upgrade: bool = True) -> Store:
+    """Open (and, on first use, migrate) the database named by ``url``."""
+    url = url or default_db_url()
+    store = Store(url, make_engine(url))
+    try:
+        if upgrade and store.current_revision() != store.head_revision():
+            store.upgrade()
+    except OperationalError as exc:
+        raise StoreError(f"cannot open the database {safe_url(url)}: {exc.orig}") from exc
+    except SQLAlchemyError as exc:
+        raise StoreError(f"database error on {safe_url(url)}: {exc}") from exc
+    return store
+
+
+def safe_url(url: str) -> str:
+    """The URL with any password masked, for messages."""
+    try:
+        from sqlalchemy.engine import make_url
+
+        return make_url(url).render_as_string(hide_password=True)
+    except Exception:  # a URL too broken to parse is shown as it is
+        return url
+
+
+def table_names(store: Store) -> list[str]:
+    return sorted(inspect(store.engine).get_table_names())

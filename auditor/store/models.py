@@ -1,0 +1,145 @@
+"""SQLAlchemy 2 typed models. The schema exists only through the Alembic migrations.
+
+Volume design: ``reading`` holds one row per meter interval with one column per canonical
+quantity, keyed by (meter_id, start) with no rowid on SQLite, so a meter-year is 35,040 narrow
+rows clustered by meter and time; every query the audit makes is a primary-key range scan.
+Superseded values move to ``reading_revision`` (kept for audit, never read by the audit).
+"""
+from __future__ import annotations
+
+from datetime import datetime
+
+from sqlalchemy import (
+    BigInteger,
+    DateTime,
+    Float,
+    ForeignKey,
+    Index,
+    Integer,
+    MetaData,
+    SmallInteger,
+    String,
+    Text,
+    UniqueConstraint,
+)
+from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
+
+NAMING = {
+    "ix": "ix_%(column_0_label)s",
+    "uq": "uq_%(table_name)s_%(column_0_name)s",
+    "ck": "ck_%(table_name)s_%(constraint_name)s",
+    "fk": "fk_%(table_name)s_%(column_0_name)s_%(referred_table_name)s",
+    "pk": "pk_%(table_name)s",
+}
+
+# Bits of reading.flags
+FLAG_ESTIMATED = 1  # the file flagged the interval as estimated
+FLAG_FILLED = 2  # the value was estimated by this program (--estimate-gaps)
+
+QUANTITIES = ("kwh", "kvarh_lag", "kvarh_lead", "kwh_received")
+
+
+class Base(DeclarativeBase):
+    metadata = MetaData(naming_convention=NAMING)
+
+
+class Site(Base):
+    __tablename__ = "site"
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    name: Mapped[str] = mapped_column(String(200), unique=True)
+    timezone: Mapped[str] = mapped_column(String(64), default="UTC")
+    nominal_voltage_v: Mapped[float | None] = mapped_column(Float)
+    transformer_kva: Mapped[float | None] = mapped_column(Float)
+    transformer_impedance_percent: Mapped[float | None] = mapped_column(Float)
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
+    meters: Mapped[list[Meter]] = relationship(back_populates="site")
+
+
+class Meter(Base):
+    __tablename__ = "meter"
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    site_id: Mapped[int] = mapped_column(ForeignKey("site.id"))
+    external_id: Mapped[str] = mapped_column(String(200), unique=True)
+    # CT x VT ratio applied when readings are read back (values are stored as the file gave them,
+    # after the file profile's own multiplier) so a wrong multiplier can be corrected without
+    # re-importing.
+    multiplier: Mapped[float] = mapped_column(Float, default=1.0)
+    interval_minutes: Mapped[int | None] = mapped_column(SmallInteger)
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
+    site: Mapped[Site] = relationship(back_populates="meters")
+    channels: Mapped[list[Channel]] = relationship(back_populates="meter")
+
+
+class Channel(Base):
+    """A quantity a meter records (kwh, kvarh_lag, kvarh_lead, kwh_received) and its source unit."""
+
+    __tablename__ = "channel"
+    __table_args__ = (UniqueConstraint("meter_id", "quantity"),)
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    meter_id: Mapped[int] = mapped_column(ForeignKey("meter.id"))
+    quantity: Mapped[str] = mapped_column(String(32))
+    source_unit: Mapped[str] = mapped_column(String(16))
+    first_batch_id: Mapped[int | None] = mapped_column(ForeignKey("import_batch.id"))
+    meter: Mapped[Meter] = relationship(back_populates="channels")
+
+
+class ImportBatch(Base):
+    __tablename__ = "import_batch"
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    file_name: Mapped[str] = mapped_column(String(500))
+    sha256: Mapped[str] = mapped_column(String(64), index=True)
+    format: Mapped[str] = mapped_column(String(32))
+    rows_accepted: Mapped[int] = mapped_column(Integer, default=0)
+    rows_rejected: Mapped[int] = mapped_column(Integer, default=0)
+    rows_revised: Mapped[int] = mapped_column(Integer, default=0)
+    started_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
+    finished_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True))
+    # imported | unchanged | revised | rejected
+    status: Mapped[str] = mapped_column(String(16))
+    errors: Mapped[str | None] = mapped_column(Text)  # JSON list of {line, column, message}
+
+
+class Reading(Base):
+    __tablename__ = "reading"
+    __table_args__ = {"sqlite_with_rowid": False}
+    meter_id: Mapped[int] = mapped_column(ForeignKey("meter.id"), primary_key=True)
+    start: Mapped[int] = mapped_column(BigInteger, primary_key=True)  # UTC epoch seconds
+    kwh: Mapped[float | None] = mapped_column(Float)
+    kvarh_lag: Mapped[float | None] = mapped_column(Float)
+    kvarh_lead: Mapped[float | None] = mapped_column(Float)
+    kwh_received: Mapped[float | None] = mapped_column(Float)
+    flags: Mapped[int] = mapped_column(SmallInteger, default=0)
+    batch_id: Mapped[int] = mapped_column(Integer)  # not a FK: keeps the bulk path lean
+
+
+class ReadingRevision(Base):
+    """A value that a later import superseded; kept so every change can be traced."""
+
+    __tablename__ = "reading_revision"
+    __table_args__ = (Index("ix_reading_revision_meter_start", "meter_id", "start"),)
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    meter_id: Mapped[int] = mapped_column(ForeignKey("meter.id"))
+    start: Mapped[int] = mapped_column(BigInteger)
+    kwh: Mapped[float | None] = mapped_column(Float)
+    kvarh_lag: Mapped[float | None] = mapped_column(Float)
+    kvarh_lead: Mapped[float | None] = mapped_column(Float)
+    kwh_received: Mapped[float | None] = mapped_column(Float)
+    flags: Mapped[int] = mapped_column(SmallInteger, default=0)
+    batch_id: Mapped[int] = mapped_column(Integer)
+    superseded_by: Mapped[int] = mapped_column(ForeignKey("import_batch.id"))
+
+
+class QualityFlag(Base):
+    """A data-quality finding (VEE) on a meter's data, from a given import."""
+
+    __tablename__ = "quality_flag"
+    __table_args__ = (Index("ix_quality_flag_meter", "meter_id", "start"),)
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    meter_id: Mapped[int] = mapped_column(ForeignKey("meter.id"))
+    batch_id: Mapped[int] = mapped_column(ForeignKey("import_batch.id"))
+    # gap | spike | estimated | filled | zero_run
+    kind: Mapped[str] = mapped_column(String(16))
+    start: Mapped[int] = mapped_column(BigInteger)
+    end: Mapped[int] = mapped_column(BigInteger)
+    intervals: Mapped[int] = mapped_column(Integer, default=0)
+    detail: Mapped[str | None] = mapped_column(Text)
