@@ -1,0 +1,486 @@
+"""P, Q, S and power factor per interval; billing periods; period figures.
+
+Pure functions over numpy arrays and pandas frames: no database, no Flask, no Python loop
+over intervals. Sign convention (load view, IEEE Std 1459-2010): lagging (inductive) reactive
+power is positive, leading (capacitive) negative, ``kvar_net = kvar_lag - kvar_lead``.
+
+Zero load has no power factor: where apparent power is zero the PF is NaN (never 1, never 0),
+and every consumer of a PF decides explicitly what a missing PF means.
+
+References
+----------
+.. [1] IEEE Std 1459-2010, "IEEE Standard Definitions for the Measurement of Electric Power
+   Quantities Under Sinusoidal, Nonsinusoidal, Balanced, or Unbalanced Conditions",
+   section 3.1 (single-phase sinusoidal case): P, Q, S = P + jQ, PF = P / S.
+"""
+from __future__ import annotations
+
+import calendar
+from collections.abc import Sequence
+from dataclasses import dataclass
+from datetime import date
+
+import numpy as np
+import pandas as pd
+
+from auditor.errors import UsageError
+
+__all__ = [
+    "BillingPeriod",
+    "billing_periods",
+    "clip_periods",
+    "complex_power",
+    "complex_power_rms",
+    "demand_from_energy",
+    "energy_pf",
+    "expected_intervals",
+    "interval_power",
+    "local_bounds_utc",
+    "period_figures",
+    "power_factor",
+    "round_pf",
+    "segment_bounds",
+    "segment_argmax",
+    "segment_max",
+    "segment_sum",
+]
+
+
+# --------------------------------------------------------------------------------------------
+# Phasors
+# --------------------------------------------------------------------------------------------
+def complex_power(v_peak_phasor: complex, i_peak_phasor: complex) -> complex:
+    """Complex power from peak-value phasors, ``S = 1/2 V I*``.
+
+    Parameters
+    ----------
+    v_peak_phasor, i_peak_phasor : complex
+        Voltage (V) and current (A) phasors whose magnitudes are peak values.
+
+    Returns
+    -------
+    complex
+        ``S = P + jQ`` (VA): real part active power P (W), imaginary part reactive power Q (var),
+        positive when the current lags the voltage (inductive load).
+
+    References
+    ----------
+    .. [1] IEEE Std 1459-2010, section 3.1.1: P = V I cos(theta), Q = V I sin(theta) with rms
+       values; with peak phasors the factor 1/2 converts peak products to rms products.
+    """
+    return 0.5 * complex(v_peak_phasor) * complex(i_peak_phasor).conjugate()
+
+
+def complex_power_rms(v_rms_phasor: complex, i_rms_phasor: complex) -> complex:
+    """Complex power from rms-value phasors, ``S = V I*``.
+
+    References
+    ----------
+    .. [1] IEEE Std 1459-2010, section 3.1.1.
+    """
+    return complex(v_rms_phasor) * complex(i_rms_phasor).conjugate()
+
+
+def power_factor(p, q):
+    """Power factor magnitude and sense from active and reactive power (arrays or scalars).
+
+    Parameters
+    ----------
+    p : array_like
+        Active power (any unit, e.g. kW).
+    q : array_like
+        Reactive power in the same unit family (kvar), positive lagging.
+
+    Returns
+    -------
+    pf : numpy.ndarray
+        ``|P| / sqrt(P^2 + Q^2)``; NaN where ``P = Q = 0`` (zero load has no PF).
+    sense : numpy.ndarray of str
+        ``'lag'`` where Q > 0, ``'lead'`` where Q < 0, ``''`` at unity PF or zero load.
+
+    References
+    ----------
+    .. [1] IEEE Std 1459-2010, section 3.1.1: PF = P / S.
+    """
+    p = np.asarray(p, dtype=float)
+    q = np.asarray(q, dtype=float)
+    s = np.hypot(p, q)
+    pf = np.divide(np.abs(p), s, out=np.full(np.broadcast(p, q).shape, np.nan), where=s > 0)
+    sense = np.where(q > 0, "lag", np.where(q < 0, "lead", ""))
+    sense = np.where(s > 0, sense, "")
+    return pf, sense
+
+
+def energy_pf(kwh, kvarh):
+    """Energy-based (average) power factor ``kWh / sqrt(kWh^2 + kvarh^2)``.
+
+    ``kvarh`` may be lagging only, net (lag - lead) or lag + lead; the caller chooses. NaN where
+    both energies are zero (a period without load has no PF).
+
+    References
+    ----------
+    .. [1] IEEE Std 1459-2010, section 3.1.1, applied to energies integrated over the period
+       (the average PF tariffs bill on; common practice).
+    """
+    kwh = np.asarray(kwh, dtype=float)
+    kvarh = np.asarray(kvarh, dtype=float)
+    s = np.hypot(kwh, kvarh)
+    return np.divide(kwh, s, out=np.full(np.broadcast(kwh, kvarh).shape, np.nan), where=s > 0)
+
+
+def round_pf(pf, digits: int | None):
+    """Round power factors half up to ``digits`` decimals (``None``: no rounding).
+
+    Tariffs that round PF "to two decimals" mean the schoolbook rule (0.845 -> 0.85), not
+    numpy's round-half-to-even, so the rounding is done explicitly. A tiny tolerance absorbs
+    binary representation error (0.845 is stored as 0.84499999...).
+    """
+    pf = np.asarray(pf, dtype=float)
+    if digits is None:
+        return pf
+    scale = 10.0**digits
+    return np.floor(pf * scale + 0.5 + 1e-9) / scale
+
+
+def demand_from_energy(energy, interval_minutes: int):
+    """Average demand over an interval: ``kW = kWh * 60 / interval_minutes`` (kvar likewise)."""
+    return np.asarray(energy, dtype=float) * (60.0 / interval_minutes)
+
+
+def interval_power(frame: pd.DataFrame, interval_minutes: int) -> pd.DataFrame:
+    """Per-interval P, Q, S and PF from an interval frame.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        Interval frame (DEVELOPERS.md): columns ``kwh``, ``kvarh_lag``, ``kvarh_lead``.
+    interval_minutes : int
+        Interval length.
+
+    Returns
+    -------
+    pandas.DataFrame
+        Same index; columns ``kw``, ``kvar_lag``, ``kvar_lead``, ``kvar_net`` (lag - lead),
+        ``kva`` = sqrt(kw^2 + kvar_net^2), ``pf`` (NaN at zero load) and ``pf_sense``
+        ('lag', 'lead' or '').
+
+    References
+    ----------
+    .. [1] IEEE Std 1459-2010, section 3.1.1 (P, Q, S = sqrt(P^2 + Q^2), PF = P / S).
+    """
+    _check_interval_minutes(interval_minutes)
+    kw = demand_from_energy(frame["kwh"].to_numpy(dtype=float), interval_minutes)
+    kvar_lag = demand_from_energy(frame["kvarh_lag"].to_numpy(dtype=float), interval_minutes)
+    kvar_lead = demand_from_energy(frame["kvarh_lead"].to_numpy(dtype=float), interval_minutes)
+    kvar_net = kvar_lag - kvar_lead
+    pf, sense = power_factor(kw, kvar_net)
+    return pd.DataFrame(
+        {
+            "kw": kw,
+            "kvar_lag": kvar_lag,
+            "kvar_lead": kvar_lead,
+            "kvar_net": kvar_net,
+            "kva": np.hypot(kw, kvar_net),
+            "pf": pf,
+            "pf_sense": sense,
+        },
+        index=frame.index,
+    )
+
+
+def _check_interval_minutes(interval_minutes: int) -> None:
+    if not isinstance(interval_minutes, int | np.integer) or interval_minutes <= 0 or 1440 % interval_minutes:
+        raise UsageError(
+            f"interval_minutes must be a whole divisor of 1440 (5, 10, 15, 30, 60 ...), got {interval_minutes!r}"
+        )
+
+
+# --------------------------------------------------------------------------------------------
+# Billing periods
+# --------------------------------------------------------------------------------------------
+@dataclass(frozen=True, order=True)
+class BillingPeriod:
+    """A billing period in the site's local calendar: ``[start, end)``, end exclusive."""
+
+    start: date
+    end: date
+
+    def __post_init__(self) -> None:
+        if not isinstance(self.start, date) or not isinstance(self.end, date):
+            raise UsageError("a billing period needs a start and an end date")
+        if self.end <= self.start:
+            raise UsageError(
+                f"billing period {self.start.isoformat()} to {self.end.isoformat()}: end must be after start"
+            )
+
+    @property
+    def label(self) -> str:
+        """``2025-03`` for a calendar month, otherwise ``2025-03-15..2025-04-15`` (end exclusive)."""
+        if self.start.day == 1 and self.end == _add_months(self.start, 1):
+            return f"{self.start.year:04d}-{self.start.month:02d}"
+        return f"{self.start.isoformat()}..{self.end.isoformat()}"
+
+    @property
+    def days(self) -> int:
+        return (self.end - self.start).days
+
+
+def _add_months(d: date, months: int, day: int | None = None) -> date:
+    """``d`` moved by whole months; ``day`` (default d.day) clamped to the month's length."""
+    m = d.month - 1 + months
+    year, month = d.year + m // 12, m % 12 + 1
+    want = d.day if day is None else day
+    return date(year, month, min(want, calendar.monthrange(year, month)[1]))
+
+
+def _cycle_start(d: date, billing_day: int) -> date:
+    """Start of the billing cycle containing local date ``d`` (cycles start on ``billing_day``,
+    clamped to the month's last day in short months)."""
+    this = date(d.year, d.month, min(billing_day, calendar.monthrange(d.year, d.month)[1]))
+    return this if d >= this else _add_months(this, -1, billing_day)
+
+
+def _to_local_date(ts, tz: str) -> date:
+    t = pd.Timestamp(ts)
+    if t.tzinfo is None:
+        raise UsageError("timestamps must be timezone-aware (UTC)")
+    return t.tz_convert(tz).date()
+
+
+def billing_periods(
+    first_utc,
+    last_utc,
+    tz: str,
+    billing_day: int | None = None,
+    explicit: Sequence[BillingPeriod] | None = None,
+) -> list[BillingPeriod]:
+    """Billing periods covering the local dates from ``first_utc`` to ``last_utc``.
+
+    Parameters
+    ----------
+    first_utc, last_utc : timestamp-like, tz-aware
+        First and last interval starts of the data (or of the range to bill).
+    tz : str
+        The site's IANA time zone; periods follow its local calendar.
+    billing_day : int, optional
+        Day of month (1-31) on which each cycle starts; a day beyond a short month's end means
+        that month's last day. ``None`` or 1: calendar months.
+    explicit : sequence of BillingPeriod, optional
+        Periods as printed on the bills; returned sorted after checking they do not overlap
+        (gaps between them are allowed: those days are not billed).
+
+    Returns
+    -------
+    list of BillingPeriod
+        Whole cycles: the first and last may extend beyond the data (they are partial).
+    """
+    if explicit is not None:
+        return check_periods(explicit)
+    if billing_day is None:
+        billing_day = 1
+    if isinstance(billing_day, bool) or not isinstance(billing_day, int | np.integer) or not 1 <= billing_day <= 31:
+        raise UsageError(f"billing day must be a whole number from 1 to 31, got {billing_day!r}")
+    first = _to_local_date(first_utc, tz)
+    last = _to_local_date(last_utc, tz)
+    if last < first:
+        raise UsageError("the last interval is before the first")
+    start = _cycle_start(first, int(billing_day))
+    out: list[BillingPeriod] = []
+    k = 0
+    # One iteration per billing cycle (a dozen a year), not per interval.
+    while True:
+        s = _add_months(start, k, int(billing_day))
+        if s > last:
+            break
+        out.append(BillingPeriod(s, _add_months(start, k + 1, int(billing_day))))
+        k += 1
+    return out
+
+
+def check_periods(periods: Sequence[BillingPeriod]) -> list[BillingPeriod]:
+    """Sorted copy of ``periods``; raises UsageError when two of them overlap or none is given."""
+    ps = sorted(periods)
+    if not ps:
+        raise UsageError("no billing periods given")
+    for a, b in zip(ps, ps[1:], strict=False):
+        if b.start < a.end:
+            raise UsageError(f"billing periods {a.label} and {b.label} overlap")
+    return ps
+
+
+def clip_periods(
+    periods: Sequence[BillingPeriod], start: date | None, end: date | None
+) -> tuple[list[BillingPeriod], list[bool]]:
+    """Restrict periods to local dates ``[start, end)``; returns the periods and, for each, whether
+    it was cut short (a partial billing period)."""
+    out: list[BillingPeriod] = []
+    clipped: list[bool] = []
+    for p in periods:
+        s = max(p.start, start) if start else p.start
+        e = min(p.end, end) if end else p.end
+        if e <= s:
+            continue
+        out.append(BillingPeriod(s, e))
+        clipped.append((s, e) != (p.start, p.end))
+    if not out:
+        raise UsageError(
+            f"no billing period falls inside {start.isoformat() if start else '…'} to {end.isoformat() if end else '…'}"
+        )
+    return out, clipped
+
+
+def local_bounds_utc(dates: Sequence[date], tz: str) -> pd.DatetimeIndex:
+    """UTC instants of local midnight on each date (DST-aware).
+
+    Where midnight itself does not exist locally (a few zones change clocks at 00:00) the day
+    starts at the first existing instant; where it occurs twice, at the first occurrence.
+    """
+    naive = pd.DatetimeIndex(pd.to_datetime([pd.Timestamp(d) for d in dates]))
+    local = naive.tz_localize(tz, ambiguous=np.ones(len(naive), dtype=bool), nonexistent="shift_forward")
+    return local.tz_convert("UTC")
+
+
+def expected_intervals(periods: Sequence[BillingPeriod], tz: str, interval_minutes: int) -> np.ndarray:
+    """Intervals a complete meter records in each local-time period (92 or 100 quarter hours on a
+    DST change day in zones that shift by one hour)."""
+    _check_interval_minutes(interval_minutes)
+    starts = local_bounds_utc([p.start for p in periods], tz)
+    ends = local_bounds_utc([p.end for p in periods], tz)
+    seconds = (ends - starts).total_seconds().to_numpy()
+    return np.floor(seconds / (interval_minutes * 60) + 1e-9).astype(np.int64)
+
+
+# --------------------------------------------------------------------------------------------
+# Segment reductions (periods are contiguous runs of a time-sorted array)
+# --------------------------------------------------------------------------------------------
+def segment_bounds(index_utc: pd.DatetimeIndex, periods: Sequence[BillingPeriod], tz: str):
+    """Positions of each period's intervals in a sorted UTC index.
+
+    Returns
+    -------
+    selected : numpy.ndarray of bool
+        Intervals that fall inside some period (intervals between explicit periods do not).
+    bounds : numpy.ndarray of int, length ``len(periods) + 1``
+        In the *selected* array, period ``k`` is ``[bounds[k], bounds[k+1])``.
+    """
+    # Compare in one unit: pandas may hold the index and the bounds at different resolutions.
+    starts = local_bounds_utc([p.start for p in periods], tz).as_unit("ns").asi8
+    ends = local_bounds_utc([p.end for p in periods], tz).as_unit("ns").asi8
+    t = pd.DatetimeIndex(index_utc).tz_convert("UTC").as_unit("ns").asi8
+    pos = np.searchsorted(starts, t, side="right") - 1
+    ok = pos >= 0
+    ok[ok] = t[ok] < ends[pos[ok]]
+    bounds = np.searchsorted(pos[ok], np.arange(len(periods) + 1), side="left")
+    return ok, bounds.astype(np.int64)
+
+
+def _reduce(ufunc, values: np.ndarray, bounds: np.ndarray, empty: float) -> np.ndarray:
+    values = np.asarray(values, dtype=float)
+    n = len(bounds) - 1
+    lead = values.shape[:-1]
+    out = np.full(lead + (n,), empty, dtype=float)
+    nonempty = bounds[1:] > bounds[:-1]
+    if nonempty.any():
+        # Empty periods have start == end == next start, so dropping them keeps reduceat's
+        # "up to the next index" semantics exact.
+        out[..., nonempty] = ufunc.reduceat(values[..., : bounds[-1]], bounds[:-1][nonempty], axis=-1)
+    return out
+
+
+def segment_sum(values, bounds) -> np.ndarray:
+    """Sum per period over the last axis (0 for an empty period)."""
+    return _reduce(np.add, values, bounds, 0.0)
+
+
+def segment_max(values, bounds) -> np.ndarray:
+    """Maximum per period over the last axis (NaN for an empty period)."""
+    return _reduce(np.maximum, values, bounds, np.nan)
+
+
+def segment_argmax(values, bounds) -> np.ndarray:
+    """Position of the first maximum of each period (-1 for an empty period)."""
+    values = np.asarray(values, dtype=float)
+    n = len(bounds) - 1
+    peaks = segment_max(values, bounds)
+    seg = np.repeat(np.arange(n), np.diff(bounds))
+    hits = np.flatnonzero(values[: bounds[-1]] == peaks[seg])
+    out = np.full(n, -1, dtype=np.int64)
+    first_seg, first_pos = np.unique(seg[hits], return_index=True)
+    out[first_seg] = hits[first_pos]
+    return out
+
+
+# --------------------------------------------------------------------------------------------
+# Period figures (pandas convenience over the same array functions)
+# --------------------------------------------------------------------------------------------
+def period_figures(
+    frame: pd.DataFrame,
+    periods: Sequence[BillingPeriod],
+    tz: str,
+    interval_minutes: int,
+    kvarh_basis: str = "lag",
+) -> pd.DataFrame:
+    """Billing-period figures of an interval frame, one row per period.
+
+    Columns: ``start``, ``end`` (local dates), ``kwh``, ``kvarh_lag``, ``kvarh_lead``, ``pf``
+    (lagging-only energy PF), ``pf_basis`` (energy PF with ``kvarh_basis``: 'lag', 'net' or
+    'lag_plus_lead'), ``tan_phi`` (lagging), ``peak_kw`` and ``peak_kw_at`` (local interval
+    start), ``peak_kva`` (with Q_net) and ``peak_kva_at``, ``peak_kvar`` (lagging),
+    ``pf_at_peak`` and ``pf_at_peak_sense``, ``load_factor`` (kWh / (peak kW x hours with data)),
+    ``intervals``, ``expected_intervals``, ``coverage``, ``estimated_intervals``.
+
+    References
+    ----------
+    .. [1] IEEE Std 1459-2010, section 3.1.1 (PF = P / S), applied to period energies.
+    """
+    _check_interval_minutes(interval_minutes)
+    periods = check_periods(periods)
+    frame = frame.sort_index()
+    sel, bounds = segment_bounds(frame.index, periods, tz)
+    f = frame[sel]
+    power = interval_power(f, interval_minutes)
+    kwh = segment_sum(f["kwh"].to_numpy(float), bounds)
+    lag = segment_sum(f["kvarh_lag"].to_numpy(float), bounds)
+    lead = segment_sum(f["kvarh_lead"].to_numpy(float), bounds)
+    kw = power["kw"].to_numpy()
+    kva = power["kva"].to_numpy()
+    i_kw = segment_argmax(kw, bounds)
+    i_kva = segment_argmax(kva, bounds)
+    local = f.index.tz_convert(tz)
+    present = np.diff(bounds)
+    expected = expected_intervals(periods, tz, interval_minutes)
+    peak_kw = segment_max(kw, bounds)
+    hours = present * interval_minutes / 60.0
+    pf_peak = np.where(i_kw >= 0, power["pf"].to_numpy()[np.maximum(i_kw, 0)], np.nan)
+    sense_peak = np.where(i_kw >= 0, power["pf_sense"].to_numpy()[np.maximum(i_kw, 0)], "")
+    basis = {"lag": lag, "net": lag - lead, "lag_plus_lead": lag + lead}
+    if kvarh_basis not in basis:
+        raise UsageError(f"kvarh basis must be 'lag', 'net' or 'lag_plus_lead', got {kvarh_basis!r}")
+
+    def at(i):
+        return [local[j].isoformat() if j >= 0 else None for j in i]
+
+    return pd.DataFrame(
+        {
+            "start": [p.start for p in periods],
+            "end": [p.end for p in periods],
+            "kwh": kwh,
+            "kvarh_lag": lag,
+            "kvarh_lead": lead,
+            "pf": energy_pf(kwh, lag),
+            "pf_basis": energy_pf(kwh, basis[kvarh_basis]),
+            "tan_phi": np.divide(lag, kwh, out=np.full(len(periods), np.nan), where=kwh > 0),
+            "peak_kw": peak_kw,
+            "peak_kw_at": at(i_kw),
+            "peak_kva": segment_max(kva, bounds),
+            "peak_kva_at": at(i_kva),
+            "peak_kvar": segment_max(power["kvar_lag"].to_numpy(), bounds),
+            "pf_at_peak": pf_peak,
+            "pf_at_peak_sense": sense_peak,
+            "load_factor": np.divide(kwh, peak_kw * hours, out=np.full(len(periods), np.nan), where=(peak_kw * hours) > 0),
+            "intervals": present,
+            "expected_intervals": expected,
+            "coverage": np.divide(present, expected, out=np.full(len(periods), np.nan), where=expected > 0),
+            "estimated_intervals": segment_sum(f["estimated"].to_numpy(dtype=float), bounds).astype(np.int64),
+        }
+    )
