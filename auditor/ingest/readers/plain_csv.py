@@ -1,0 +1,129 @@
+"""The plain CSV: ``meter,start,kwh,kvarh_lag,kvarh_lead`` (the project's own contract).
+
+Optional columns: ``kwh_received``; ``end`` in place of ``start`` (interval-ending labels);
+``flag`` (``A`` actual, ``E`` estimated). Timestamps are ISO 8601; without an offset they are
+local wall time in ``--timezone``. Any other column is an error that names it.
+"""
+from __future__ import annotations
+
+from collections.abc import Iterator
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from auditor.errors import InputError, Problem
+from auditor.ingest.frame import MAX_PROBLEMS, ReadInfo, ReadOptions, ReadOutput, canonical, numeric_column
+from auditor.ingest.timestamps import parse_iso
+
+FORMAT = "plain_csv"
+REQUIRED = ("meter", "kwh", "kvarh_lag", "kvarh_lead")
+OPTIONAL = ("kwh_received", "flag")
+TIME_COLUMNS = ("start", "end")
+
+
+def header_of(head: str) -> list[str]:
+    first = head.lstrip("\ufeff").splitlines()[0] if head.strip() else ""
+    return [c.strip().lower() for c in first.split(",")]
+
+
+def sniff(path: Path, head: str) -> bool:
+    cols = header_of(head)
+    return "meter" in cols and "kwh" in cols and ("start" in cols or "end" in cols)
+
+
+def check_header(cols: list[str], file: str) -> str:
+    problems = []
+    seen = set()
+    for c in cols:
+        if c in seen:
+            problems.append(Problem(f"column {c!r} appears twice", 1, c))
+        seen.add(c)
+    known = set(REQUIRED) | set(OPTIONAL) | set(TIME_COLUMNS)
+    for c in cols:
+        if c not in known:
+            problems.append(Problem(
+                f"unknown column {c!r}; the plain CSV has meter, start (or end), kwh, kvarh_lag, "
+                "kvarh_lead and optionally kwh_received, flag (use --profile for other layouts)", 1, c))
+    for c in REQUIRED:
+        if c not in cols:
+            problems.append(Problem(f"missing column {c!r}", 1, c))
+    if "start" in cols and "end" in cols:
+        problems.append(Problem("give either 'start' or 'end', not both", 1, "end"))
+    elif "start" not in cols and "end" not in cols:
+        problems.append(Problem("missing column 'start' (or 'end' for interval-ending labels)", 1, "start"))
+    if problems:
+        raise InputError(file, problems)
+    return "start" if "start" in cols else "end"
+
+
+def read(path: Path, options: ReadOptions) -> ReadOutput:
+    file = str(path)
+    with open(path, encoding="utf-8-sig", errors="strict") as fh:
+        head = fh.readline()
+    cols = header_of(head)
+    time_col = check_header(cols, file)
+    info = ReadInfo(format=FORMAT)
+    info.quantities = tuple(q for q in ("kwh", "kvarh_lag", "kvarh_lead", "kwh_received") if q in cols)
+    info.label = time_col
+    return ReadOutput(info, _chunks(path, cols, time_col, options, file))
+
+
+def _chunks(path: Path, cols: list[str], time_col: str, options: ReadOptions, file: str) -> Iterator[pd.DataFrame]:
+    dtypes = {"meter": "string", time_col: "string"}
+    if "flag" in cols:
+        dtypes["flag"] = "string"
+    reader = pd.read_csv(
+        path, header=0, names=cols, dtype=dtypes, chunksize=options.chunk_rows,
+        skip_blank_lines=False, encoding="utf-8-sig", engine="c", on_bad_lines="error",
+        na_filter=True, keep_default_na=False, na_values=[""],
+    )
+    first_line = 2
+    try:
+        for chunk in reader:
+            lines = np.arange(first_line, first_line + len(chunk))
+            first_line += len(chunk)
+            blank = chunk.isna().all(axis=1).to_numpy()
+            if blank.any():
+                chunk = chunk.loc[~blank]
+                lines = lines[~blank]
+            if not len(chunk):
+                continue
+            yield _canonical(chunk, lines, time_col, options, file)
+    except pd.errors.ParserError as exc:
+        raise InputError(file, Problem(_parser_message(exc))) from None
+    except UnicodeDecodeError as exc:
+        raise InputError(file, Problem(f"not UTF-8 text (byte {exc.start}: {exc.reason}); save the file as UTF-8")) from None
+
+
+def _parser_message(exc: Exception) -> str:
+    text = str(exc).strip().splitlines()[-1]
+    # pandas says "Expected 5 fields in line 7, saw 6": keep that, it already names the line
+    return f"malformed CSV: {text}"
+
+
+def _canonical(chunk: pd.DataFrame, lines: np.ndarray, time_col: str, options: ReadOptions, file: str) -> pd.DataFrame:
+    meter = chunk["meter"].str.strip()
+    empty_meter = meter.isna().to_numpy() | (meter == "").fillna(True).to_numpy()
+    if empty_meter.any():
+        raise InputError(file, [Problem("empty meter id", int(lines[i]), "meter")
+                                for i in np.flatnonzero(empty_meter)[:MAX_PROBLEMS]])
+    raw_time = chunk[time_col]
+    missing = raw_time.isna().to_numpy()
+    if missing.any():
+        raise InputError(file, [Problem("empty timestamp", int(lines[i]), time_col)
+                                for i in np.flatnonzero(missing)[:MAX_PROBLEMS]])
+    start = parse_iso(raw_time, lines, time_col, file, options.timezone)
+    values = {q: numeric_column(chunk[q], lines, q, file) for q in ("kwh", "kvarh_lag", "kvarh_lead")}
+    received = (numeric_column(chunk["kwh_received"], lines, "kwh_received", file)
+                if "kwh_received" in chunk.columns else None)
+    estimated = None
+    if "flag" in chunk.columns:
+        flag = chunk["flag"].str.strip().str.upper().fillna("A")
+        bad = ~flag.isin(["A", "E", ""]).to_numpy()
+        if bad.any():
+            raise InputError(file, [Problem(f"flag must be A (actual) or E (estimated), not {chunk['flag'].iloc[i]!r}",
+                                            int(lines[i]), "flag") for i in np.flatnonzero(bad)[:MAX_PROBLEMS]])
+        estimated = (flag == "E").to_numpy()
+    return canonical(meter.to_numpy(dtype=object), start, values["kwh"], values["kvarh_lag"],
+                     values["kvarh_lead"], received, estimated, lines)

@@ -1,0 +1,281 @@
+"""Validation of one file's canonical rows (the trade's VEE: validation, estimation, editing).
+
+Hard errors (the file is rejected, nothing stored): negative values, duplicate timestamps with
+different values, timestamps off the interval grid, mixed interval lengths, an interval length
+that is not 5, 15, 30 or 60 minutes. (Non-numeric cells, unreadable timestamps and DST
+problems are caught by the readers.)
+
+Findings that are normal in meter data are stored as data-quality flags and reported as
+warnings, never silently: gaps, implausible spikes, estimated intervals, exact duplicate rows.
+``strict`` turns spikes and duplicates into errors. ``estimate_gaps`` fills gaps, flagging every
+filled value.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from auditor.errors import InputError, Problem
+from auditor.ingest.frame import ALLOWED_INTERVALS, MAX_PROBLEMS, VALUE_COLUMNS
+
+# A spike: an interval more than SPIKE_FACTOR times the meter's 99th percentile in the file.
+# Common practice for a first screen; the threshold is deliberately loose so that real peaks pass.
+SPIKE_FACTOR = 10.0
+# A run of this many intervals at another allowed spacing is a change of interval length,
+# not a gap.
+MIXED_RUN = 8
+# Gaps up to this many intervals are filled by straight-line interpolation; longer ones by the
+# mean of the same time one week before and after where those exist (common practice).
+LINEAR_FILL_MAX = 4
+
+
+@dataclass
+class QualityFinding:
+    meter: str
+    kind: str  # gap | spike | estimated | duplicate | filled
+    start: int
+    end: int  # exclusive, epoch seconds
+    intervals: int
+    detail: str
+
+
+@dataclass
+class MeterRows:
+    """One meter's validated rows, sorted by start."""
+
+    meter: str
+    interval_minutes: int
+    start: np.ndarray
+    values: dict[str, np.ndarray]
+    flags: np.ndarray  # int16 bit field (store.models FLAG_*)
+    findings: list[QualityFinding] = field(default_factory=list)
+
+
+@dataclass
+class Validated:
+    meters: list[MeterRows]
+    warnings: list[Problem]
+    rows_in: int
+
+
+def _fmt_utc(epoch: int) -> str:
+    return pd.Timestamp(int(epoch), unit="s", tz="UTC").strftime("%Y-%m-%d %H:%M UTC")
+
+
+def validate(df: pd.DataFrame, file: str, *, interval_minutes: int | None = None, label: str = "start",
+             stored_intervals: dict[str, int | None] | None = None, strict: bool = False,
+             estimate_gaps: bool = False) -> Validated:
+    """Check one file's canonical rows and split them by meter (see module docstring)."""
+    from auditor.store.models import FLAG_ESTIMATED, FLAG_FILLED
+
+    stored_intervals = stored_intervals or {}
+    warnings: list[Problem] = []
+    problems: list[Problem] = []
+    for q in VALUE_COLUMNS:
+        v = df[q].to_numpy()
+        neg = np.flatnonzero(v < 0)
+        for i in neg[:MAX_PROBLEMS]:
+            problems.append(Problem(f"negative value {v[i]:g}; energy registers count up (export "
+                                    "energy goes in kwh_received)", int(df["line"].iat[i]), q))
+    if problems:
+        raise InputError(file, sorted(problems, key=lambda p: p.line or 0)[:MAX_PROBLEMS])
+
+    codes, names = pd.factorize(df["meter"], sort=False)
+    order = np.lexsort((df["line"].to_numpy(), df["start"].to_numpy(), codes))
+    codes = codes[order]
+    start_all = df["start"].to_numpy()[order]
+    line_all = df["line"].to_numpy()[order]
+    vals_all = {q: df[q].to_numpy()[order] for q in VALUE_COLUMNS}
+    est_all = df["estimated"].to_numpy()[order]
+    bounds = np.flatnonzero(np.diff(codes)) + 1
+    out: list[MeterRows] = []
+    for lo, hi in zip(np.r_[0, bounds], np.r_[bounds, len(codes)], strict=True):
+        meter = str(names[codes[lo]])
+        start = start_all[lo:hi]
+        lines = line_all[lo:hi]
+        vals = {q: v[lo:hi] for q, v in vals_all.items()}
+        est = est_all[lo:hi]
+        # exact duplicates: drop (warn); differing ones: error naming both lines
+        dup = np.flatnonzero(np.diff(start) == 0) + 1
+        if len(dup):
+            differ = np.zeros(len(dup), bool)
+            for v in vals.values():
+                a, b = v[dup - 1], v[dup]
+                differ |= ~((a == b) | (np.isnan(a) & np.isnan(b)))
+            bad = dup[differ]
+            if len(bad):
+                raise InputError(file, [Problem(
+                    f"duplicate interval {_fmt_utc(start[i])} for meter {meter} with different values "
+                    f"(first at line {lines[i - 1]})", int(lines[i]), label) for i in bad[:MAX_PROBLEMS]])
+            msg = (f"{len(dup)} exact duplicate row(s) for meter {meter} ignored (first at line "
+                   f"{lines[dup[0]]})")
+            if strict:
+                raise InputError(file, Problem(msg, int(lines[dup[0]]), label))
+            warnings.append(Problem(msg, int(lines[dup[0]])))
+            keep = np.ones(len(start), bool)
+            keep[dup] = False
+            start, lines, est = start[keep], lines[keep], est[keep]
+            vals = {q: v[keep] for q, v in vals.items()}
+
+        minutes = _interval_of(meter, start, lines, interval_minutes, stored_intervals.get(meter), file, label)
+        step = minutes * 60
+        if label == "end":
+            start = start - step
+        # grid: quarter-hour aligned (every real UTC offset is a multiple of 15 min) and one phase
+        base = min(step, 900)
+        off = np.flatnonzero(start % base != 0)
+        if not len(off) and step > 900:
+            phase = start % step
+            off = np.flatnonzero(phase != np.bincount((phase // 900).astype(int)).argmax() * 900)
+        if len(off):
+            raise InputError(file, [Problem(
+                f"timestamp {_fmt_utc(start[i] + (step if label == 'end' else 0))} is off the "
+                f"{minutes}-minute interval grid", int(lines[i]), label) for i in off[:MAX_PROBLEMS]])
+        diffs = np.diff(start)
+        _check_mixed(meter, diffs, lines, minutes, file, label)
+
+        flags = np.where(est, FLAG_ESTIMATED, 0).astype("int16")
+        rows = MeterRows(meter, minutes, start, vals, flags)
+        _gap_findings(rows, diffs, step)
+        _spike_findings(rows, lines, strict, file, warnings)
+        _estimated_findings(rows)
+        if estimate_gaps and any(f.kind == "gap" for f in rows.findings):
+            _fill_gaps(rows, FLAG_FILLED)
+        for f in rows.findings:
+            if f.kind in ("gap", "spike", "filled"):
+                warnings.append(Problem(f"meter {meter}: {f.detail}"))
+        est_count = int((rows.flags & FLAG_ESTIMATED != 0).sum())
+        if est_count:
+            warnings.append(Problem(f"meter {meter}: {est_count} interval(s) flagged estimated in the file"))
+        out.append(rows)
+    return Validated(out, warnings[:200], len(df))
+
+
+def _interval_of(meter, start, lines, given, stored, file, label) -> int:
+    if given is not None:
+        minutes = given
+    elif len(start) >= 2:
+        diffs = np.diff(start)
+        diffs = diffs[diffs > 0]
+        vals, counts = np.unique(diffs, return_counts=True)
+        minutes = int(vals[counts.argmax()]) / 60
+        if minutes not in ALLOWED_INTERVALS:
+            i = int(np.flatnonzero(np.diff(start) == vals[counts.argmax()])[0]) + 1
+            raise InputError(file, Problem(
+                f"meter {meter}: rows are {minutes:g} minutes apart; interval length must be 5, 15, 30 "
+                "or 60 minutes", int(lines[i]), label))
+        minutes = int(minutes)
+    elif stored:
+        minutes = stored
+    else:
+        minutes = 15
+    if stored and stored != minutes:
+        raise InputError(file, Problem(
+            f"mixed interval lengths: meter {meter} is stored at {stored}-minute intervals but this "
+            f"file has {minutes}-minute intervals", int(lines[0]), label))
+    return minutes
+
+
+def _check_mixed(meter, diffs, lines, minutes, file, label) -> None:
+    step = minutes * 60
+    for other in ALLOWED_INTERVALS:
+        o = other * 60
+        if o == step:
+            continue
+        same = diffs == o
+        if same.sum() < MIXED_RUN:
+            continue
+        # longest run of consecutive diffs at the other spacing
+        padded = np.r_[0, same.astype(np.int8), 0]
+        edges = np.flatnonzero(np.diff(padded))
+        runs = edges[1::2] - edges[::2]
+        if len(runs) and runs.max() >= MIXED_RUN:
+            i = int(edges[::2][runs.argmax()]) + 1
+            raise InputError(file, Problem(
+                f"mixed interval lengths for meter {meter}: {other}-minute spacing from this line on, "
+                f"{minutes}-minute elsewhere; split the file by interval length", int(lines[i]), label))
+
+
+def _gap_findings(rows: MeterRows, diffs: np.ndarray, step: int) -> None:
+    at = np.flatnonzero(diffs > step)
+    for i in at[:10_000]:
+        missing = int(diffs[i] // step) - 1
+        g0 = int(rows.start[i] + step)
+        rows.findings.append(QualityFinding(
+            rows.meter, "gap", g0, int(rows.start[i + 1]), missing,
+            f"gap of {missing} interval(s) from {_fmt_utc(g0)}"))
+
+
+def _spike_findings(rows: MeterRows, lines, strict, file, warnings) -> None:
+    for q in ("kwh", "kvarh_lag", "kvarh_lead"):
+        v = rows.values[q]
+        if len(v) < 96:
+            continue
+        ref = np.nanpercentile(v, 99)
+        if not np.isfinite(ref) or ref <= 0:
+            continue
+        hits = np.flatnonzero(v > SPIKE_FACTOR * ref)
+        for i in hits[:1000]:
+            msg = (f"implausible spike {v[i]:g} {q} at {_fmt_utc(rows.start[i])} (over {SPIKE_FACTOR:g}× "
+                   f"the meter's 99th percentile {ref:.3g})")
+            if strict:
+                raise InputError(file, Problem(msg, int(lines[i]), q))
+            rows.findings.append(QualityFinding(rows.meter, "spike", int(rows.start[i]),
+                                                int(rows.start[i]) + rows.interval_minutes * 60, 1,
+                                                f"line {lines[i]}: {msg}"))
+
+
+def _runs(mask: np.ndarray) -> list[tuple[int, int]]:
+    padded = np.r_[0, mask.astype(np.int8), 0]
+    edges = np.flatnonzero(np.diff(padded))
+    return list(zip(edges[::2].tolist(), edges[1::2].tolist(), strict=True))
+
+
+def _estimated_findings(rows: MeterRows) -> None:
+    from auditor.store.models import FLAG_ESTIMATED
+
+    step = rows.interval_minutes * 60
+    for a, b in _runs((rows.flags & FLAG_ESTIMATED) != 0)[:10_000]:
+        rows.findings.append(QualityFinding(rows.meter, "estimated", int(rows.start[a]),
+                                            int(rows.start[b - 1]) + step, b - a,
+                                            f"{b - a} estimated interval(s) from {_fmt_utc(rows.start[a])}"))
+
+
+def _fill_gaps(rows: MeterRows, flag_filled: int) -> None:
+    """Fill missing intervals (asked for with --estimate-gaps); every filled value is flagged."""
+    step = rows.interval_minutes * 60
+    grid = np.arange(rows.start[0], rows.start[-1] + step, step)
+    present = np.isin(grid, rows.start)
+    week = 7 * 24 * 3600 // step
+    new_vals = {}
+    for q, v in rows.values.items():
+        s = pd.Series(np.nan, index=grid)
+        s[rows.start] = v
+        if np.isnan(v).all():
+            new_vals[q] = s.to_numpy()
+            continue
+        before = s.shift(week)
+        after = s.shift(-week)
+        weekly = pd.concat([before, after], axis=1).mean(axis=1)
+        gap_len = _gap_lengths(present)
+        filled = s.copy()
+        long_gap = (~present) & (gap_len > LINEAR_FILL_MAX) & weekly.notna().to_numpy()
+        filled[long_gap] = weekly[long_gap]
+        filled = filled.interpolate(method="index", limit_area="inside")
+        new_vals[q] = filled.to_numpy()
+    flags = np.zeros(len(grid), dtype="int16")
+    flags[present] = rows.flags
+    flags[~present] |= flag_filled
+    n_filled = int((~present).sum())
+    rows.findings.append(QualityFinding(rows.meter, "filled", int(grid[0]), int(grid[-1]) + step, n_filled,
+                                        f"{n_filled} missing interval(s) estimated (--estimate-gaps) and flagged"))
+    rows.start, rows.values, rows.flags = grid, new_vals, flags
+
+
+def _gap_lengths(present: np.ndarray) -> np.ndarray:
+    out = np.zeros(len(present), dtype=np.int64)
+    for a, b in _runs(~present):
+        out[a:b] = b - a
+    return out

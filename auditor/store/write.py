@@ -1,0 +1,134 @@
+"""Bulk writes of validated readings, with revisions.
+
+Volume path: rows go through the DBAPI driver's ``executemany`` with plain tuples (SQLite), or
+``COPY`` (PostgreSQL), never one ORM object per interval. Everything happens inside the caller's
+transaction, so a file is wholly stored or not at all.
+
+Revisions: an incoming interval that is already stored with the same values is left alone; one
+stored with different values is a revision: the stored row is copied to ``reading_revision``
+(with the batch that superseded it) and replaced by the newer value.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from sqlalchemy import Connection
+
+from auditor.store.models import QUANTITIES
+
+READING_COLUMNS = ("meter_id", "start", *QUANTITIES, "flags", "batch_id")
+BATCH_ROWS = 100_000
+
+
+@dataclass
+class WriteCounts:
+    inserted: int = 0
+    revised: int = 0
+    unchanged: int = 0
+
+
+def _ph(conn: Connection, n: int) -> str:
+    mark = "?" if conn.dialect.paramstyle == "qmark" else "%s"
+    return ", ".join([mark] * n)
+
+
+def _none_for_nan(a: np.ndarray) -> list:
+    lst = a.tolist()
+    if np.isnan(a).any():
+        return [None if x != x else x for x in lst]
+    return lst
+
+
+def _columns(meter_id: int, start: np.ndarray, values: dict[str, np.ndarray], flags: np.ndarray,
+             batch_id: int, nan_to_none: bool) -> list[list]:
+    n = len(start)
+    conv = _none_for_nan if nan_to_none else (lambda a: a.tolist())
+    return [[meter_id] * n, start.tolist(), *[conv(values[q]) for q in QUANTITIES],
+            flags.tolist(), [batch_id] * n]
+
+
+def insert_rows(conn: Connection, meter_id: int, start: np.ndarray, values: dict[str, np.ndarray],
+                flags: np.ndarray, batch_id: int) -> int:
+    if not len(start):
+        return 0
+    if conn.dialect.name == "postgresql":
+        return _copy_rows(conn, meter_id, start, values, flags, batch_id)
+    # SQLite stores a bound NaN as NULL, which is what an absent channel means.
+    sql = f"INSERT INTO reading ({', '.join(READING_COLUMNS)}) VALUES ({_ph(conn, len(READING_COLUMNS))})"
+    raw = conn.connection.driver_connection
+    cur = raw.cursor()
+    for lo in range(0, len(start), BATCH_ROWS):
+        sl = slice(lo, lo + BATCH_ROWS)
+        cols = _columns(meter_id, start[sl], {q: v[sl] for q, v in values.items()}, flags[sl], batch_id, False)
+        cur.executemany(sql, zip(*cols, strict=True))
+    cur.close()
+    return len(start)
+
+
+def _copy_rows(conn, meter_id, start, values, flags, batch_id) -> int:
+    raw = conn.connection.driver_connection
+    with raw.cursor() as cur:
+        with cur.copy(f"COPY reading ({', '.join(READING_COLUMNS)}) FROM STDIN") as copy:
+            cols = _columns(meter_id, start, values, flags, batch_id, True)
+            for row in zip(*cols, strict=True):
+                copy.write_row(row)
+    return len(start)
+
+
+def existing_rows(conn: Connection, meter_id: int, first: int, last: int) -> pd.DataFrame:
+    sql = (f"SELECT start, {', '.join(QUANTITIES)}, flags, batch_id FROM reading "
+           f"WHERE meter_id = {_ph(conn, 1)} AND start >= {_ph(conn, 1)} AND start <= {_ph(conn, 1)} ORDER BY start")
+    cur = conn.exec_driver_sql(sql, (meter_id, int(first), int(last)))
+    rows = cur.fetchall()
+    return pd.DataFrame(rows, columns=["start", *QUANTITIES, "flags", "batch_id"]).astype(
+        {"start": "int64", **{q: "float64" for q in QUANTITIES}})
+
+
+def write_meter(conn: Connection, meter_id: int, start: np.ndarray, values: dict[str, np.ndarray],
+                flags: np.ndarray, batch_id: int) -> WriteCounts:
+    """Insert new intervals, revise changed ones, leave identical ones; returns the counts."""
+    counts = WriteCounts()
+    if not len(start):
+        return counts
+    old = existing_rows(conn, meter_id, int(start[0]), int(start[-1]))
+    if old.empty:
+        counts.inserted = insert_rows(conn, meter_id, start, values, flags, batch_id)
+        return counts
+    pos = np.searchsorted(start, old["start"].to_numpy())
+    pos_ok = (pos < len(start))
+    pos_ok[pos_ok] = start[pos[pos_ok]] == old["start"].to_numpy()[pos_ok]
+    old = old.loc[pos_ok]
+    pos = pos[pos_ok]
+    is_old = np.zeros(len(start), bool)
+    is_old[pos] = True
+    same = np.ones(len(pos), bool)
+    for q in QUANTITIES:
+        a = old[q].to_numpy()
+        b = values[q][pos]
+        same &= np.isclose(a, b, rtol=1e-12, atol=1e-9, equal_nan=True)
+    same &= old["flags"].to_numpy() == flags[pos]
+    changed = ~same
+    counts.unchanged = int(same.sum())
+    new_idx = np.flatnonzero(~is_old)
+    counts.inserted = insert_rows(conn, meter_id, start[new_idx], {q: v[new_idx] for q, v in values.items()},
+                                  flags[new_idx], batch_id)
+    if changed.any():
+        prev = old.loc[changed]
+        rev_cols = ("meter_id", "start", *QUANTITIES, "flags", "batch_id", "superseded_by")
+        rev_rows = [
+            (meter_id, int(r.start), *[None if pd.isna(getattr(r, q)) else float(getattr(r, q)) for q in QUANTITIES],
+             int(r.flags), int(r.batch_id), batch_id)
+            for r in prev.itertuples(index=False)
+        ]
+        conn.exec_driver_sql(
+            f"INSERT INTO reading_revision ({', '.join(rev_cols)}) VALUES ({_ph(conn, len(rev_cols))})", rev_rows)
+        idx = pos[changed]
+        upd = [(*[None if np.isnan(values[q][i]) else float(values[q][i]) for q in QUANTITIES], int(flags[i]),
+                batch_id, meter_id, int(start[i])) for i in idx]
+        sets = ", ".join(f"{c} = {_ph(conn, 1)}" for c in (*QUANTITIES, "flags", "batch_id"))
+        conn.exec_driver_sql(
+            f"UPDATE reading SET {sets} WHERE meter_id = {_ph(conn, 1)} AND start = {_ph(conn, 1)}", upd)
+        counts.revised = int(changed.sum())
+    return counts
