@@ -1,0 +1,32 @@
+"""Power factor correction: sizing, bank models and controller, screening, scenarios, optimiser.
+
+Pure layer: interval frames and tariffs in, corrected tariff runs, screening findings and a
+costed case out. Imports neither the store nor the web layer.
+"""
+from auditor.correction.banks import (
+    DETUNING_PERCENTS,
+    BankDesign,
+    bank_output_kvar,
+    corrected_kvarh,
+    output_factor,
+    parse_steps,
+    stage_totals,
+    switch_stages,
+    tuning_order,
+)
+from auditor.correction.screening import (
+    CAUTIONS,
+    ScreeningResult,
+    SiteElectrical,
+    parallel_resonance_order,
+    screen,
+    voltage_rise_percent,
+)
+from auditor.correction.sizing import SizingResult, kw_multiplier, required_kvar, size_required, tan_phi
+
+__all__ = [
+    "BankDesign", "CAUTIONS", "DETUNING_PERCENTS", "ScreeningResult", "SiteElectrical",
+    "SizingResult", "bank_output_kvar", "corrected_kvarh", "kw_multiplier", "output_factor",
+    "parallel_resonance_order", "parse_steps", "required_kvar", "screen", "size_required",
+    "stage_totals", "switch_stages", "tan_phi", "tuning_order", "voltage_rise_percent",
+]
