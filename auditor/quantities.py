@@ -28,6 +28,8 @@ from auditor.errors import UsageError
 __all__ = [
     "BillingPeriod",
     "billing_periods",
+    "check_interval_minutes",
+    "check_periods",
     "clip_periods",
     "complex_power",
     "complex_power_rms",
@@ -168,7 +170,7 @@ def interval_power(frame: pd.DataFrame, interval_minutes: int) -> pd.DataFrame:
     ----------
     .. [1] IEEE Std 1459-2010, section 3.1.1 (P, Q, S = sqrt(P^2 + Q^2), PF = P / S).
     """
-    _check_interval_minutes(interval_minutes)
+    check_interval_minutes(interval_minutes)
     kw = demand_from_energy(frame["kwh"].to_numpy(dtype=float), interval_minutes)
     kvar_lag = demand_from_energy(frame["kvarh_lag"].to_numpy(dtype=float), interval_minutes)
     kvar_lead = demand_from_energy(frame["kvarh_lead"].to_numpy(dtype=float), interval_minutes)
@@ -188,7 +190,7 @@ def interval_power(frame: pd.DataFrame, interval_minutes: int) -> pd.DataFrame:
     )
 
 
-def _check_interval_minutes(interval_minutes: int) -> None:
+def check_interval_minutes(interval_minutes: int) -> None:
     if not isinstance(interval_minutes, int | np.integer) or interval_minutes <= 0 or 1440 % interval_minutes:
         raise UsageError(
             f"interval_minutes must be a whole divisor of 1440 (5, 10, 15, 30, 60 ...), got {interval_minutes!r}"
@@ -343,7 +345,7 @@ def local_bounds_utc(dates: Sequence[date], tz: str) -> pd.DatetimeIndex:
 def expected_intervals(periods: Sequence[BillingPeriod], tz: str, interval_minutes: int) -> np.ndarray:
     """Intervals a complete meter records in each local-time period (92 or 100 quarter hours on a
     DST change day in zones that shift by one hour)."""
-    _check_interval_minutes(interval_minutes)
+    check_interval_minutes(interval_minutes)
     starts = local_bounds_utc([p.start for p in periods], tz)
     ends = local_bounds_utc([p.end for p in periods], tz)
     seconds = (ends - starts).total_seconds().to_numpy()
@@ -433,7 +435,7 @@ def period_figures(
     ----------
     .. [1] IEEE Std 1459-2010, section 3.1.1 (PF = P / S), applied to period energies.
     """
-    _check_interval_minutes(interval_minutes)
+    check_interval_minutes(interval_minutes)
     periods = check_periods(periods)
     frame = frame.sort_index()
     sel, bounds = segment_bounds(frame.index, periods, tz)

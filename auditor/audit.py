@@ -1,0 +1,517 @@
+"""The audit: period figures and tariff charges for one meter, as a pure computation.
+
+:func:`prepare_audit` does everything that does not depend on reactive energy once (period
+boundaries, kWh, kW peaks, local-time masks, coverage); :meth:`PreparedAudit.run` then
+recomputes the reactive figures and every charge from per-interval kvarh arrays in a few
+milliseconds, which is what lets the correction layer try many capacitor banks.
+"""
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from datetime import date
+
+import numpy as np
+import pandas as pd
+
+from auditor.errors import UsageError
+from auditor.quantities import (
+    BillingPeriod,
+    billing_periods,
+    check_interval_minutes,
+    check_periods,
+    clip_periods,
+    demand_from_energy,
+    energy_pf,
+    expected_intervals,
+    local_bounds_utc,
+    power_factor,
+    segment_argmax,
+    segment_bounds,
+    segment_max,
+    segment_sum,
+)
+from auditor.tariffs.engine import (
+    Charges,
+    PeriodQuantities,
+    WindowSums,
+    compute_charges,
+    energy_window_index,
+    local_calendar,
+    mechanism_windows,
+    window_mask,
+)
+from auditor.tariffs.spec import Tariff
+
+__all__ = ["AuditResult", "PeriodResult", "PreparedAudit", "audit", "prepare_audit"]
+
+REQUIRED_COLUMNS = ("kwh", "kvarh_lag", "kvarh_lead")
+
+
+def _f(x) -> float | None:
+    """JSON float: None for NaN / inf (undefined PF, no data)."""
+    if x is None:
+        return None
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+@dataclass(frozen=True)
+class PeriodResult:
+    """Figures and charges of one billing period. Undefined figures (no load, no data) are NaN
+    here and ``None`` in :meth:`to_dict`."""
+
+    start: date
+    end: date
+    kwh: float
+    kvarh_lag: float
+    kvarh_lead: float
+    pf: float  # lagging-only energy PF
+    tan_phi: float  # lagging kvarh / kWh
+    peak_kw: float
+    peak_kw_at: str | None  # local ISO time of the interval start
+    peak_kva: float  # with Q_net
+    peak_kva_at: str | None
+    peak_kvar: float  # lagging
+    pf_at_peak: float
+    pf_at_peak_sense: str
+    load_factor: float
+    coverage: float
+    intervals: int
+    expected_intervals: int
+    estimated_intervals: int
+    partial: bool
+    billing_pf: float  # tariff-basis energy PF after the tariff's rounding
+    billing_demand: float
+    charges: dict[str, float]
+    reactive_total: float
+    total: float
+
+    @property
+    def period(self) -> BillingPeriod:
+        return BillingPeriod(self.start, self.end)
+
+    @property
+    def label(self) -> str:
+        return self.period.label
+
+    def to_dict(self) -> dict:
+        return {
+            "start": self.start.isoformat(),
+            "end": self.end.isoformat(),
+            "kwh": _f(self.kwh),
+            "kvarh_lag": _f(self.kvarh_lag),
+            "kvarh_lead": _f(self.kvarh_lead),
+            "pf": _f(self.pf),
+            "tan_phi": _f(self.tan_phi),
+            "peak_kw": _f(self.peak_kw),
+            "peak_kw_at": self.peak_kw_at,
+            "peak_kva": _f(self.peak_kva),
+            "peak_kvar": _f(self.peak_kvar),
+            "pf_at_peak": _f(self.pf_at_peak),
+            "load_factor": _f(self.load_factor),
+            "coverage": _f(self.coverage),
+            "estimated_intervals": int(self.estimated_intervals),
+            "charges": {k: float(v) for k, v in self.charges.items()},
+            "reactive_total": float(self.reactive_total),
+            "total": float(self.total),
+        }
+
+
+@dataclass(frozen=True)
+class AuditResult:
+    periods: list[PeriodResult]
+    totals: dict
+    warnings: list[str]
+    currency: str
+    tariff_name: str
+    charge_keys: tuple[str, ...] = ()
+    reactive_keys: tuple[str, ...] = ()
+
+    @property
+    def total(self) -> float:
+        return float(sum(p.total for p in self.periods))
+
+    def to_dict(self, meter: str | None = None) -> dict:
+        """The ``--json`` document: meter, tariff, currency, periods, totals, warnings."""
+        return {
+            "meter": meter,
+            "tariff": self.tariff_name,
+            "currency": self.currency,
+            "periods": [p.to_dict() for p in self.periods],
+            "totals": {k: _f(v) for k, v in self.totals.items()},
+            "warnings": list(self.warnings),
+        }
+
+    def periods_frame(self) -> pd.DataFrame:
+        """One row per period: every figure, then ``charge_<key>`` columns, reactive_total, total."""
+        rows = []
+        for p in self.periods:
+            row = {k: getattr(p, k) for k in PeriodResult.__dataclass_fields__ if k not in ("charges",)}
+            row.pop("reactive_total")
+            row.pop("total")
+            row.update({f"charge_{k}": v for k, v in p.charges.items()})
+            row["reactive_total"] = p.reactive_total
+            row["total"] = p.total
+            rows.append(row)
+        return pd.DataFrame(rows)
+
+
+@dataclass(frozen=True, eq=False)
+class PreparedAudit:
+    """Everything of an audit that reactive energy does not change, computed once.
+
+    Attributes mirror the selected range (intervals inside some billing period, time-sorted):
+    ``index`` (UTC starts), ``kw``, ``kvar_lag``, ``kvar_lead``; period boundaries in
+    ``bounds`` (period k is ``[bounds[k], bounds[k+1])``).
+    """
+
+    tariff: Tariff
+    tz: str
+    interval_minutes: int
+    periods: list[BillingPeriod]
+    index: pd.DatetimeIndex
+    kwh: np.ndarray
+    kw: np.ndarray
+    kvar_lag: np.ndarray
+    kvar_lead: np.ndarray
+    kvarh_lag: np.ndarray
+    kvarh_lead: np.ndarray
+    bounds: np.ndarray
+    partial: np.ndarray
+    intervals: np.ndarray
+    expected: np.ndarray
+    estimated: np.ndarray
+    period_kwh: np.ndarray
+    peak_kw: np.ndarray
+    peak_kw_pos: np.ndarray
+    peak_kw_at: list
+    energy_kwh: np.ndarray
+    window_masks: np.ndarray  # (mechanisms with windows, intervals) as float 0/1
+    window_kwh: np.ndarray  # (mechanisms with windows, periods)
+    window_rows: tuple[int | None, ...]  # tariff.reactive position -> row in window_masks
+    history_demand: np.ndarray
+    warnings: tuple[str, ...]
+    _local_index: pd.DatetimeIndex = field(repr=False, default=None)
+
+    # ---------------------------------------------------------------------------------------
+    def _check(self, values, name: str) -> np.ndarray:
+        a = np.asarray(values, dtype=float)
+        if a.shape != self.kwh.shape:
+            raise UsageError(f"{name} must have one value per interval ({self.kwh.shape[0]}), got shape {a.shape}")
+        if a.size and not (np.nanmin(a) >= 0):
+            raise UsageError(f"{name} must be finite and not negative")
+        return a
+
+    def quantities(self, kvarh_lag=None, kvarh_lead=None) -> tuple[PeriodQuantities, dict]:
+        """Period quantities for the engine, with the given reactive energies per interval."""
+        lag = self.kvarh_lag if kvarh_lag is None else self._check(kvarh_lag, "kvarh_lag")
+        lead = self.kvarh_lead if kvarh_lead is None else self._check(kvarh_lead, "kvarh_lead")
+        b = self.bounds
+        to_demand = 60.0 / self.interval_minutes
+        kvar_lag = lag * to_demand
+        kvar_net = (lag - lead) * to_demand
+        kva = np.hypot(self.kw, kvar_net)
+        sums = segment_sum(np.vstack([lag, lead]), b)
+        peak_kva = segment_max(kva, b)
+        peak_kvar = segment_max(kvar_lag, b)
+        at = np.maximum(self.peak_kw_pos, 0)
+        has = self.peak_kw_pos >= 0
+        if self.kw.size:
+            pf_peak, sense = power_factor(self.kw[at], kvar_net[at])
+        else:
+            pf_peak, sense = np.full(len(at), np.nan), np.full(len(at), "")
+        pf_peak = np.where(has, pf_peak, np.nan)
+        windowed: list[WindowSums | None] = []
+        if self.window_masks.shape[0]:
+            wl = segment_sum(self.window_masks * lag, b)
+            wd = segment_sum(self.window_masks * lead, b)
+        for row in self.window_rows:
+            windowed.append(None if row is None else WindowSums(self.window_kwh[row], wl[row], wd[row]))
+        q = PeriodQuantities(
+            kwh=self.period_kwh,
+            kvarh_lag=sums[0],
+            kvarh_lead=sums[1],
+            peak_kw=self.peak_kw,
+            peak_kva=peak_kva,
+            peak_kvar=peak_kvar,
+            pf_at_peak=pf_peak,
+            energy_kwh=self.energy_kwh,
+            windowed=tuple(windowed),
+            history_demand=self.history_demand,
+        )
+        return q, {"kva": kva, "pf_at_peak_sense": np.where(has, sense, "")}
+
+    def run_charges(self, kvarh_lag=None, kvarh_lead=None) -> Charges:
+        """Charges only (arrays per period), the fastest path for an optimiser."""
+        q, _ = self.quantities(kvarh_lag, kvarh_lead)
+        return compute_charges(self.tariff, q)
+
+    def run(self, kvarh_lag=None, kvarh_lead=None) -> AuditResult:
+        """Figures and charges, optionally with replaced per-interval reactive energies."""
+        q, extra = self.quantities(kvarh_lag, kvarh_lead)
+        ch = compute_charges(self.tariff, q)
+        n = len(self.periods)
+        pf = energy_pf(q.kwh, q.kvarh_lag)
+        tan_phi = np.divide(q.kvarh_lag, q.kwh, out=np.full(n, np.nan), where=q.kwh > 0)
+        hours = self.intervals * self.interval_minutes / 60.0
+        denom = self.peak_kw * hours
+        load_factor = np.divide(q.kwh, denom, out=np.full(n, np.nan), where=np.nan_to_num(denom) > 0)
+        coverage = np.divide(self.intervals, self.expected, out=np.full(n, np.nan), where=self.expected > 0)
+        kva_pos = segment_argmax(extra["kva"], self.bounds) if self.kw.size else np.full(n, -1)
+        warnings = list(self.warnings)
+        for k in np.flatnonzero(~np.isfinite(pf) & (self.intervals > 0)):
+            warnings.append(f"{self.periods[k].label}: no load, so no power factor; PF clauses charge nothing")
+        keys = self.tariff.charge_keys
+        results = []
+        for k, p in enumerate(self.periods):
+            results.append(
+                PeriodResult(
+                    start=p.start,
+                    end=p.end,
+                    kwh=float(q.kwh[k]),
+                    kvarh_lag=float(q.kvarh_lag[k]),
+                    kvarh_lead=float(q.kvarh_lead[k]),
+                    pf=float(pf[k]),
+                    tan_phi=float(tan_phi[k]),
+                    peak_kw=float(self.peak_kw[k]),
+                    peak_kw_at=self.peak_kw_at[k],
+                    peak_kva=float(q.peak_kva[k]),
+                    peak_kva_at=self._local_index[kva_pos[k]].isoformat() if kva_pos[k] >= 0 else None,
+                    peak_kvar=float(q.peak_kvar[k]),
+                    pf_at_peak=float(q.pf_at_peak[k]),
+                    pf_at_peak_sense=str(extra["pf_at_peak_sense"][k]),
+                    load_factor=float(load_factor[k]),
+                    coverage=float(coverage[k]),
+                    intervals=int(self.intervals[k]),
+                    expected_intervals=int(self.expected[k]),
+                    estimated_intervals=int(self.estimated[k]),
+                    partial=bool(self.partial[k]),
+                    billing_pf=float(ch.billing_pf[k]),
+                    billing_demand=float(ch.billing_demand[k]),
+                    charges={key: float(ch.amounts[key][k]) for key in keys},
+                    reactive_total=float(ch.reactive_total[k]),
+                    total=float(ch.total[k]),
+                )
+            )
+        kwh_all = float(q.kwh.sum())
+        lag_all = float(q.kvarh_lag.sum())
+        totals = {
+            "kwh": kwh_all,
+            "kvarh_lag": lag_all,
+            "kvarh_lead": float(q.kvarh_lead.sum()),
+            "pf": float(energy_pf(kwh_all, lag_all)),
+        }
+        totals.update({key: float(ch.amounts[key].sum()) for key in keys})
+        totals["reactive_total"] = float(ch.reactive_total.sum())
+        totals["total"] = float(ch.total.sum())
+        return AuditResult(
+            periods=results,
+            totals=totals,
+            warnings=warnings,
+            currency=self.tariff.currency,
+            tariff_name=self.tariff.name,
+            charge_keys=keys,
+            reactive_keys=self.tariff.reactive_keys,
+        )
+
+
+def _check_frame(frame: pd.DataFrame) -> pd.DataFrame:
+    if not isinstance(frame, pd.DataFrame):
+        raise UsageError("the interval data must be a DataFrame (the interval frame of DEVELOPERS.md)")
+    missing = [c for c in REQUIRED_COLUMNS if c not in frame.columns]
+    if missing:
+        raise UsageError(f"the interval frame lacks column(s) {', '.join(missing)}")
+    if not isinstance(frame.index, pd.DatetimeIndex) or frame.index.tz is None:
+        raise UsageError("the interval frame needs a timezone-aware (UTC) DatetimeIndex of interval starts")
+    if not frame.index.is_monotonic_increasing:
+        frame = frame.sort_index()
+    if frame.index.has_duplicates:
+        dup = frame.index[frame.index.duplicated()][0]
+        raise UsageError(f"the interval frame has duplicate interval starts (first: {dup.isoformat()})")
+    for c in REQUIRED_COLUMNS:
+        v = frame[c].to_numpy(dtype=float)
+        if v.size and not (np.nanmin(v) >= 0 and np.isfinite(v).all()):
+            raise UsageError(f"column {c} must hold finite values of at least 0")
+    return frame
+
+
+def prepare_audit(
+    frame: pd.DataFrame,
+    tariff: Tariff,
+    *,
+    tz: str,
+    interval_minutes: int,
+    periods: Sequence[BillingPeriod] | None = None,
+    billing_day: int | None = None,
+    start: date | None = None,
+    end: date | None = None,
+    history_peak_kw: Sequence[float] | None = None,
+) -> PreparedAudit:
+    """Precompute an audit of one meter's interval frame under ``tariff``.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        Interval frame (DEVELOPERS.md): UTC DatetimeIndex of interval starts; columns ``kwh``,
+        ``kvarh_lag``, ``kvarh_lead`` and optionally ``estimated``.
+    tariff : Tariff
+        A validated tariff (:func:`auditor.tariffs.load_tariff`).
+    tz : str
+        The site's IANA time zone: periods, windows and holidays follow its local calendar.
+    interval_minutes : int
+        Interval length (never guessed here).
+    periods : list of BillingPeriod, optional
+        Explicit billing periods (as on the bills). Default: cycles of ``billing_day``
+        (calendar months when None) covering the data, or ``start``..``end`` when given.
+    start, end : datetime.date, optional
+        Local dates limiting the audit to ``[start, end)``; cycles cut by them are partial.
+    history_peak_kw : list of float, optional
+        Measured demand of the periods before the first one, oldest first, in the tariff's
+        demand unit (kW; kVA when ``demand.basis = "kva"``), for the ratchet.
+
+    Returns
+    -------
+    PreparedAudit
+
+    References
+    ----------
+    .. [1] IEEE Std 1459-2010, section 3.1.1 (P, Q, S, PF).
+    """
+    check_interval_minutes(interval_minutes)
+    if not isinstance(tariff, Tariff):
+        raise UsageError("tariff must be a Tariff (load it with auditor.tariffs.load_tariff)")
+    frame = _check_frame(frame)
+    if start is not None and end is not None and end <= start:
+        raise UsageError(f"end {end.isoformat()} must be after start {start.isoformat()}")
+    step = pd.Timedelta(minutes=interval_minutes)
+
+    if periods is not None:
+        ps = check_periods(periods)
+        clipped = [False] * len(ps)
+        if start is not None or end is not None:
+            ps, clipped = clip_periods(ps, start, end)
+    else:
+        if frame.empty and (start is None or end is None):
+            raise UsageError("no interval data to audit (give start and end, or billing periods)")
+        first = local_bounds_utc([start], tz)[0] if start is not None else frame.index[0]
+        last = local_bounds_utc([end], tz)[0] - step if end is not None else frame.index[-1]
+        if start is not None and end is None and last < first:
+            raise UsageError(f"no interval data on or after {start.isoformat()}")
+        if end is not None and start is None and last < first:
+            raise UsageError(f"no interval data before {end.isoformat()}")
+        ps = billing_periods(first, last, tz, billing_day=billing_day)
+        clipped = [False] * len(ps)
+        if start is not None or end is not None:
+            ps, clipped = clip_periods(ps, start, end)
+
+    sel, bounds = segment_bounds(frame.index, ps, tz)
+    f = frame[sel]
+    index = f.index.tz_convert("UTC")
+    local_index = index.tz_convert(tz)
+    kwh = f["kwh"].to_numpy(dtype=float)
+    lag = f["kvarh_lag"].to_numpy(dtype=float)
+    lead = f["kvarh_lead"].to_numpy(dtype=float)
+    est = f["estimated"].to_numpy(dtype=bool) if "estimated" in f.columns else np.zeros(len(f), dtype=bool)
+    kw = demand_from_energy(kwh, interval_minutes)
+
+    n = len(ps)
+    intervals = np.diff(bounds)
+    expected = expected_intervals(ps, tz, interval_minutes)
+    estimated = segment_sum(est.astype(float), bounds).astype(np.int64)
+    period_kwh = segment_sum(kwh, bounds)
+    peak_kw = segment_max(kw, bounds)
+    peak_kw_pos = segment_argmax(kw, bounds) if kw.size else np.full(n, -1, dtype=np.int64)
+    peak_kw_at = [local_index[i].isoformat() if i >= 0 else None for i in peak_kw_pos]
+
+    cal = local_calendar(index, tz, tariff.calendar)
+    e_idx = energy_window_index(tariff.energy, cal)
+    onehot = (e_idx[None, :] == np.arange(len(tariff.energy.windows) + 1)[:, None]).astype(float)
+    energy_kwh = segment_sum(onehot * kwh, bounds)
+
+    masks, rows = [], []
+    for m in tariff.reactive:
+        ws = mechanism_windows(m)
+        if ws:
+            mask = np.zeros(len(index), dtype=bool)
+            for w in ws:
+                mask |= window_mask(w, cal)
+            rows.append(len(masks))
+            masks.append(mask.astype(float))
+        else:
+            rows.append(None)
+    window_masks = np.vstack(masks) if masks else np.zeros((0, len(index)))
+    window_kwh = segment_sum(window_masks * kwh, bounds) if masks else np.zeros((0, n))
+
+    # Partial: the period reaches beyond the data, or a billing cycle was cut by start/end.
+    p_start = local_bounds_utc([p.start for p in ps], tz)
+    p_end = local_bounds_utc([p.end for p in ps], tz)
+    partial = np.array(clipped, dtype=bool)
+    warnings: list[str] = []
+    if not frame.empty:
+        data_first, data_end = frame.index[0], frame.index[-1] + step
+        beyond = (p_start < data_first) | (p_end > data_end)
+        partial |= np.asarray(beyond)
+    for k, p in enumerate(ps):
+        label = p.label
+        if intervals[k] == 0:
+            warnings.append(f"{label}: no interval data; only fixed charges (and any demand ratchet) are billed")
+            continue
+        if clipped[k]:
+            warnings.append(f"{label}: partial billing period (the billing cycle is cut by the audited range)")
+        elif partial[k]:
+            a = max(p_start[k], frame.index[0]).tz_convert(tz)
+            b = min(p_end[k], frame.index[-1] + step).tz_convert(tz)
+            warnings.append(
+                f"{label}: partial period: data cover {a.isoformat()} to {b.isoformat()} only"
+            )
+        if intervals[k] < expected[k]:
+            cov = intervals[k] / expected[k] * 100
+            missing = expected[k] - intervals[k]
+            warnings.append(
+                f"{label}: coverage {cov:.1f} % ({missing} of {expected[k]} intervals missing)"
+            )
+        if estimated[k]:
+            warnings.append(f"{label}: {estimated[k]} estimated interval{'s' if estimated[k] > 1 else ''}")
+    if int(sel.sum()) < len(frame):
+        warnings.append(f"{len(frame) - int(sel.sum())} intervals fall outside every billing period and are not billed")
+
+    history = np.asarray(history_peak_kw if history_peak_kw is not None else [], dtype=float)
+    if history.ndim != 1 or (history.size and not (np.isfinite(history).all() and history.min() >= 0)):
+        raise UsageError("history_peak_kw must be a list of demands of at least 0, oldest first")
+
+    return PreparedAudit(
+        tariff=tariff,
+        tz=tz,
+        interval_minutes=int(interval_minutes),
+        periods=list(ps),
+        index=index,
+        kwh=kwh,
+        kw=kw,
+        kvar_lag=demand_from_energy(lag, interval_minutes),
+        kvar_lead=demand_from_energy(lead, interval_minutes),
+        kvarh_lag=lag,
+        kvarh_lead=lead,
+        bounds=bounds,
+        partial=partial,
+        intervals=intervals,
+        expected=expected,
+        estimated=estimated,
+        period_kwh=period_kwh,
+        peak_kw=peak_kw,
+        peak_kw_pos=peak_kw_pos,
+        peak_kw_at=peak_kw_at,
+        energy_kwh=energy_kwh,
+        window_masks=window_masks,
+        window_kwh=window_kwh,
+        window_rows=tuple(rows),
+        history_demand=history,
+        warnings=tuple(warnings),
+        _local_index=local_index,
+    )
+
+
+def audit(frame: pd.DataFrame, tariff: Tariff, *, tz: str, interval_minutes: int, **kw) -> AuditResult:
+    """``prepare_audit(frame, tariff, ...).run()``: figures and charges per billing period."""
+    return prepare_audit(frame, tariff, tz=tz, interval_minutes=interval_minutes, **kw).run()
