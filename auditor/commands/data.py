@@ -158,4 +158,68 @@ def db_current(ctx: Context):
     return 0
 
 
-commands = [import_cmd, meters_cmd, db_group]
+@click.group("sites")
+def sites_group():
+    """Sites: time zone, nominal voltage and the supply transformer (for screening)."""
+
+
+@sites_group.command("list")
+@click.option("--json", "json_out", is_flag=True, help="Machine-readable output.")
+@pass_ctx
+def sites_list(ctx: Context, json_out: bool):
+    """List sites and their meters."""
+    from auditor.services.meters import list_sites
+
+    sites = list_sites(ctx.store)
+    if json_out:
+        echo_json({"sites": sites})
+        return 0
+    click.echo(table(["site", "timezone", "voltage V", "transformer kVA", "impedance %", "meters"],
+                     [[x["site"], x["timezone"], x["nominal_voltage_v"], x["transformer_kva"],
+                       x["transformer_impedance_percent"], " ".join(x["meters"])] for x in sites]))
+    return 0
+
+
+@sites_group.command("set")
+@click.argument("name")
+@click.option("--timezone", "timezone", metavar="TZ", help="IANA time zone the site is billed in.")
+@click.option("--voltage", "nominal_voltage_v", type=float, help="Nominal voltage, V.")
+@click.option("--transformer-kva", type=float, help="Supply transformer rating, kVA.")
+@click.option("--impedance", "transformer_impedance_percent", type=float, help="Transformer impedance, %.")
+@click.option("--meter", "meters", multiple=True, metavar="M", help="Put meter M on this site (repeatable).")
+@pass_ctx
+def sites_set(ctx: Context, name, meters, **values):
+    """Create or update site NAME."""
+    from auditor.services.meters import set_site
+
+    site = set_site(ctx.store, name, list(meters), **values)
+    click.echo(f"site {site['site']}: {site['timezone']}, meters {' '.join(site['meters']) or '-'}")
+    return 0
+
+
+@sites_group.command("load")
+@click.argument("path", type=click.Path(exists=True, dir_okay=False))
+@pass_ctx
+def sites_load(ctx: Context, path):
+    """Create or update sites from a TOML file of [[site]] tables."""
+    from auditor.services.meters import load_sites_file
+
+    for site in load_sites_file(ctx.store, path):
+        click.echo(f"site {site['site']}: {site['timezone']}, meters {' '.join(site['meters']) or '-'}")
+    return 0
+
+
+@click.command("multiplier")
+@click.option("--meter", required=True, metavar="M")
+@click.argument("value", type=float)
+@pass_ctx
+def multiplier_cmd(ctx: Context, meter: str, value: float):
+    """Set meter M's CT × VT multiplier (applied when its readings are read)."""
+    from auditor.services.meters import set_multiplier
+
+    set_multiplier(ctx.store, meter, value)
+    click.echo(f"meter {meter}: multiplier {value:g}")
+    return 0
+
+
+commands = [import_cmd, meters_cmd, db_group, sites_group, multiplier_cmd]

@@ -1,0 +1,138 @@
+"""Loading a meter's data and site facts for the computations; site management."""
+from __future__ import annotations
+
+import tomllib
+from dataclasses import dataclass
+from datetime import date
+from pathlib import Path
+from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
+
+import pandas as pd
+from sqlalchemy import select
+
+from auditor.errors import NotFoundError, ProfileError, UsageError
+from auditor.store import Store
+from auditor.store.models import Meter, Site
+from auditor.store.queries import get_meter, now_utc, read_intervals
+
+
+@dataclass(frozen=True)
+class MeterData:
+    meter: str
+    site: str
+    timezone: str
+    interval_minutes: int
+    multiplier: float
+    nominal_voltage_v: float | None
+    transformer_kva: float | None
+    transformer_impedance_percent: float | None
+    frame: pd.DataFrame
+
+
+def _local_midnight_utc(d: date | None, tz: str) -> int | None:
+    if d is None:
+        return None
+    return int(pd.Timestamp(d).tz_localize(tz).tz_convert("UTC").value // 10**9)
+
+
+def load_meter(store: Store, meter: str, start: date | None = None, end: date | None = None) -> MeterData:
+    """One meter's interval frame (local dates ``start`` ≤ day < ``end``) and its site facts."""
+    if start and end and end <= start:
+        raise UsageError(f"--to {end} must be after --from {start}")
+    with store.session() as s:
+        m = get_meter(s, meter)
+        site = m.site
+        frame = read_intervals(s, m, _local_midnight_utc(start, site.timezone), _local_midnight_utc(end, site.timezone))
+        return MeterData(m.external_id, site.name, site.timezone, m.interval_minutes or 15, m.multiplier,
+                         site.nominal_voltage_v, site.transformer_kva, site.transformer_impedance_percent, frame)
+
+
+def meters_of_site(store: Store, site: str) -> list[str]:
+    with store.session() as s:
+        row = s.scalar(select(Site).where(Site.name == site))
+        if row is None:
+            raise NotFoundError(f"no site {site!r}")
+        return [m.external_id for m in row.meters]
+
+
+SITE_FIELDS = ("timezone", "nominal_voltage_v", "transformer_kva", "transformer_impedance_percent")
+
+
+def _check_site_values(values: dict, where: str) -> None:
+    tz = values.get("timezone")
+    if tz is not None:
+        try:
+            ZoneInfo(tz)
+        except (ZoneInfoNotFoundError, ValueError):
+            raise UsageError(f"{where}: unknown time zone {tz!r} (use an IANA name such as Europe/Berlin)") from None
+    for k in ("nominal_voltage_v", "transformer_kva", "transformer_impedance_percent"):
+        v = values.get(k)
+        if v is not None and (not isinstance(v, int | float) or isinstance(v, bool) or v <= 0):
+            raise UsageError(f"{where}: {k} must be a positive number, not {v!r}")
+    z = values.get("transformer_impedance_percent")
+    if z is not None and z > 30:
+        raise UsageError(f"{where}: transformer_impedance_percent {z} is not plausible (typical 4–8 %)")
+
+
+def set_site(store: Store, name: str, meters: list[str] | None = None, **values) -> dict:
+    """Create or update a site; optionally move meters onto it."""
+    values = {k: v for k, v in values.items() if v is not None}
+    unknown = set(values) - set(SITE_FIELDS)
+    if unknown:
+        raise UsageError(f"unknown site field(s): {', '.join(sorted(unknown))}")
+    _check_site_values(values, f"site {name!r}")
+    with store.session() as s:
+        site = s.scalar(select(Site).where(Site.name == name))
+        if site is None:
+            site = Site(name=name, timezone=values.get("timezone", "UTC"), created_at=now_utc())
+            s.add(site)
+        for k, v in values.items():
+            setattr(site, k, v)
+        s.flush()
+        for ext in meters or []:
+            m = s.scalar(select(Meter).where(Meter.external_id == ext))
+            if m is None:
+                m = Meter(site_id=site.id, external_id=ext, multiplier=1.0, created_at=now_utc())
+                s.add(m)
+            m.site_id = site.id
+        return site_dict(site)
+
+
+def site_dict(site: Site) -> dict:
+    return {"site": site.name, **{k: getattr(site, k) for k in SITE_FIELDS},
+            "meters": sorted(m.external_id for m in site.meters)}
+
+
+def list_sites(store: Store) -> list[dict]:
+    with store.session() as s:
+        return [site_dict(x) for x in s.scalars(select(Site).order_by(Site.name))]
+
+
+def load_sites_file(store: Store, path: str | Path) -> list[dict]:
+    """Sites from a TOML file of ``[[site]]`` tables (name, timezone, nominal_voltage_v,
+    transformer_kva, transformer_impedance_percent, meters)."""
+    path = Path(path)
+    try:
+        data = tomllib.loads(path.read_text(encoding="utf-8"))
+    except OSError as exc:
+        raise UsageError(f"{path}: {exc.strerror}") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise ProfileError("site", f"not valid TOML: {exc}", str(path)) from None
+    out = []
+    for i, entry in enumerate(data.get("site", [])):
+        extra = set(entry) - {"name", "meters", *SITE_FIELDS}
+        if "name" not in entry:
+            raise ProfileError(f"site[{i}].name", "every site needs a name", str(path))
+        if extra:
+            raise ProfileError(f"site[{i}].{sorted(extra)[0]}", f"unknown key; allowed: name, meters, {', '.join(SITE_FIELDS)}",
+                               str(path))
+        fields = {k: entry[k] for k in SITE_FIELDS if k in entry}
+        out.append(set_site(store, entry["name"], list(entry.get("meters", [])), **fields))
+    return out
+
+
+def set_multiplier(store: Store, meter: str, multiplier: float) -> None:
+    if not multiplier > 0:
+        raise UsageError("the multiplier must be a positive number")
+    with store.session() as s:
+        get_meter(s, meter).multiplier = float(multiplier)
