@@ -283,19 +283,3 @@ def evaluate(capex_value: float, annual_savings: float, *, annual_om_value: floa
         cash_flow=rows,
     )
 
-
-def npv_many(rate: float, capex_values: np.ndarray, escalating_net: np.ndarray,
-             flat_cost: np.ndarray, life_years: int, escalation: float) -> np.ndarray:
-    """NPV of many candidates at once over the same year grid.
-
-    Year-t flow of a candidate is ``escalating_net * (1 + escalation) ** (t - 1) - flat_cost``
-    (``escalating_net`` = savings - loss cost, ``flat_cost`` = O&M), year 0 ``-capex``: the
-    same flows as :func:`cash_flows`, summed in closed form so that the optimiser can rank
-    hundreds of candidates without a loop.
-    """
-    years = np.arange(1, life_years + 1)
-    growth = (1.0 + escalation) ** (years - 1)
-    discount = (1.0 + rate) ** (-years.astype(float))
-    return (-np.asarray(capex_values, dtype=float)
-            + np.asarray(escalating_net, dtype=float) * float(np.sum(growth * discount))
-            - np.asarray(flat_cost, dtype=float) * float(np.sum(discount)))

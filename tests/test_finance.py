@@ -69,17 +69,6 @@ def test_no_payback_when_benefit_not_positive():
     assert res.npv < -1000.0
 
 
-def test_npv_many_equals_per_candidate_npv():
-    capex = np.array([1000.0, 2500.0, 4000.0])
-    net = np.array([300.0, 500.0, 550.0])
-    om = np.array([20.0, 50.0, 80.0])
-    got = finance.npv_many(0.07, capex, net, om, 12, 0.025)
-    want = [npf.npv(0.07, finance.cash_flows(c, n, o, 0.0, 12, 0.025))
-            for c, n, o in zip(capex, net, om, strict=True)]
-    # Source: numpy-financial npv of the explicit flows.
-    assert_allclose(got, want, rtol=1e-12)
-
-
 def test_capex_and_om_rules():
     costs = finance.CostInputs(capex_fixed=100.0, capex_per_kvar=10.0, automatic_premium=50.0,
                                detuning_premium_per_kvar=4.0, om_percent_of_capex=5.0)
