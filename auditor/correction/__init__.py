@@ -14,6 +14,14 @@ from auditor.correction.banks import (
     switch_stages,
     tuning_order,
 )
+from auditor.correction.optimiser import STANDARD_KVAR, candidate_designs, optimise
+from auditor.correction.scenario import (
+    ScenarioResult,
+    SiteScenarioResult,
+    run_scenario,
+    run_site,
+    sum_meters,
+)
 from auditor.correction.screening import (
     CAUTIONS,
     ScreeningResult,
@@ -22,9 +30,18 @@ from auditor.correction.screening import (
     screen,
     voltage_rise_percent,
 )
-from auditor.correction.sizing import SizingResult, kw_multiplier, required_kvar, size_required, tan_phi
+from auditor.correction.sizing import (
+    SizingResult,
+    kw_multiplier,
+    required_kvar,
+    size_required,
+    tan_phi,
+)
+from auditor.finance import CostInputs
 
 __all__ = [
+    "CostInputs", "STANDARD_KVAR", "ScenarioResult", "SiteScenarioResult", "candidate_designs",
+    "optimise", "run_scenario", "run_site", "sum_meters",
     "BankDesign", "CAUTIONS", "DETUNING_PERCENTS", "ScreeningResult", "SiteElectrical",
     "SizingResult", "bank_output_kvar", "corrected_kvarh", "kw_multiplier", "output_factor",
     "parallel_resonance_order", "parse_steps", "required_kvar", "screen", "size_required",

@@ -32,6 +32,7 @@ import numpy as np
 import pandas as pd
 
 from auditor import finance
+from auditor.audit import AuditResult, prepare_audit
 from auditor.correction.banks import BankDesign, bank_output_kvar, corrected_kvarh
 from auditor.correction.screening import CAUTIONS, ScreeningResult, SiteElectrical, screen
 from auditor.correction.sizing import check_frame, check_pf
@@ -45,12 +46,6 @@ SENSITIVITY_STEPS = (-0.20, 0.20)
 # --------------------------------------------------------------------------------------------
 # helpers over the audit results
 # --------------------------------------------------------------------------------------------
-def _audit_api():
-    # imported late so that sizing, banks and screening stay usable on their own
-    from auditor.audit import prepare_audit
-    return prepare_audit
-
-
 def _charges_sum(result) -> dict[str, float]:
     out: dict[str, float] = {}
     for period in result.periods:
@@ -107,7 +102,7 @@ class CorrectedRun:
     output_kvar: np.ndarray
     kvarh_lag: np.ndarray
     kvarh_lead: np.ndarray
-    result: object  # AuditResult
+    result: AuditResult
 
 
 def apply_bank(prepared, bank: BankDesign, target_pf: float, interval_minutes: int, *,
@@ -133,8 +128,8 @@ class ScenarioResult:
     bank: BankDesign
     target_pf: float
     currency: str | None
-    before: object  # AuditResult
-    after: object  # AuditResult
+    before: AuditResult
+    after: AuditResult
     audited_days: float
     annual_savings: float
     savings_by_charge: dict[str, float]
@@ -243,7 +238,6 @@ def _sensitivity(frame, tariff, prepare_kwargs: dict, bank: BankDesign, target_p
                  interval_minutes: int, costs: CostInputs, site: SiteElectrical,
                  leading_pf_limit: float | None, annual_savings: float, mean_rated_kvar: float,
                  price: float, year_factor: float) -> tuple[dict, ...]:
-    prepare_audit = _audit_api()
     rows = []
 
     def row(factor: str, change: float, res: FinanceResult, savings: float) -> dict:
@@ -378,7 +372,6 @@ def run_scenario(frame: pd.DataFrame, tariff, *, tz: str, interval_minutes: int,
         raise UsageError(f"bank must be a BankDesign, got {type(bank).__name__}")
     costs = costs or CostInputs()
     site = site or SiteElectrical()
-    prepare_audit = _audit_api()
     prepare_kwargs = dict(tz=tz, interval_minutes=interval_minutes, periods=periods,
                           billing_day=billing_day, start=start, end=end)
     prepared = prepare_audit(frame, tariff, **prepare_kwargs)

@@ -1,0 +1,76 @@
+"""Optimiser speed: one meter-year (35,136 intervals of 15 min) x about 100 candidate banks.
+
+Target (not a timed test): at most 1 s. Prints the median of several runs and its ratio to the
+target, then the split between the vectorised controller and the tariff re-runs.
+
+    python benchmarks/bench_optimiser.py [--repeat 5]
+"""
+from __future__ import annotations
+
+import argparse
+import statistics
+import time
+
+import numpy as np
+import pandas as pd
+
+from auditor.audit import prepare_audit
+from auditor.correction import SiteElectrical
+from auditor.correction.optimiser import _outputs, candidate_designs, optimise
+from auditor.tariffs import EXAMPLES_DIR, load_tariff
+
+TZ = "Europe/Berlin"
+TARGET_S = 1.0
+
+
+def meter_year(seed: int = 7) -> pd.DataFrame:
+    """An invented plastics workshop: two-shift weekdays at PF ~0.78, light nights and weekends."""
+    idx = pd.date_range(pd.Timestamp("2024-01-01", tz=TZ), pd.Timestamp("2025-01-01", tz=TZ),
+                        freq="15min", inclusive="left")
+    rng = np.random.default_rng(seed)
+    busy = (idx.hour >= 6) & (idx.hour < 22) & (idx.day_of_week < 5)
+    kw = np.where(busy, 420.0, 90.0) * rng.uniform(0.75, 1.25, idx.size)
+    kvar = np.where(busy, 340.0, 55.0) * rng.uniform(0.75, 1.25, idx.size)
+    return pd.DataFrame({"kwh": kw / 4, "kvarh_lag": kvar / 4, "kvarh_lead": 0.0,
+                         "kwh_received": 0.0, "estimated": False},
+                        index=pd.DatetimeIndex(idx.tz_convert("UTC"), name="start"))
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser()
+    parser.add_argument("--repeat", type=int, default=5)
+    args = parser.parse_args()
+    frame = meter_year()
+    tariff = load_tariff(EXAMPLES_DIR / "harrowgate_industrial_tou.toml")
+    site = SiteElectrical(transformer_kva=1000, transformer_impedance_percent=6, nominal_voltage_v=400)
+    sizes = (50, 75, 100, 125, 150, 200, 250, 300, 350, 400, 450, 500)
+    designs = candidate_designs(sizes, step_counts=(4, 6, 8), detuning=(0.0, 7.0),
+                                nominal_voltage_v=400)
+    print(f"intervals: {len(frame)}, candidates: {len(designs)}")
+    times = []
+    for _ in range(args.repeat):
+        t0 = time.perf_counter()
+        res = optimise(frame, tariff, tz=TZ, interval_minutes=15, site=site, designs=designs,
+                       sensitivity=False)
+        times.append(time.perf_counter() - t0)
+    median = statistics.median(times)
+    print(f"optimise (prepare + {len(designs)} candidates, no sensitivity): median {median:.3f} s, "
+          f"ratio to the {TARGET_S:g} s target {median / TARGET_S:.2f}")
+    print(f"chosen: {res.bank.label}, NPV {res.npv:,.0f} {res.currency}")
+    prepared = prepare_audit(frame, tariff, tz=TZ, interval_minutes=15)
+    t0 = time.perf_counter()
+    outputs = _outputs(designs, prepared, 0.95, None, 400)
+    t_ctrl = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    for row in outputs[:10]:
+        prepared.run(kvarh_lag=np.maximum(prepared.kvarh_lag - row / 4, 0), kvarh_lead=prepared.kvarh_lead)
+    t_run = (time.perf_counter() - t0) / 10
+    print(f"controller, all candidates at once: {t_ctrl * 1000:.1f} ms; "
+          f"one tariff re-run: {t_run * 1000:.2f} ms")
+    t0 = time.perf_counter()
+    optimise(frame, tariff, tz=TZ, interval_minutes=15, site=site, designs=designs, sensitivity=True)
+    print(f"with the ±20 % sensitivity table: {time.perf_counter() - t0:.3f} s (one run)")
+
+
+if __name__ == "__main__":
+    main()

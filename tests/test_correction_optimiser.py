@@ -1,0 +1,100 @@
+"""Optimiser: best NPV among candidates passing screening, with the table of all."""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from numpy.testing import assert_allclose
+
+from auditor.audit import prepare_audit
+from auditor.correction import BankDesign, SiteElectrical, bank_output_kvar
+from auditor.correction.optimiser import _outputs, candidate_designs, default_sizes, optimise
+from auditor.correction.scenario import run_scenario
+from auditor.errors import UsageError
+from auditor.tariffs import tariff_from_dict
+
+TZ = "Europe/Berlin"
+SITE = SiteElectrical(transformer_kva=1000, transformer_impedance_percent=6, nominal_voltage_v=400)
+TARIFF = tariff_from_dict({
+    "name": "Workshop supply", "currency": "EUR", "energy": {"price_per_kwh": 0.12},
+    "demand": {"basis": "kva", "price_per_kw": 9.0},
+    "reactive": [
+        {"kind": "kvarh_excess", "tan_phi_limit": 0.4, "price_per_kvarh": 0.03},
+        {"kind": "leading_kvarh", "price_per_kvarh": 0.02, "hours": [22, 6]},
+    ],
+})
+
+
+def site_frame(days=45, seed=5):
+    """Invented workshop: weekday 06-22 production at PF 0.80, light night and weekend load."""
+    idx = pd.date_range(pd.Timestamp("2024-05-01", tz=TZ), periods=days * 96, freq="15min")
+    rng = np.random.default_rng(seed)
+    busy = (idx.hour >= 6) & (idx.hour < 22) & (idx.day_of_week < 5)
+    kw = np.where(busy, 400.0, 80.0) * rng.uniform(0.8, 1.2, idx.size)
+    kvar = np.where(busy, 300.0, 60.0) * rng.uniform(0.8, 1.2, idx.size)
+    return pd.DataFrame({"kwh": kw / 4, "kvarh_lag": kvar / 4, "kvarh_lead": 0.0,
+                         "kwh_received": 0.0, "estimated": False},
+                        index=pd.DatetimeIndex(idx.tz_convert("UTC"), name="start"))
+
+
+def test_candidates_built_from_sizes():
+    designs = candidate_designs((50, 100), step_counts=(4, 6), detuning=(0.0, 7.0), nominal_voltage_v=400)
+    labels = {d.label for d in designs}
+    assert "fixed 50 kvar" in labels and "automatic 4x25 kvar, 7 % detuned" in labels
+    # 50/6 = 8.3 kvar steps are kept (>= 5 kvar); every detuned design has 440 V capacitors
+    assert len(designs) == 2 * 2 * 3
+    assert all(d.capacitor_rated_voltage_v == 440 for d in designs if d.detuned)
+
+
+def test_vectorised_outputs_equal_per_design_controller():
+    frame = site_frame(days=10)
+    prepared = prepare_audit(frame, TARIFF, tz=TZ, interval_minutes=15)
+    designs = candidate_designs((60, 150, 300), nominal_voltage_v=400) + [BankDesign.automatic("25,50,50,100")]
+    out = _outputs(designs, prepared, 0.95, None, 400)
+    net = prepared.kvar_lag - prepared.kvar_lead
+    for i, d in enumerate(designs):
+        assert_allclose(out[i], bank_output_kvar(d, prepared.kw, net, 0.95, system_voltage_v=400),
+                        err_msg=d.label)
+
+
+def test_optimiser_picks_best_passing_npv_and_matches_a_direct_run():
+    frame = site_frame()
+    res = optimise(frame, TARIFF, tz=TZ, interval_minutes=15, site=SITE,
+                   sizes=(100, 150, 200, 250, 300), sensitivity=False)
+    table = res.candidates
+    assert len(table) == 5 * 2 * 4
+    passed = [c for c in table if c["passed_screening"]]
+    assert passed and any(not c["passed_screening"] for c in table)
+    chosen = [c for c in table if c["chosen"]]
+    assert len(chosen) == 1 and chosen[0]["label"] == res.bank.label
+    assert_allclose(res.npv, max(c["npv"] for c in passed))
+    assert table[0]["chosen"] and [c["rank"] for c in table] == list(range(1, len(table) + 1))
+    # the chosen design through the ordinary scenario path gives the same case
+    direct = run_scenario(frame, TARIFF, tz=TZ, interval_minutes=15, bank=res.bank, site=SITE,
+                          sensitivity=False)
+    assert_allclose(direct.npv, res.npv)
+    assert_allclose(direct.annual_savings, res.annual_savings)
+    d = res.to_dict()
+    assert "candidates" in d and len(d["candidates"]) == len(table)
+    assert d["cautions"]
+
+
+def test_no_candidate_passing_is_said_not_hidden():
+    tiny = SiteElectrical(short_circuit_kva=2000, nominal_voltage_v=400)  # every bank rises > 3 %
+    res = optimise(site_frame(days=20), TARIFF, tz=TZ, interval_minutes=15, site=tiny,
+                   sizes=(100, 200, 300), detuning=(0.0,), sensitivity=False)
+    assert not any(c["passed_screening"] for c in res.candidates)
+    assert any("no candidate passed screening" in w for w in res.warnings)
+
+
+def test_default_sizes_follow_the_need():
+    frame = site_frame(days=10)
+    prepared = prepare_audit(frame, TARIFF, tz=TZ, interval_minutes=15)
+    sizes = default_sizes(prepared, 0.95)
+    need = prepared.kvar_lag - prepared.kw * np.tan(np.arccos(0.95))
+    assert max(sizes) <= 1.25 * need.max() and max(sizes) >= need.max()
+
+
+def test_bad_sizes():
+    with pytest.raises(UsageError, match="sizes"):
+        optimise(site_frame(days=5), TARIFF, tz=TZ, interval_minutes=15, sizes=(100, -5))
