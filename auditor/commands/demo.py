@@ -1,0 +1,81 @@
+"""``auditor demo``: the whole job on invented data, end to end."""
+from __future__ import annotations
+
+import click
+
+from auditor.cli import Context, pass_ctx
+from auditor.render import echo_json, fmt, table
+
+
+@click.command("demo")
+@click.option("--no-serve", is_flag=True, help="Do not start the dashboard at the end.")
+@click.option("--port", default=8050, show_default=True, help="Dashboard port (loopback).")
+@click.option("--json", "json_out", is_flag=True, help="Machine-readable summary (implies --no-serve).")
+@pass_ctx
+def demo_cmd(ctx: Context, no_serve: bool, port: int, json_out: bool):
+    """Build the demo database (if absent), import the demo data and print the case."""
+    from auditor.services import demo
+    from auditor.services.audit import audit_meter
+    from auditor.store import open_store
+    from auditor.store.engine import safe_url
+
+    if ctx.db_url is None:
+        ctx.db_url = demo.demo_db_url()
+    store = open_store(ctx.db_url)
+    ctx._store = store
+    summary = demo.load_demo(store)
+    audits = {m["meter"]: audit_meter(store, m["meter"], demo.DEMO_TARIFF).to_dict() for m in summary["meters"]}
+    summary["audits"] = audits
+    extra = demo_extensions(store)
+    summary.update(extra)
+    summary["database"] = safe_url(store.url)
+    if json_out:
+        echo_json(summary)
+        return 0
+    click.echo(f"Demo database: {summary['database']}")
+    for f in summary["files"]:
+        click.echo(f"  {f['status']:<9} {f['path'].split('/')[-1]}  {f['message']}")
+    click.echo("")
+    click.echo(table(["meter", "site", "first", "last", "intervals", "coverage %"],
+                     [[m["meter"], m["site"], m["first"], m["last"], m["intervals"], 100 * (m["coverage"] or 0)]
+                      for m in summary["meters"]]))
+    click.echo(f"\nAudit under the tariff {demo.DEMO_TARIFF!r} (an invented utility):")
+    rows = []
+    for meter, a in audits.items():
+        t = a["totals"]
+        rows.append([meter, t.get("kwh"), t.get("pf"), t.get("total"), t.get("reactive_total")])
+    click.echo(table(["meter", "kWh", "energy PF", f"total {a['currency']}", f"reactive {a['currency']}"], rows))
+    for section in extra.get("_render", []):
+        click.echo("")
+        click.echo(section)
+    if not no_serve:
+        from auditor.commands.serve import serve_dashboard
+
+        serve_dashboard(store, host="127.0.0.1", port=port)
+    return 0
+
+
+def demo_extensions(store) -> dict:
+    """Later stages of the demo (savings case, bill check), when those areas are installed."""
+    out: dict = {"_render": []}
+    try:
+        from auditor.services.demo_case import savings_case
+    except ModuleNotFoundError:
+        savings_case = None
+    if savings_case is not None:
+        case = savings_case(store)
+        out["savings_case"] = case["data"]
+        out["_render"].append(case["text"])
+    try:
+        from auditor.services.demo_case import bill_check
+    except ImportError:
+        bill_check = None
+    if bill_check is not None:
+        check = bill_check(store)
+        out["bill_check"] = check["data"]
+        out["_render"].append(check["text"])
+    return out
+
+
+commands = [demo_cmd]
+_ = fmt
