@@ -95,7 +95,7 @@ def local_calendar(index_utc: pd.DatetimeIndex, tz: str, calendar: Calendar | No
             local_days = local.tz_localize(None).to_numpy().astype("datetime64[D]")
             holiday = np.isin(local_days, hol)
     return LocalCalendar(
-        weekday=local.dayofweek.to_numpy(dtype=np.int8),
+        weekday=local.day_of_week.to_numpy(dtype=np.int8),
         hour=local.hour.to_numpy(dtype=np.int8),
         month=local.month.to_numpy(dtype=np.int8),
         holiday=holiday,
