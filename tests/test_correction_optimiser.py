@@ -1,6 +1,8 @@
 """Optimiser: best NPV among candidates passing screening, with the table of all."""
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -11,6 +13,7 @@ from auditor.correction import BankDesign, SiteElectrical, bank_output_kvar
 from auditor.correction.optimiser import _outputs, candidate_designs, default_sizes, optimise
 from auditor.correction.scenario import run_scenario
 from auditor.errors import UsageError
+from auditor.render import to_json
 from auditor.tariffs import tariff_from_dict
 
 TZ = "Europe/Berlin"
@@ -38,12 +41,17 @@ def site_frame(days=45, seed=5):
 
 
 def test_candidates_built_from_sizes():
-    designs = candidate_designs((50, 100), step_counts=(4, 6), detuning=(0.0, 7.0), nominal_voltage_v=400)
+    designs = candidate_designs((30, 100), step_patterns=((1, 1, 1, 1), (1, 1, 2, 2)),
+                                detuning=(0.0, 7.0), nominal_voltage_v=400)
     labels = {d.label for d in designs}
-    assert "fixed 50 kvar" in labels and "automatic 4x25 kvar, 7 % detuned" in labels
-    # 50/6 = 8.3 kvar steps are kept (>= 5 kvar); every detuned design has 440 V capacitors
+    assert "fixed 30 kvar" in labels and "automatic 4x25 kvar, 7 % detuned" in labels
+    # 1:1:2:2 of 100 kvar: 16.7, 16.7, 33.3, 33.3; of 30 kvar the 5 kvar unit is kept (>= 5)
+    mixed = [d for d in designs if d.kind == "automatic" and len(set(d.steps_kvar)) == 2]
+    assert_allclose(mixed[-1].steps_kvar, [100 / 6, 100 / 6, 100 / 3, 100 / 3])
     assert len(designs) == 2 * 2 * 3
     assert all(d.capacitor_rated_voltage_v == 440 for d in designs if d.detuned)
+    with pytest.raises(UsageError, match="pattern"):
+        candidate_designs((100,), step_patterns=((1, 0),))
 
 
 def test_vectorised_outputs_equal_per_design_controller():
@@ -77,6 +85,7 @@ def test_optimiser_picks_best_passing_npv_and_matches_a_direct_run():
     d = res.to_dict()
     assert "candidates" in d and len(d["candidates"]) == len(table)
     assert d["cautions"]
+    json.loads(to_json(d))
 
 
 def test_no_candidate_passing_is_said_not_hidden():

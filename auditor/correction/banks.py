@@ -189,9 +189,9 @@ class BankDesign:
         else:
             sizes = set(self.steps_kvar)
             if len(sizes) == 1:
-                body = f"automatic {len(self.steps_kvar)}x{self.steps_kvar[0]:g} kvar"
+                body = f"automatic {len(self.steps_kvar)}x{self.steps_kvar[0]:.4g} kvar"
             else:
-                body = "automatic " + ",".join(f"{s:g}" for s in self.steps_kvar) + " kvar"
+                body = "automatic " + ",".join(f"{s:.4g}" for s in self.steps_kvar) + " kvar"
         return body + (f", {self.detuning_percent:g} % detuned" if self.detuned else "")
 
     def output_factor(self, system_voltage_v: float | None = None) -> float:

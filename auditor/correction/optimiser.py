@@ -1,6 +1,6 @@
 """Search bank designs for the best NPV that passes screening.
 
-Candidates are built from standard bank sizes (fixed, automatic in equal steps, plain or
+Candidates are built from standard bank sizes (fixed, automatic in step patterns, plain or
 detuned). The controller runs for all equal-step candidates at once (candidates × intervals,
 closed form); the tariff is re-run per candidate through the prepared audit, which only
 replaces the reactive energies.
@@ -39,8 +39,10 @@ from auditor.finance import CostInputs
 #: Bank totals commonly offered for LV sites, kvar — common practice (illustrative list).
 STANDARD_KVAR = (10, 15, 20, 25, 30, 40, 50, 60, 75, 100, 125, 150, 175, 200, 250, 300, 350, 400,
                  450, 500, 600, 700, 800, 900, 1000, 1200, 1500, 2000)
-#: Equal-step counts tried for automatic banks.
-STEP_COUNTS = (4, 6, 8)
+#: Step patterns tried for automatic banks, in units of total / sum(pattern): four and six
+#: equal steps, and the 1:1:2:2 sequence (six-step resolution from four contactors) — common
+#: practice.
+STEP_PATTERNS: tuple[tuple[int, ...], ...] = ((1, 1, 1, 1), (1, 1, 1, 1, 1, 1), (1, 1, 2, 2))
 #: Smallest step worth switching, kvar — common practice.
 MIN_STEP_KVAR = 5.0
 #: Capacitor rated voltage per system voltage for detuned banks (e.g. 440 V capacitors on a
@@ -48,10 +50,15 @@ MIN_STEP_KVAR = 5.0
 DETUNED_CAPACITOR_VOLTAGE_RATIO = {5.67: 1.10, 7.0: 1.10, 14.0: 1.20}
 
 
-def candidate_designs(sizes: Sequence[float], *, step_counts: Sequence[int] = STEP_COUNTS,
+def candidate_designs(sizes: Sequence[float], *,
+                      step_patterns: Sequence[Sequence[int]] = STEP_PATTERNS,
                       detuning: Sequence[float] = (0.0, 7.0), include_fixed: bool = True,
                       nominal_voltage_v: float | None = None) -> list[BankDesign]:
-    """Fixed and equal-step automatic banks of every size, plain and detuned."""
+    """Fixed and automatic banks of every size and step pattern, plain and detuned.
+
+    A pattern (1, 1, 2, 2) of a 300 kvar bank gives steps 50, 50, 100, 100; patterns whose
+    smallest step falls below :data:`MIN_STEP_KVAR` are skipped.
+    """
     designs: list[BankDesign] = []
     for total in sizes:
         for p in detuning:
@@ -61,10 +68,12 @@ def candidate_designs(sizes: Sequence[float], *, step_counts: Sequence[int] = ST
                 cap_v = round(nominal_voltage_v * ratio)
             if include_fixed:
                 designs.append(BankDesign.fixed(float(total), p, cap_v))
-            for n in step_counts:
-                step = float(total) / n
-                if step >= MIN_STEP_KVAR:
-                    designs.append(BankDesign("automatic", (step,) * n, p, cap_v))
+            for pattern in step_patterns:
+                if not pattern or any(int(k) < 1 for k in pattern):
+                    raise UsageError(f"step pattern {tuple(pattern)!r}: use whole numbers >= 1")
+                unit = float(total) / sum(int(k) for k in pattern)
+                if unit * min(pattern) >= MIN_STEP_KVAR:
+                    designs.append(BankDesign("automatic", tuple(unit * int(k) for k in pattern), p, cap_v))
     return designs
 
 
@@ -104,7 +113,8 @@ def _outputs(designs: Sequence[BankDesign], prepared, target_pf: float,
 def optimise(frame: pd.DataFrame, tariff, *, tz: str, interval_minutes: int,
              target_pf: float = 0.95, costs: CostInputs | None = None,
              site: SiteElectrical | None = None, sizes: Sequence[float] | None = None,
-             designs: Sequence[BankDesign] | None = None, step_counts: Sequence[int] = STEP_COUNTS,
+             designs: Sequence[BankDesign] | None = None,
+             step_patterns: Sequence[Sequence[int]] = STEP_PATTERNS,
              detuning: Sequence[float] = (0.0, 7.0), include_fixed: bool = True,
              leading_pf_limit: float | None = None, periods=None, start=None, end=None,
              billing_day: int | None = None, sensitivity: bool = True) -> ScenarioResult:
@@ -115,7 +125,11 @@ def optimise(frame: pd.DataFrame, tariff, *, tz: str, interval_minutes: int,
     sizes : sequence of float, optional
         Bank totals to try (default: standard sizes up to 1.25 × the largest interval need).
     designs : sequence of BankDesign, optional
-        Explicit candidates (override ``sizes``/``step_counts``/``detuning``).
+        Explicit candidates (override ``sizes``/``step_patterns``/``detuning``).
+    step_patterns : sequence of tuple of int
+        Automatic-bank step patterns (default :data:`STEP_PATTERNS`).
+    detuning : sequence of float
+        Reactor percentages to try, 0 meaning a plain bank (default plain and 7 %).
     Other parameters as :func:`auditor.correction.run_scenario`.
 
     Returns
@@ -136,7 +150,7 @@ def optimise(frame: pd.DataFrame, tariff, *, tz: str, interval_minutes: int,
         chosen_sizes = tuple(sizes) if sizes is not None else default_sizes(prepared, target_pf)
         if not chosen_sizes or any(not s > 0 for s in chosen_sizes):
             raise UsageError(f"bank sizes must be positive kvar values, got {sizes!r}")
-        designs = candidate_designs(chosen_sizes, step_counts=step_counts, detuning=detuning,
+        designs = candidate_designs(chosen_sizes, step_patterns=step_patterns, detuning=detuning,
                                     include_fixed=include_fixed,
                                     nominal_voltage_v=site.nominal_voltage_v)
     designs = list(designs)

@@ -293,7 +293,7 @@ def evaluate_prepared(prepared, before, tariff, *, interval_minutes: int, bank: 
                        output_kvar=run.output_kvar, interval_minutes=interval_minutes,
                        leading_charge_increase=lead_increase)
     to_energy = interval_minutes / 60.0
-    kwh = float(np.sum(prepared.kw) * to_energy)
+    kwh = float(np.sum(prepared.kwh))
     net_before = float(np.sum(kvar_net) * to_energy)
     net_after = float(np.sum(run.kvarh_lag - run.kvarh_lead))
     pf1, pf2 = _energy_pf(kwh, net_before), _energy_pf(kwh, net_after)
