@@ -44,6 +44,7 @@ work on the value block, with no Python loop over days or intervals.
 """
 from __future__ import annotations
 
+import warnings
 from collections.abc import Iterator
 from pathlib import Path
 
@@ -132,18 +133,32 @@ def _chunked(frame: pd.DataFrame, rows: int) -> Iterator[pd.DataFrame]:
         yield frame.iloc[at:at + rows].reset_index(drop=True)
 
 
+_EXTRA = "(beyond the header)"
+
+
 def _parse(path: Path, cols: list[str], value_cols: list[str], value_dtype: str, file: str) -> pd.DataFrame:
     dtypes = {c: "string" for c in cols if c not in value_cols}
     dtypes.update({c: value_dtype for c in value_cols})
+    dtypes[_EXTRA] = "string"
     try:
-        return pd.read_csv(path, header=0, names=cols, dtype=dtypes, skip_blank_lines=False,
-                           encoding="utf-8-sig", engine="c", keep_default_na=False, na_values=[""],
-                           skipinitialspace=True)
+        with warnings.catch_warnings():
+            # A spare column catches a field past the header (an empty one, from a trailing
+            # comma, is harmless); pandas' warning about still longer rows is covered by it.
+            warnings.simplefilter("ignore", pd.errors.ParserWarning)
+            table = pd.read_csv(path, header=None, skiprows=1, names=[*cols, _EXTRA], dtype=dtypes, skip_blank_lines=False,
+                                encoding="utf-8-sig", engine="c", keep_default_na=False, na_values=[""],
+                                skipinitialspace=True, index_col=False)
     except pd.errors.ParserError as exc:
         raise InputError(file, Problem("malformed CSV: " + str(exc).strip().splitlines()[-1])) from None
     except UnicodeDecodeError as exc:
         raise InputError(file, Problem(f"not UTF-8 text (byte {exc.start}: {exc.reason}); "
                                        "save the file as UTF-8")) from None
+    extra = table[_EXTRA].str.strip()
+    over = np.flatnonzero((extra.notna() & (extra != "")).to_numpy(dtype=bool, na_value=False))
+    if len(over):
+        raise InputError(file, [Problem(f"more fields than the {len(cols)} columns of the header", int(i) + 2)
+                                for i in over[:MAX_PROBLEMS]])
+    return table.drop(columns=_EXTRA)
 
 
 def _value_block(path: Path, cols: list[str], value_cols: list[str], file: str) -> tuple[pd.DataFrame, np.ndarray]:
@@ -333,7 +348,7 @@ def _check_counts(block: np.ndarray, expected: np.ndarray, lines: np.ndarray, da
     filled = ~np.isnan(block)
     count = filled.sum(axis=1)
     should = np.arange(block.shape[1])[None, :] < expected[:, None]
-    wrong = np.flatnonzero((filled != should).any(axis=1))
+    wrong = np.flatnonzero((filled != should).any(axis=1) | (expected > block.shape[1]))
     problems = []
     for i in wrong[:MAX_PROBLEMS]:
         if expected[i] > block.shape[1]:
