@@ -143,3 +143,20 @@ class QualityFlag(Base):
     end: Mapped[int] = mapped_column(BigInteger)
     intervals: Mapped[int] = mapped_column(Integer, default=0)
     detail: Mapped[str | None] = mapped_column(Text)
+
+
+class Scenario(Base):
+    """A saved correction scenario: its inputs and the result it gave, for the dashboard and reports."""
+
+    __tablename__ = "scenario"
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    name: Mapped[str] = mapped_column(String(200), unique=True)
+    meter_id: Mapped[int] = mapped_column(ForeignKey("meter.id"))
+    tariff_name: Mapped[str] = mapped_column(String(200))
+    tariff_source: Mapped[str] = mapped_column(Text)  # the tariff's TOML text as used
+    params: Mapped[str] = mapped_column(Text)  # JSON of the inputs
+    result: Mapped[str] = mapped_column(Text)  # JSON of the size result
+    annual_savings: Mapped[float | None] = mapped_column(Float)
+    npv: Mapped[float | None] = mapped_column(Float)
+    simple_payback_years: Mapped[float | None] = mapped_column(Float)
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
