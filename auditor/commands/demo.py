@@ -67,7 +67,7 @@ def demo_extensions(store) -> dict:
         out["savings_case"] = case["data"]
         out["_render"].append(case["text"])
     try:
-        from auditor.services.demo_case import bill_check
+        from auditor.services.bills import demo_bill_check as bill_check
     except ImportError:
         bill_check = None
     if bill_check is not None:
