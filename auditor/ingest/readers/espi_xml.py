@@ -199,7 +199,7 @@ def _int_field(entry: _Entry, name: str, file: str, default: int | None = None) 
 @dataclass
 class _Channel:
     quantity: str
-    factor: float
+    power: int  # value × 10^power is kWh / kvarh
     interval_s: int | None
     unit: str
     line: int
@@ -228,7 +228,7 @@ def _channel(rt: _Entry, file: str, warnings: list[Problem]) -> _Channel | None:
     if not -12 <= power <= 12:
         raise InputError(file, Problem(f"powerOfTenMultiplier {power} is out of range",
                                        rt.line, "ReadingType/powerOfTenMultiplier"))
-    return _Channel(table[flow], 10.0 ** power / 1000.0, length, "Wh" if uom == UOM_WH else "VArh", rt.line)
+    return _Channel(table[flow], power - 3, length, "Wh" if uom == UOM_WH else "VArh", rt.line)
 
 
 def _meter_of(block: _Entry, usage_points: list[_Entry], fallback: str) -> str:
@@ -285,6 +285,11 @@ def _numbers(raw: list[str], lines: np.ndarray, column: str, file: str, integer:
     return out
 
 
+def _scale(values: np.ndarray, power: int) -> np.ndarray:
+    # one correctly rounded operation: 82 × 10^1 VArh is 0.82 kvarh, not 0.8200000000000001
+    return values * 10.0 ** power if power >= 0 else values / 10.0 ** -power
+
+
 def _frame(entries: list[_Entry], info: ReadInfo, file: str, stem: str) -> pd.DataFrame:
     usage_points = [e for e in entries if e.kind == "UsagePoint"]
     meter_readings = [e for e in entries if e.kind == "MeterReading"]
@@ -316,7 +321,7 @@ def _frame(entries: list[_Entry], info: ReadInfo, file: str, stem: str) -> pd.Da
         parts.append(pd.DataFrame({
             "meter": _meter_of(block, usage_points, stem), "quantity": ch.quantity,
             "start": start.astype("int64"), "duration": duration.astype("int64"),
-            "value": value * ch.factor, "estimated": np.isin(np.asarray(block.quality, dtype=object),
+            "value": _scale(value, ch.power), "estimated": np.isin(np.asarray(block.quality, dtype=object),
                                                              list(ESTIMATED_QUALITY)),
             "line": lines, "declared": ch.interval_s if ch.interval_s is not None else -1,
         }))
