@@ -54,7 +54,8 @@ from __future__ import annotations
 import codecs
 import tomllib
 from dataclasses import dataclass
-from datetime import datetime, timedelta, timezone as dt_timezone
+from datetime import datetime, timedelta
+from datetime import timezone as dt_timezone
 from pathlib import Path
 
 from auditor.errors import ProfileError

@@ -23,7 +23,14 @@ import numpy as np
 import pandas as pd
 
 from auditor.errors import InputError, Problem, UsageError
-from auditor.ingest.frame import MAX_PROBLEMS, ReadInfo, ReadOptions, ReadOutput, canonical, numeric_column
+from auditor.ingest.frame import (
+    MAX_PROBLEMS,
+    ReadInfo,
+    ReadOptions,
+    ReadOutput,
+    canonical,
+    numeric_column,
+)
 from auditor.ingest.profile import NET_SPLITS, OFFSET, Profile
 from auditor.ingest.timestamps import _bad_cells, localise, parse_iso
 
@@ -80,6 +87,30 @@ def _resolve(header: list[str] | None, ref, key: str, profile: Profile, file: st
 
 
 def read(path: Path, options: ReadOptions) -> ReadOutput:
+    """Read a CSV through ``options.profile`` into canonical frames.
+
+    Parameters
+    ----------
+    path
+        The CSV, in the profile's encoding.
+    options
+        ``profile`` (required) a loaded :class:`Profile`; ``timezone``, when given, overrides
+        the profile's IANA zone for wall-time stamps.
+
+    Returns
+    -------
+    ReadOutput
+        ``info.interval_minutes`` from the profile, ``info.label`` always ``"start"`` (ending
+        labels are shifted here), ``info.source_units`` as the profile states them.
+
+    Raises
+    ------
+    InputError
+        A header without a mapped column (naming the profile key), or a cell that cannot be
+        read (naming line and column).
+    UsageError
+        Called without a profile.
+    """
     profile = options.profile
     if not isinstance(profile, Profile):
         raise UsageError("the profile reader needs a mapping profile (--profile)")

@@ -52,7 +52,14 @@ import numpy as np
 import pandas as pd
 
 from auditor.errors import InputError, Problem
-from auditor.ingest.frame import ALLOWED_INTERVALS, MAX_PROBLEMS, ReadInfo, ReadOptions, ReadOutput, canonical
+from auditor.ingest.frame import (
+    ALLOWED_INTERVALS,
+    MAX_PROBLEMS,
+    ReadInfo,
+    ReadOptions,
+    ReadOutput,
+    canonical,
+)
 from auditor.ingest.timestamps import _zone
 
 FORMAT = "wide_csv"
@@ -112,6 +119,26 @@ def check_header(cols: list[str], file: str) -> tuple[bool, int]:
 
 
 def read(path: Path, options: ReadOptions) -> ReadOutput:
+    """Read a day-per-row file into canonical frames.
+
+    Parameters
+    ----------
+    path
+        The CSV (UTF-8).
+    options
+        ``timezone`` is required: it places each local day in time.
+
+    Returns
+    -------
+    ReadOutput
+        ``info.interval_minutes`` from the header; chunks of at most ``options.chunk_rows`` rows,
+        sorted by meter and interval start.
+
+    Raises
+    ------
+    InputError
+        Naming line and column of every cell, row or header that cannot be read.
+    """
     file = str(path)
     try:
         with open(path, encoding="utf-8-sig", errors="strict") as fh:
@@ -182,7 +209,7 @@ def _value_block(path: Path, cols: list[str], value_cols: list[str], file: str) 
     bad_rows, bad_cols = np.nonzero(np.isinf(block))
     if len(bad_rows):
         problems = []
-        for r, c in list(zip(bad_rows, bad_cols))[:MAX_PROBLEMS]:
+        for r, c in list(zip(bad_rows, bad_cols, strict=True))[:MAX_PROBLEMS]:
             shown = text[r, c] if text is not None else table[value_cols[c]].iloc[r]
             problems.append(Problem(f"not a number: {str(shown).strip()[:40]!r}", int(r) + 2, value_cols[c]))
         raise InputError(file, problems)
@@ -246,7 +273,7 @@ def _read_all(path: Path, cols: list[str], has_unit: bool, minutes: int, options
             anchor = np.where(where >= 0, where, first_row[missing])
             raise InputError(file, [Problem(
                 f"meter {meter[first_row[d]]!r} has no {q} row for {day_iso[first_row[d]]} while other days "
-                "have one", int(lines[a]), "quantity") for d, a in zip(missing[:MAX_PROBLEMS], anchor[:MAX_PROBLEMS])])
+                "have one", int(lines[a]), "quantity") for d, a in zip(missing[:MAX_PROBLEMS], anchor[:MAX_PROBLEMS], strict=True)])
     for q in ("kvarh_lag", "kvarh_lead"):
         if q not in row_of:
             info.warnings.append(Problem(f"the file has no {q} rows; {q} is taken as 0"))
@@ -373,8 +400,8 @@ def _check_duplicates(day_codes: np.ndarray, rows: np.ndarray, lines: np.ndarray
     dup = pd.Series(day_codes).duplicated().to_numpy()
     if not dup.any():
         return
-    first_of = dict(zip(day_codes[::-1], rows[::-1]))  # reversed so the earliest row wins
+    first_of = dict(zip(day_codes[::-1], rows[::-1], strict=True))  # reversed so the earliest row wins
     problems = [Problem(f"second {q} row for meter {meter[r]!r} on {day_iso[r]} (first on line "
                         f"{lines[first_of[c]]})", int(lines[r]), "quantity")
-                for c, r in zip(day_codes[dup][:MAX_PROBLEMS], rows[dup][:MAX_PROBLEMS])]
+                for c, r in zip(day_codes[dup][:MAX_PROBLEMS], rows[dup][:MAX_PROBLEMS], strict=True)]
     raise InputError(file, problems)
