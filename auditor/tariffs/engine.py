@@ -15,6 +15,9 @@ Which kvarh each mechanism counts:
 - ``kvar_demand``: the peak of lagging kvar.
 - ``leading_kvarh``: leading kvarh inside its hours only.
 
+The mechanisms themselves are generic tariff clauses (common practice; each utility sets its own
+figures); the only published formulas they rest on are the definitions of PF and tan phi.
+
 References
 ----------
 .. [1] IEEE Std 1459-2010, section 3.1.1 (PF = P / S; tan phi = Q / P).
