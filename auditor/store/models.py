@@ -160,3 +160,51 @@ class Scenario(Base):
     npv: Mapped[float | None] = mapped_column(Float)
     simple_payback_years: Mapped[float | None] = mapped_column(Float)
     created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
+
+
+# --------------------------------------------------------------------------------------------
+# Utility bills (reconciled against the interval data by auditor.bills)
+# --------------------------------------------------------------------------------------------
+from datetime import date  # noqa: E402  (kept beside the bill models that use them)
+
+from sqlalchemy import Date  # noqa: E402
+
+
+class BillFile(Base):
+    """A bill file as imported: its name, digest and text, so every stored bill can be traced
+    to the file (and line) it came from, and a second import of the same file changes nothing."""
+
+    __tablename__ = "bill_file"
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    file_name: Mapped[str] = mapped_column(String(500))
+    sha256: Mapped[str] = mapped_column(String(64), index=True)
+    format: Mapped[str] = mapped_column(String(200))  # bills_csv or bills_profile:<name>
+    content: Mapped[str] = mapped_column(Text)  # the file's text as read
+    bills_inserted: Mapped[int] = mapped_column(Integer, default=0)
+    bills_updated: Mapped[int] = mapped_column(Integer, default=0)
+    bills_unchanged: Mapped[int] = mapped_column(Integer, default=0)
+    imported_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
+
+
+class Bill(Base):
+    """One utility bill of one meter: its period (local dates, end exclusive) and the figures it
+    shows (None where the bill does not show one). A later file with the same meter and period
+    updates the row; ``source_file_id`` is None for a bill typed in by hand."""
+
+    __tablename__ = "bill"
+    __table_args__ = (UniqueConstraint("meter_id", "period_start", "period_end"),)
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    meter_id: Mapped[int] = mapped_column(ForeignKey("meter.id"))
+    period_start: Mapped[date] = mapped_column(Date)
+    period_end: Mapped[date] = mapped_column(Date)
+    kwh: Mapped[float | None] = mapped_column(Float)
+    kvarh: Mapped[float | None] = mapped_column(Float)
+    peak_kw: Mapped[float | None] = mapped_column(Float)
+    peak_kva: Mapped[float | None] = mapped_column(Float)
+    pf: Mapped[float | None] = mapped_column(Float)
+    reactive_charge: Mapped[float | None] = mapped_column(Float)
+    total: Mapped[float | None] = mapped_column(Float)
+    source_file_id: Mapped[int | None] = mapped_column(ForeignKey("bill_file.id"))
+    source_line: Mapped[int | None] = mapped_column(Integer)
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
+    updated_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
