@@ -263,3 +263,16 @@ def test_multiple_meters_and_site_creation(tmp_path):
     meters = list_meters(store)
     assert [m["site"] for m in meters] == ["Plant 7", "Plant 7"]
     assert meters[0]["timezone"] == "Europe/Paris" and meters[0]["coverage"] == 1.0
+
+
+def test_rows_with_too_many_or_too_few_fields(store, tmp_path):
+    first = write_csv(tmp_path / "a.csv", ["M1,2025-01-06T00:00:00+00:00,1,1,0,5"])
+    out = import_file(store, first)
+    assert out.status == "rejected" and out.errors[0].line == 2 and "6 fields" in out.errors[0].message
+    later = write_csv(tmp_path / "b.csv", ["M1,2025-01-06T00:00:00+00:00,1,1,0", "M1,2025-01-06T00:15:00+00:00,1,1,0,9"])
+    out = import_file(store, later)
+    assert out.status == "rejected" and "line 3" in out.errors[0].message
+    short = write_csv(tmp_path / "c.csv", ["M1,2025-01-06T00:00:00+00:00,1,1"])
+    out = import_file(store, short)
+    assert out.status == "rejected" and out.errors[0].column == "kvarh_lead" and out.errors[0].line == 2
+    assert reading_count(store) == 0

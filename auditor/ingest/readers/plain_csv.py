@@ -73,8 +73,11 @@ def _chunks(path: Path, cols: list[str], time_col: str, options: ReadOptions, fi
     dtypes = {"meter": "string", time_col: "string"}
     if "flag" in cols:
         dtypes["flag"] = "string"
+    _check_first_row(path, cols, file)
+    # index_col=False: a longer row later in the file is a parser error naming its line (pandas
+    # would otherwise take surplus leading fields as an index).
     reader = pd.read_csv(
-        path, header=0, names=cols, dtype=dtypes, chunksize=options.chunk_rows,
+        path, header=0, names=cols, dtype=dtypes, chunksize=options.chunk_rows, index_col=False,
         skip_blank_lines=False, encoding="utf-8-sig", engine="c", on_bad_lines="error",
         na_filter=True, keep_default_na=False, na_values=[""],
     )
@@ -94,6 +97,21 @@ def _chunks(path: Path, cols: list[str], time_col: str, options: ReadOptions, fi
         raise InputError(file, Problem(_parser_message(exc))) from None
     except UnicodeDecodeError as exc:
         raise InputError(file, Problem(f"not UTF-8 text (byte {exc.start}: {exc.reason}); save the file as UTF-8")) from None
+
+
+def _check_first_row(path: Path, cols: list[str], file: str) -> None:
+    """pandas silently drops surplus fields of the first data row with index_col=False: check it."""
+    import csv
+
+    with open(path, encoding="utf-8-sig", errors="replace", newline="") as fh:
+        rows = csv.reader(fh)
+        next(rows, None)
+        for n, row in enumerate(rows, start=2):
+            if not row:
+                continue
+            if len(row) > len(cols):
+                raise InputError(file, Problem(f"{len(row)} fields where the header has {len(cols)}", n))
+            return
 
 
 def _parser_message(exc: Exception) -> str:

@@ -1,0 +1,1 @@
+"""Ingest: readers → canonical frame → validation → one transaction (see pipeline.py)."""
