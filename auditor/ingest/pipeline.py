@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 from sqlalchemy import delete, select
-from sqlalchemy.exc import OperationalError, SQLAlchemyError
+from sqlalchemy.exc import IntegrityError, SQLAlchemyError
 
 from auditor.errors import AuditorError, InputError, Problem, StoreError
 from auditor.ingest import readers
@@ -29,6 +29,7 @@ from auditor.store.queries import now_utc
 from auditor.store.write import WriteCounts, write_meter
 
 DEFAULT_SITE = "default"
+STORE_ATTEMPTS = 3
 
 
 @dataclass(frozen=True)
@@ -145,7 +146,16 @@ def import_file(store: Store, path: str | Path, options: ImportOptions = ImportO
             outcome.message = "dry run: the file is valid; nothing was written"
             outcome.inserted = sum(len(m.start) for m in checked.meters)
             return outcome
-        _store(store, path, digest, reader.FORMAT, info, checked, options, outcome, started)
+        for attempt in range(STORE_ATTEMPTS):
+            try:
+                _store(store, path, digest, reader.FORMAT, info, checked, options, outcome, started)
+                break
+            except IntegrityError:
+                # another import committed the same new site, meter or intervals while this one
+                # ran (PostgreSQL lets imports run side by side); its transaction rolled back
+                # whole, and the next attempt sees what the other one stored
+                if attempt == STORE_ATTEMPTS - 1:
+                    raise
         return outcome
     except AuditorError as exc:
         outcome.status = "rejected"
@@ -155,7 +165,7 @@ def import_file(store: Store, path: str | Path, options: ImportOptions = ImportO
         outcome.status = "rejected"
         outcome.errors = [Problem("the file is too large to import in one piece; split it by meter")]
         outcome.message = f"{path}: " + outcome.errors[0].message
-    except OperationalError as exc:
+    except SQLAlchemyError as exc:
         outcome.status = "rejected"
         outcome.errors = [Problem(f"database error: {_db_message(exc)}")]
         outcome.message = f"{path}: {outcome.errors[0].message}"
@@ -167,7 +177,7 @@ def import_file(store: Store, path: str | Path, options: ImportOptions = ImportO
     return outcome
 
 
-def _db_message(exc: OperationalError) -> str:
+def _db_message(exc: SQLAlchemyError) -> str:
     text = str(exc.orig) if getattr(exc, "orig", None) is not None else str(exc)
     low = text.lower()
     if "readonly" in low or "read-only" in low:

@@ -65,7 +65,12 @@ def make_engine(url: str) -> Engine:
 
             @event.listens_for(engine, "begin")
             def _begin(conn):
-                conn.exec_driver_sql("BEGIN")
+                # BEGIN IMMEDIATE (asked for with execution_options(sqlite_begin="IMMEDIATE")) takes
+                # the write lock at once, waiting through the busy timeout: a deferred transaction
+                # that reads first and writes later fails at once (no waiting) when another writer
+                # committed in between, which is what two processes migrating one file would do.
+                mode = conn.get_execution_options().get("sqlite_begin", "")
+                conn.exec_driver_sql(f"BEGIN {mode}".strip())
 
         else:
             engine = create_engine(url, pool_pre_ping=True)
@@ -106,11 +111,18 @@ class Store:
     def is_sqlite(self) -> bool:
         return self.engine.dialect.name == "sqlite"
 
+    def _migration_connection(self):
+        conn = self.engine.connect()
+        if self.is_sqlite:
+            conn.execution_options(sqlite_begin="IMMEDIATE")
+        return conn
+
     def upgrade(self, revision: str = "head") -> None:
         from alembic import command
 
         cfg = alembic_config(self.url)
-        with self.engine.begin() as conn:
+        # concurrent first uses: the second waits for the lock, then finds the schema at head
+        with self._migration_connection() as conn, conn.begin():
             cfg.attributes["connection"] = conn
             command.upgrade(cfg, revision)
 
@@ -118,7 +130,7 @@ class Store:
         from alembic import command
 
         cfg = alembic_config(self.url)
-        with self.engine.begin() as conn:
+        with self._migration_connection() as conn, conn.begin():
             cfg.attributes["connection"] = conn
             command.downgrade(cfg, revision)
 

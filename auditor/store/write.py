@@ -1,7 +1,7 @@
 """Bulk writes of validated readings, with revisions.
 
 Volume path: rows go through the DBAPI driver's ``executemany`` with plain tuples (SQLite), or
-``COPY`` (PostgreSQL), never one ORM object per interval. Everything happens inside the caller's
+binary ``COPY`` built by numpy (PostgreSQL), never one ORM object per interval. Everything happens inside the caller's
 transaction, so a file is wholly stored or not at all.
 
 Revisions: an incoming interval that is already stored with the same values is left alone; one
@@ -15,6 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 from sqlalchemy import Connection
+from sqlalchemy.exc import DBAPIError
 
 from auditor.store.models import QUANTITIES
 
@@ -53,8 +54,18 @@ def insert_rows(conn: Connection, meter_id: int, start: np.ndarray, values: dict
                 flags: np.ndarray, batch_id: int) -> int:
     if not len(start):
         return 0
-    if conn.dialect.name == "postgresql":
-        return _copy_rows(conn, meter_id, start, values, flags, batch_id)
+    try:
+        if conn.dialect.name == "postgresql":
+            return _copy_rows(conn, meter_id, start, values, flags, batch_id)
+        return _executemany_rows(conn, meter_id, start, values, flags, batch_id)
+    except conn.dialect.loaded_dbapi.Error as exc:
+        # the raw driver's errors (disk full, read-only, a key another import just wrote) as the
+        # SQLAlchemy classes every caller handles
+        raise DBAPIError.instance("INSERT INTO reading", None, exc, conn.dialect.loaded_dbapi.Error,
+                                  dialect=conn.dialect) from exc
+
+
+def _executemany_rows(conn, meter_id, start, values, flags, batch_id) -> int:
     # SQLite stores a bound NaN as NULL, which is what an absent channel means.
     sql = f"INSERT INTO reading ({', '.join(READING_COLUMNS)}) VALUES ({_ph(conn, len(READING_COLUMNS))})"
     raw = conn.connection.driver_connection
@@ -67,13 +78,65 @@ def insert_rows(conn: Connection, meter_id: int, start: np.ndarray, values: dict
     return len(start)
 
 
+# PostgreSQL binary COPY: the fixed binary header, and the trailer (a field count of -1)
+_PGCOPY_HEADER = b"PGCOPY\n\xff\r\n\x00" + b"\x00" * 8
+_PGCOPY_TRAILER = b"\xff\xff"
+_NULL = -1
+
+
+def copy_payload(meter_id: int, start: np.ndarray, values: dict[str, np.ndarray], flags: np.ndarray,
+                 batch_id: int) -> list[bytes]:
+    """Rows of ``reading`` in PostgreSQL's binary COPY format, built with numpy, no loop over rows.
+
+    Each tuple is a big-endian int16 field count, then per field an int32 byte length and the
+    value (length -1 and no bytes for NULL). The column types must match the table exactly:
+    int4 meter_id, int8 start, float8 quantities, int2 flags, int4 batch_id (migration 0001).
+    A NaN (a channel the file does not have) becomes NULL. Rows are grouped by which quantities
+    are NULL, since that changes a tuple's length; row order does not matter to a table.
+
+    References
+    ----------
+    PostgreSQL documentation, "COPY", section "Binary Format".
+    """
+    nan = np.column_stack([np.isnan(values[q]) for q in QUANTITIES])
+    pattern = nan.astype(np.int8) @ (1 << np.arange(len(QUANTITIES), dtype=np.int8))
+    out = []
+    for code in np.unique(pattern):
+        rows = np.flatnonzero(pattern == code) if len(np.unique(pattern)) > 1 else slice(None)
+        null = [bool(code >> i & 1) for i in range(len(QUANTITIES))]
+        fields = [("n", ">i2"), ("l_meter", ">i4"), ("meter", ">i4"), ("l_start", ">i4"), ("start", ">i8")]
+        for q, is_null in zip(QUANTITIES, null, strict=True):
+            fields.append((f"l_{q}", ">i4"))
+            if not is_null:
+                fields.append((q, ">f8"))
+        fields += [("l_flags", ">i4"), ("flags", ">i2"), ("l_batch", ">i4"), ("batch", ">i4")]
+        st = start[rows]
+        rec = np.empty(len(st), dtype=np.dtype(fields))
+        rec["n"] = len(READING_COLUMNS)
+        rec["l_meter"], rec["meter"] = 4, meter_id
+        rec["l_start"], rec["start"] = 8, st
+        for q, is_null in zip(QUANTITIES, null, strict=True):
+            rec[f"l_{q}"] = _NULL if is_null else 8
+            if not is_null:
+                rec[q] = values[q][rows]
+        rec["l_flags"], rec["flags"] = 2, flags[rows]
+        rec["l_batch"], rec["batch"] = 4, batch_id
+        out.append(rec.tobytes())
+    return out
+
+
 def _copy_rows(conn, meter_id, start, values, flags, batch_id) -> int:
     raw = conn.connection.driver_connection
+    sql = f"COPY reading ({', '.join(READING_COLUMNS)}) FROM STDIN (FORMAT BINARY)"
     with raw.cursor() as cur:
-        with cur.copy(f"COPY reading ({', '.join(READING_COLUMNS)}) FROM STDIN") as copy:
-            cols = _columns(meter_id, start, values, flags, batch_id, True)
-            for row in zip(*cols, strict=True):
-                copy.write_row(row)
+        with cur.copy(sql) as copy:
+            copy.write(_PGCOPY_HEADER)
+            for lo in range(0, len(start), BATCH_ROWS):
+                sl = slice(lo, lo + BATCH_ROWS)
+                for block in copy_payload(meter_id, start[sl], {q: v[sl] for q, v in values.items()},
+                                          flags[sl], batch_id):
+                    copy.write(block)
+            copy.write(_PGCOPY_TRAILER)
     return len(start)
 
 
