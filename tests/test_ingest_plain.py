@@ -4,14 +4,10 @@ from __future__ import annotations
 import pytest
 
 from auditor.ingest.pipeline import ImportOptions, import_file
-from tests.ingest_helpers import HEADER, day_rows, epoch, new_store, reading_count, readings, write_csv
+from tests.ingest_helpers import HEADER, day_rows, epoch, reading_count, readings, write_csv
 
 
-@pytest.fixture
-def store(tmp_path):
-    s = new_store(tmp_path)
-    yield s
-    s.dispose()
+# ``store`` (tests/conftest.py) runs each test on SQLite and, when a server is given, PostgreSQL.
 
 
 def test_good_file_is_stored_exactly(store, tmp_path):
@@ -204,8 +200,7 @@ def test_gap_is_flagged_not_rejected_and_can_be_estimated(store, tmp_path):
     assert kinds == ["gap"]
 
 
-def test_estimate_gaps_fills_and_flags(tmp_path):
-    store = new_store(tmp_path)
+def test_estimate_gaps_fills_and_flags(store, tmp_path):
     rows = day_rows()
     del rows[10:14]
     out = import_file(store, write_csv(tmp_path / "a.csv", rows), ImportOptions(estimate_gaps=True))
@@ -218,8 +213,7 @@ def test_estimate_gaps_fills_and_flags(tmp_path):
     assert filled["kwh"].tolist() == pytest.approx([10.10, 10.11, 10.12, 10.13])
 
 
-def test_spike_is_flagged_and_strict_rejects(tmp_path):
-    store = new_store(tmp_path)
+def test_spike_is_flagged_and_strict_rejects(store, tmp_path):
     rows = day_rows()
     rows[50] = rows[50].replace(",10.500,", ",900.000,")
     f = write_csv(tmp_path / "a.csv", rows)
@@ -253,8 +247,7 @@ def test_empty_binary_and_missing_files(store, tmp_path):
         assert out.status == "rejected" and words in out.errors[0].message, name
 
 
-def test_multiple_meters_and_site_creation(tmp_path):
-    store = new_store(tmp_path)
+def test_multiple_meters_and_site_creation(store, tmp_path):
     rows = day_rows("A", n=4) + day_rows("B", n=4)
     out = import_file(store, write_csv(tmp_path / "a.csv", rows), ImportOptions(site="Plant 7", timezone="Europe/Paris"))
     assert out.status == "imported" and sorted(out.meters) == ["A", "B"]
