@@ -92,3 +92,16 @@ def test_demo_no_serve_json(tmp_path):
     assert d["savings_case"]["meters"]["KQ-MAIN"]["annual_savings"] > 0
     again = json.loads(run(db, "demo", "--no-serve", "--json").stdout)
     assert all(f["status"] == "unchanged" for f in again["files"])
+
+
+def test_size_site_per_meter_and_central(demo_db):
+    per = json.loads(run(demo_db, "size", "--site", "Kestrel Quay Cold Store", "--mode", "per-meter", "--tariff",
+                         "harrowgate_industrial_tou", "--fixed", "50", "--json").stdout)
+    assert per["mode"] == "per_meter" and set(per["scenarios"]) == {"KQ-MAIN", "KQ-DOCKS"}
+    assert per["annual_savings"] == pytest.approx(sum(s["annual_savings"] for s in per["scenarios"].values()))
+    central = json.loads(run(demo_db, "size", "--site", "Kestrel Quay Cold Store", "--tariff",
+                             "harrowgate_industrial_tou", "--fixed", "50", "--json").stdout)
+    assert central["mode"] == "central" and list(central["scenarios"]) == ["site"]
+    r = run(demo_db, "size", "--meter", "KQ-MAIN", "--site", "X", "--tariff", "harrowgate_industrial_tou",
+            "--fixed", "50", rc=2)
+    assert "either --meter" in r.stderr

@@ -41,7 +41,10 @@ def render_case(d: dict) -> str:
 
 
 @click.command("size")
-@click.option("--meter", required=True, metavar="M")
+@click.option("--meter", metavar="M", help="The meter to correct.")
+@click.option("--site", metavar="NAME", help="Correct every meter of a site instead (see --mode).")
+@click.option("--mode", type=click.Choice(["central", "per-meter"]), default="central", show_default=True,
+              help="With --site: one bank on the meters' sum, or one bank per meter.")
 @click.option("--tariff", required=True, metavar="FILE", help="Tariff TOML file (or a shipped example's name).")
 @click.option("--target-pf", default=0.95, show_default=True, type=click.FloatRange(0.5, 1.0))
 @click.option("--fixed", "fixed_kvar", type=click.FloatRange(min=0, min_open=True), metavar="KVAR", help="A fixed bank of KVAR.")
@@ -59,7 +62,7 @@ def render_case(d: dict) -> str:
 @click.option("--save", "save_as", metavar="NAME", help="Save the scenario under NAME.")
 @click.option("--json", "json_out", is_flag=True)
 @pass_ctx
-def size_cmd(ctx: Context, meter, tariff, target_pf, fixed_kvar, steps, optimize, detuning_percent,
+def size_cmd(ctx: Context, meter, site, mode, tariff, target_pf, fixed_kvar, steps, optimize, detuning_percent,
              capex_per_kvar, capex_fixed, life_years, discount_rate, escalation, start, end, save_as, json_out):
     """Size power factor correction and cost the case."""
     from auditor.services.correction import SizeRequest, save_scenario, size_meter
@@ -67,9 +70,26 @@ def size_cmd(ctx: Context, meter, tariff, target_pf, fixed_kvar, steps, optimize
     costs = {k: v for k, v in (("capex_per_kvar", capex_per_kvar), ("capex_fixed", capex_fixed),
                                ("life_years", life_years), ("discount_rate", discount_rate),
                                ("escalation", escalation)) if v is not None}
-    req = SizeRequest(meter=meter, tariff=tariff, target_pf=target_pf, fixed_kvar=fixed_kvar, steps=steps,
+    req = SizeRequest(meter=meter or "", tariff=tariff, target_pf=target_pf, fixed_kvar=fixed_kvar, steps=steps,
                       optimize=optimize, detuning_percent=float(detuning_percent), costs=costs,
                       start=start.date().isoformat() if start else None, end=end.date().isoformat() if end else None)
+    if bool(meter) == bool(site):
+        raise click.UsageError("give either --meter M or --site NAME")
+    if site:
+        from auditor.services.correction import size_site
+
+        if save_as:
+            raise click.UsageError("--save works with --meter (a scenario belongs to one meter)")
+        d = size_site(ctx.store, site, req, mode.replace("-", "_"))
+        if json_out:
+            echo_json(d)
+        else:
+            click.echo(f"Site {site} ({', '.join(d['meters'])}), {d['mode'].replace('_', ' ')} correction:")
+            for name, sc in d["scenarios"].items():
+                click.echo(f"\n== {name}")
+                click.echo(render_case({**sc, "meter": name, "site": site, "tariff": d["tariff"]}))
+            click.echo(f"\nSite total: saving {fmt(d['annual_savings'])}/yr, capex {fmt(d['capex'])}, NPV {fmt(d['npv'])}")
+        return 0
     case = size_meter(ctx.store, req)
     d = case.to_dict()
     if save_as:

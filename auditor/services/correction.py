@@ -169,3 +169,43 @@ def best_scenario(store: Store, meter: str) -> dict | None:
     """The saved scenario of a meter with the best NPV (for the portfolio)."""
     rows = [x for x in list_scenarios(store, meter) if x["npv"] is not None]
     return max(rows, key=lambda x: x["npv"]) if rows else None
+
+
+def size_site(store: Store, site: str, req: SizeRequest, mode: str = "central") -> dict:
+    """Correct all meters of a site: one bank on their summed intervals (``central``), or the
+    same design on each meter billed on its own (``per_meter``); optimised centrally with
+    ``req.optimize``. Returns the JSON document."""
+    from auditor.correction import run_site, sum_meters
+    from auditor.services.meters import meters_of_site
+
+    t = resolve_tariff(req.tariff)
+    start, end = _date(req.start), _date(req.end)
+    names = meters_of_site(store, site)
+    if not names:
+        raise UsageError(f"site {site!r} has no meters")
+    datas = {n: load_meter(store, n, start, end) for n in names}
+    minutes = {d.interval_minutes for d in datas.values()}
+    if len(minutes) != 1:
+        raise UsageError(f"the meters of site {site!r} have different interval lengths: {sorted(minutes)}")
+    first = next(iter(datas.values()))
+    costs = CostInputs(**req.costs) if req.costs else CostInputs()
+    elec = SiteElectrical(transformer_kva=first.transformer_kva,
+                          transformer_impedance_percent=first.transformer_impedance_percent,
+                          nominal_voltage_v=first.nominal_voltage_v)
+    common = dict(tz=first.timezone, interval_minutes=first.interval_minutes, target_pf=req.target_pf,
+                  costs=costs, site=elec, start=start, end=end, leading_pf_limit=req.leading_pf_limit)
+    frames = {n: d.frame for n, d in datas.items()}
+    bank = bank_of(req)
+    if bank is None:
+        if mode != "central":
+            raise UsageError("--optimize with a site works on the meters' sum (--mode central)")
+        total, warnings = sum_meters(frames)
+        out = optimise(total, t, **common).to_dict()
+        out["warnings"] = list(warnings) + out["warnings"]
+        out = {"mode": "central", "scenarios": {"site": out}, "annual_savings": out["annual_savings"],
+               "capex": out["capex"], "npv": out["npv"], "irr": out["irr"], "cautions": out["cautions"],
+               "warnings": out["warnings"]}
+    else:
+        out = run_site(frames, t, bank=bank, mode=mode, **common).to_dict()
+    out.update({"site": site, "meters": names, "tariff": t.name, "request": req.to_dict()})
+    return out
