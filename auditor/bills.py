@@ -24,12 +24,13 @@ energy fields ``energy_percent`` of the expected value (default 0.5 %); demand f
 Missing and estimated data
 --------------------------
 Below ``min_coverage`` (95 %) of the expected intervals a bill is not compared at all: a warning
-says so, and no finding is made. Between that and 100 %, missing intervals can only make the
-computed energies, charges and peaks too *low*, so a bill above the computed value is a finding
-only when it exceeds ``expected / coverage`` plus the tolerance (energies and charges), and a
-billed peak above the computed one is not a finding at all; a bill *below* the computed value
-is compared as usual. A period whose data are more than ``max_estimated_share`` (5 %)
-estimated gets its findings with the cause ``estimated_data``.
+says so, and no finding is made. Between that and 100 % (with a warning), the computed value of
+each energy, charge and the PF becomes a range: from the data as they are to the data with every
+missing interval filled at the period's highest recorded kWh and kvarh (:func:`fill_gaps_high`);
+a bill inside the range, widened by the tolerance, is not a finding. A billed peak above the
+computed one is not compared then (a missing interval may have held the peak). A period whose
+data are more than ``max_estimated_share`` (5 %) estimated gets its findings with the cause
+``estimated_data``.
 
 Causes (bill-level patterns, tested in this order; see the functions of the same names)
 -------------------------------------------------------------------------------------
@@ -47,8 +48,9 @@ Causes (bill-level patterns, tested in this order; see the functions of the same
     the billed kvarh, PF or charges match the figures with leading kvarh counted as lagging
     (lag + lead) while the tariff counts otherwise.
 ``reactive_above_threshold``
-    a reactive charge is billed (beyond the computed one) although the PF is at or above the
-    tariff's threshold, so its lagging clauses charge nothing.
+    a reactive charge is billed beyond the computed one although the PF is at or above the
+    tariff's threshold, where its lagging clauses charge nothing (windowed clauses may still
+    charge the little the computed figure holds).
 ``demand_interval``
     the billed peak matches the demand recomputed over a longer interval (30 or 60 minutes,
     whole aligned blocks of the data's intervals).
@@ -59,7 +61,8 @@ Money at stake
 A finding's ``money`` is what it makes disputable, in the tariff's currency, never negative
 (an undercharge is reported with money 0):
 
-- ``total`` and ``reactive_charge``: the billed amount above the (upper) expected amount;
+- ``total`` and ``reactive_charge``: the billed amount above the expected amount (above the top
+  of the range when data are missing);
 - ``kwh``: the kWh above the expected, at the period's average energy price;
 - the peak of the tariff's demand basis (``peak_kw`` or ``peak_kva``): the excess times the
   demand price (ratchet effects ignored); the other peak, ``kvarh`` and ``pf``: 0, because their
@@ -100,6 +103,7 @@ from auditor.quantities import (
     BillingPeriod,
     energy_pf,
     local_bounds_utc,
+    segment_bounds,
     segment_max,
 )
 from auditor.tariffs.engine import kvarh_of
@@ -116,6 +120,8 @@ __all__ = [
     "Tolerances",
     "alternative_figures",
     "check",
+    "expected_figures",
+    "fill_gaps_high",
     "demand_interval",
     "lag_plus_lead",
     "multiplier",
@@ -553,7 +559,11 @@ def lagging_keys(tariff: Tariff) -> tuple[str, ...]:
 def reactive_above_threshold(billed: dict, expected: dict, period: PeriodResult, tariff: Tariff,
                              tol: Tolerances) -> bool:
     """A reactive charge above the computed one while the PF (the bill's, else the computed
-    billing PF) is at or above the tariff's threshold and the lagging clauses charge nothing."""
+    billing PF) is at or above the tariff's threshold (:func:`pf_threshold`).
+
+    Clauses limited to time windows may still charge a little when the window's PF is lower
+    than the period's; the computed charge includes that, and only the excess over it counts.
+    """
     threshold = pf_threshold(tariff)
     b = billed.get("reactive_charge")
     if threshold is None or not _finite(b) or not _finite(expected.get("reactive_charge")):
@@ -561,10 +571,7 @@ def reactive_above_threshold(billed: dict, expected: dict, period: PeriodResult,
     if b - expected["reactive_charge"] <= tol.allowed("reactive_charge", expected["reactive_charge"]) + _SLACK:
         return False
     pf = billed.get("pf") if _finite(billed.get("pf")) else expected.get("pf")
-    if not _finite(pf) or pf + _SLACK < threshold:
-        return False
-    lagging = sum(period.charges.get(k, 0.0) for k in lagging_keys(tariff))
-    return abs(lagging) <= 0.005
+    return _finite(pf) and pf + _SLACK >= threshold
 
 
 def demand_interval(billed: dict, k: int, alt: Alternatives, tol: Tolerances) -> dict[str, int]:
@@ -607,8 +614,9 @@ _CAUSE_TEXT = {
                     "probably do not match its meter reads.",
     "lag_plus_lead": "The billed figure matches leading kvarh counted as lagging (lag + lead); the tariff "
                      "counts {basis}.",
-    "reactive_above_threshold": "A reactive charge is billed although the power factor {pf:.2f} is at or above "
-                                "the tariff's threshold {threshold:.3f}, where its lagging clauses charge nothing.",
+    "reactive_above_threshold": "A reactive charge above the computed one is billed although the power factor "
+                                "{pf:.2f} is at or above the tariff's threshold {threshold:.3f}, where its "
+                                "lagging clauses charge nothing.",
     "demand_interval": "The billed demand matches the peak over {minutes}-minute intervals instead of the "
                        "meter's {interval}-minute intervals.",
 }
@@ -627,7 +635,7 @@ def _severity(cause: str | None, money: float, diff: float, allowed: float, tol:
 
 
 def _check_one(bill: BillRecord, p: PeriodResult, k: int, tariff: Tariff, alt: Alternatives | None,
-               tol: Tolerances, interval_minutes: int | None) -> BillCheck:
+               tol: Tolerances, interval_minutes: int | None, upper: PeriodResult | None = None) -> BillCheck:
     expected = expected_figures(p, tariff)
     billed = bill.billed()
     label = f"bill {bill.meter} {bill.period_start}..{bill.period_end}"
@@ -639,15 +647,18 @@ def _check_one(bill: BillRecord, p: PeriodResult, k: int, tariff: Tariff, alt: A
                         f"{p.expected_intervals} intervals), below {tol.min_coverage:.0%}; not compared")
         return BillCheck(bill, expected, coverage, est_share, False, (), (), 0.0, tuple(warnings))
     if coverage < 1.0:
-        warnings.append(f"{label}: the data cover {coverage:.1%} of the period; a bill above the computed "
-                        f"energies and charges is a finding only beyond what the missing intervals could hold, "
-                        f"and billed peaks above the computed ones are not compared")
+        warnings.append(f"{label}: the data cover {coverage:.1%} of the period ({p.expected_intervals - p.intervals} "
+                        f"intervals missing); billed energies and charges are compared with a range up to the "
+                        f"missing intervals at the period's highest values, billed peaks above the computed ones "
+                        f"are not compared")
     if est_share > 0:
         warnings.append(f"{label}: {p.estimated_intervals} estimated intervals ({est_share:.1%} of the data)")
 
-    # Fields outside tolerance, with the upper allowance widened for missing data.
+    # Fields outside tolerance; with missing intervals the computed value is a range from the
+    # data as they are to the data with every gap filled at the period's highest values.
+    up_fig = expected_figures(upper, tariff) if (upper is not None and coverage < 1.0) else None
     raw: dict[str, tuple[float, float, float]] = {}  # field -> (billed, expected, allowed)
-    upper: dict[str, float] = {}
+    upper_of: dict[str, float] = {}
     for f in BILL_FIELDS:
         b, e = billed[f], expected[f]
         if not _finite(b):
@@ -656,14 +667,17 @@ def _check_one(bill: BillRecord, p: PeriodResult, k: int, tariff: Tariff, alt: A
             warnings.append(f"{label}: {f} cannot be computed from the data (no load); not compared")
             continue
         allowed = tol.allowed(f, e)
-        hi = e
-        if coverage < 1.0 and f in ADDITIVE_FIELDS:
-            hi = e / coverage
-        upper[f] = hi
-        if coverage < 1.0 and f in DEMAND_FIELDS and b > e:
-            continue
+        lo, hi = e, e
+        if coverage < 1.0:
+            if f in DEMAND_FIELDS and b > e:
+                continue  # a missing interval may have held a higher peak
+            if f in ADDITIVE_FIELDS:
+                hi = max(e, up_fig[f]) if up_fig and _finite(up_fig[f]) else e / coverage
+            elif f == "pf" and up_fig and _finite(up_fig["pf"]):
+                lo, hi = min(e, up_fig["pf"]), max(e, up_fig["pf"])
+        upper_of[f] = hi
         slack = _SLACK * max(1.0, abs(e))
-        if b < e - allowed - slack or b > hi + allowed + slack:
+        if b < lo - allowed - slack or b > hi + allowed + slack:
             raw[f] = (b, e, allowed)
 
     causes: dict[str, str] = {}
@@ -713,7 +727,7 @@ def _check_one(bill: BillRecord, p: PeriodResult, k: int, tariff: Tariff, alt: A
     findings = []
     for f, (b, e, allowed) in raw.items():
         cause = causes.get(f)
-        over = max(0.0, b - upper[f])
+        over = max(0.0, b - upper_of[f])
         if cause in NOT_DISPUTABLE:
             money = 0.0
         elif f in CHARGE_FIELDS:
@@ -765,7 +779,7 @@ def _explain(cause, details, p, tariff, billed, expected, interval_minutes) -> s
 
 def reconcile(bills: Sequence[BillRecord], result: AuditResult, tariff: Tariff,
               alternatives: Alternatives | None = None, tolerances: Tolerances | None = None,
-              interval_minutes: int | None = None) -> tuple[BillCheck, ...]:
+              interval_minutes: int | None = None, upper: AuditResult | None = None) -> tuple[BillCheck, ...]:
     """Compare each bill with the audit period of the same boundaries.
 
     Parameters
@@ -782,6 +796,10 @@ def reconcile(bills: Sequence[BillRecord], result: AuditResult, tariff: Tariff,
     tolerances : Tolerances, optional
     interval_minutes : int, optional
         The data's interval length, for the wording of the demand-interval cause.
+    upper : AuditResult, optional
+        The same audit over the data with gaps filled at each period's highest values
+        (:func:`fill_gaps_high`): the top of the range a bill with missing data is compared with.
+        Without it, energies and charges are scaled by 1 / coverage.
 
     Returns
     -------
@@ -798,8 +816,39 @@ def reconcile(bills: Sequence[BillRecord], result: AuditResult, tariff: Tariff,
     for k, (b, p) in enumerate(zip(bills, result.periods, strict=True)):
         if (b.period_start, b.period_end) != (p.start, p.end):
             raise UsageError(f"bill {b.period_start}..{b.period_end} does not match audited period {p.label}")
-        out.append(_check_one(b, p, k, tariff, alternatives, tol, interval_minutes))
+        up = upper.periods[k] if upper is not None else None
+        out.append(_check_one(b, p, k, tariff, alternatives, tol, interval_minutes, up))
     return tuple(out)
+
+
+def fill_gaps_high(frame: pd.DataFrame, periods: Sequence[BillingPeriod], tz: str,
+                   interval_minutes: int) -> pd.DataFrame:
+    """``frame`` with every interval missing inside the periods filled with the period's highest
+    observed kWh, lagging and leading kvarh (each its own maximum): the most the period could
+    plausibly have held if the load never exceeded what was recorded. Filled rows are not
+    flagged estimated."""
+    step = pd.Timedelta(minutes=interval_minutes)
+    starts = local_bounds_utc([p.start for p in periods], tz)
+    ends = local_bounds_utc([p.end for p in periods], tz)
+    full = pd.DatetimeIndex(np.concatenate([  # one range per bill, each vectorised
+        pd.date_range(a, b, freq=step, inclusive="left").as_unit("ns").asi8 for a, b in zip(starts, ends, strict=True)
+    ]) if len(periods) else np.zeros(0, "int64")).tz_localize("UTC")
+    index = frame.index.as_unit("ns")
+    missing = full[~full.isin(index)]
+    if not len(missing):
+        return frame
+    sel, bounds = segment_bounds(frame.index, periods, tz)
+    seg = np.searchsorted(starts.as_unit("ns").asi8, missing.asi8, side="right") - 1
+    fill = {}
+    for c in ("kwh", "kvarh_lag", "kvarh_lead"):
+        top = np.nan_to_num(segment_max(frame[c].to_numpy(float)[sel], bounds))
+        fill[c] = top[seg]
+    extra = pd.DataFrame(fill, index=missing.rename(frame.index.name))
+    for c in frame.columns:
+        if c not in extra:
+            extra[c] = False if c == "estimated" else 0.0
+    out = pd.concat([frame.set_axis(index), extra[frame.columns]])
+    return out.sort_index()
 
 
 def _layers(bills: Sequence[BillRecord]) -> list[list[int]]:
@@ -847,7 +896,12 @@ def check(bills: Sequence[BillRecord], frame: pd.DataFrame, tariff: Tariff, *, t
                                  periods=[b.period for b in lb], history_peak_kw=history_peak_kw)
         result = prepared.run()
         alt = alternative_figures(prepared, frame, max_shift_days=int(tol.max_shift_days))
-        for i, c in zip(layer, reconcile(lb, result, tariff, alt, tol, interval_minutes), strict=True):
+        upper = None
+        if any(p.intervals < p.expected_intervals for p in result.periods):
+            filled = fill_gaps_high(frame, prepared.periods, tz, interval_minutes)
+            upper = prepare_audit(filled, tariff, tz=tz, interval_minutes=interval_minutes,
+                                  periods=prepared.periods, history_peak_kw=history_peak_kw).run()
+        for i, c in zip(layer, reconcile(lb, result, tariff, alt, tol, interval_minutes, upper), strict=True):
             checks[i] = c
     ordered = tuple(checks[i] for i in sorted(checks, key=lambda i: (bills[i].period_start, bills[i].period_end)))
     for c in ordered:
