@@ -1,0 +1,134 @@
+"""The dashboard: a Flask application over the service layer.
+
+``create_app(config=None, store=None)`` builds it; ``auditor serve`` runs it on waitress.
+One blueprint per area: portfolio (``/``), meters, scenarios, data (imports and quality),
+tariffs. Chart data are built by :mod:`auditor.web.charts`; exports by
+:mod:`auditor.services.report`.
+"""
+from __future__ import annotations
+
+import os
+import secrets
+from pathlib import Path
+
+import platformdirs
+from flask import Flask, render_template
+from flask_wtf.csrf import CSRFError, CSRFProtect
+
+from auditor.errors import AuditorError, NotFoundError, UsageError
+from auditor.store.engine import APP_DIR_NAME
+
+csrf = CSRFProtect()
+
+DEFAULTS = {
+    "DATABASE_URL": None,  # used when no store is passed
+    "AUTH_TOKEN": None,  # when set, every request needs it (cookie after ?token= or the login form)
+    "DEFAULT_TARIFF": "harrowgate_industrial_tou",
+    "TARIFF_DIRS": None,  # default: <instance>/tariffs
+    "MAX_CONTENT_LENGTH": 50 * 1024 * 1024,  # upload limit, bytes
+    "WTF_CSRF_TIME_LIMIT": None,  # tokens live as long as the session
+    "SESSION_COOKIE_HTTPONLY": True,
+    "SESSION_COOKIE_SAMESITE": "Lax",
+    "WARM_CACHE": False,  # compute every meter's audit in the background at start
+}
+
+
+def _secret_key(instance: Path) -> str:
+    """A random key kept in the instance folder (created on first start, never committed)."""
+    path = instance / "secret_key"
+    try:
+        return path.read_text(encoding="ascii").strip()
+    except FileNotFoundError:
+        pass
+    key = secrets.token_hex(32)
+    fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600)
+    with os.fdopen(fd, "w", encoding="ascii") as fh:
+        fh.write(key)
+    return key
+
+
+def create_app(config: dict | None = None, store=None) -> Flask:
+    """Build the dashboard.
+
+    Parameters
+    ----------
+    config : dict, optional
+        Overrides of :data:`DEFAULTS` and Flask settings; ``INSTANCE_PATH`` chooses the
+        instance folder (default: ``<user data dir>/pf-auditor/web``) that holds the secret key
+        and extra tariffs (``tariffs/*.toml``).
+    store : auditor.store.Store, optional
+        The database; default ``open_store(config["DATABASE_URL"])``.
+    """
+    config = dict(config or {})
+    instance = Path(config.pop("INSTANCE_PATH", None)
+                    or Path(platformdirs.user_data_dir(APP_DIR_NAME)) / "web").resolve()
+    instance.mkdir(parents=True, exist_ok=True)
+    app = Flask(__name__, instance_path=str(instance), instance_relative_config=True)
+    app.config.update(DEFAULTS)
+    app.config.update(config)
+    if not app.config.get("SECRET_KEY"):
+        app.config["SECRET_KEY"] = _secret_key(instance)
+    if app.config["TARIFF_DIRS"] is None:
+        app.config["TARIFF_DIRS"] = [str(instance / "tariffs")]
+    app.jinja_env.autoescape = True  # every template, whatever its extension
+
+    if store is None:
+        from auditor.store import open_store
+
+        store = open_store(app.config["DATABASE_URL"])
+    app.extensions["auditor_store"] = store
+
+    csrf.init_app(app)
+
+    from auditor.web import security
+    from auditor.web.filters import register_filters
+
+    register_filters(app.jinja_env.filters)
+    security.init_app(app)
+
+    from auditor.web import data, meters, portfolio, scenarios, tariffs
+
+    for bp in (portfolio.bp, meters.bp, scenarios.bp, data.bp, tariffs.bp, security.bp):
+        app.register_blueprint(bp)
+    from auditor.web import bills as _bills; app.register_blueprint(_bills.bp)  # noqa: E702
+
+    @app.errorhandler(CSRFError)
+    def _csrf_error(exc):
+        return render_template("error.html", title="Form expired or forged",
+                               message="The form's security token was missing or did not match. "
+                                       "Reload the page and submit it again."), 400
+
+    @app.errorhandler(NotFoundError)
+    def _not_found(exc):
+        return render_template("error.html", title="Not found", message=exc.message), 404
+
+    @app.errorhandler(UsageError)
+    def _usage(exc):
+        return render_template("error.html", title="Cannot do that", message=exc.message), 400
+
+    @app.errorhandler(AuditorError)
+    def _auditor(exc):
+        return render_template("error.html", title="Problem with the input", message=exc.message), 422
+
+    @app.errorhandler(404)
+    def _404(exc):
+        return render_template("error.html", title="Not found",
+                               message="There is no page at this address."), 404
+
+    @app.errorhandler(413)
+    def _413(exc):
+        mb = app.config["MAX_CONTENT_LENGTH"] / 1024 / 1024
+        return render_template("error.html", title="File too large",
+                               message=f"Uploads are limited to {mb:g} MB. Import larger files with "
+                                       "`auditor import FILE` on the command line."), 413
+
+    @app.errorhandler(500)
+    def _500(exc):
+        return render_template("error.html", title="Internal error",
+                               message="Something went wrong on the server; the log has the details."), 500
+
+    if app.config["WARM_CACHE"]:
+        from auditor.web.helpers import warm_cache
+
+        warm_cache(app)
+    return app

@@ -1,0 +1,232 @@
+"""Chart figures (plotly JSON: ``{"data": [...], "layout": {...}}``) from service results.
+
+Plain dicts rather than ``plotly.graph_objects``: the figures are serialised once per page,
+and building validated graph objects for a meter-year costs more than the page budget. The
+browser draws them with the plotly.js bundled in the plotly package (served locally; reports
+embed it), so nothing is fetched from the network. No WebGL traces: the P–Q scatter is
+thinned on the server instead, which keeps the Content-Security-Policy free of 'unsafe-eval'.
+"""
+from __future__ import annotations
+
+import json
+import math
+from datetime import date
+
+import numpy as np
+
+from auditor.render import _clean
+
+# palette of the dashboard (also in static/style.css)
+INK = "#1d2a33"
+GRID = "#e3e8ec"
+BEFORE = "#c0702b"  # copper: the site as metered
+AFTER = "#2f7d6d"  # sea green: with the bank
+LIMIT = "#8c2f39"  # wine: tariff thresholds
+NEUTRAL = "#4a6a8a"  # steel blue: plain quantities
+EXTRA = ("#c0702b", "#4a6a8a", "#9a7fb8", "#b59a2b", "#5d8f3a", "#8c2f39")
+
+_BASE_LAYOUT = {
+    "margin": {"l": 64, "r": 20, "t": 40, "b": 48},
+    "font": {"family": "system-ui, -apple-system, 'Segoe UI', sans-serif", "size": 12, "color": INK},
+    "paper_bgcolor": "rgba(0,0,0,0)",
+    "plot_bgcolor": "#ffffff",
+    "legend": {"orientation": "h", "y": -0.18},
+    "hovermode": "closest",
+}
+
+
+def _layout(title: str, x: str | None = None, y: str | None = None, **extra) -> dict:
+    out = json.loads(json.dumps(_BASE_LAYOUT))
+    out["title"] = {"text": title, "x": 0.01, "xanchor": "left", "font": {"size": 14}}
+    out["xaxis"] = {"title": {"text": x} if x else None, "gridcolor": GRID, "zeroline": False}
+    out["yaxis"] = {"title": {"text": y} if y else None, "gridcolor": GRID, "zeroline": False}
+    for k, v in extra.items():
+        if isinstance(v, dict) and isinstance(out.get(k), dict):
+            out[k].update(v)
+        else:
+            out[k] = v
+    return out
+
+
+def period_label(p: dict) -> str:
+    """``2025-03`` for a calendar month, else ``start..end`` (end exclusive)."""
+    s, e = date.fromisoformat(p["start"]), date.fromisoformat(p["end"])
+    nxt = date(s.year + (s.month == 12), s.month % 12 + 1, 1)
+    if s.day == 1 and e == nxt:
+        return f"{s.year:04d}-{s.month:02d}"
+    return f"{p['start']}..{p['end']}"
+
+
+def figure_json(fig: dict) -> str:
+    """Standard JSON (NaN → null), compact."""
+    return json.dumps(_clean(fig), separators=(",", ":"), allow_nan=False)
+
+
+def _nan_to_none(values) -> list:
+    a = np.asarray(values, dtype=float)
+    return [None if not math.isfinite(v) else v for v in a.tolist()]
+
+
+# --------------------------------------------------------------------------------------------
+# audit (one meter, one tariff)
+# --------------------------------------------------------------------------------------------
+def pf_by_period(audit: dict, thresholds: list[dict]) -> dict:
+    periods = audit["periods"]
+    labels = [period_label(p) for p in periods]
+    data = [{"type": "scatter", "mode": "lines+markers", "name": "energy PF (lagging kvarh)",
+             "x": labels, "y": [p["pf"] for p in periods], "line": {"color": NEUTRAL, "width": 2},
+             "marker": {"size": 7}, "hovertemplate": "%{x}: PF %{y:.3f}<extra></extra>"},
+            {"type": "scatter", "mode": "markers", "name": "PF at the kW peak",
+             "x": labels, "y": [p["pf_at_peak"] for p in periods],
+             "marker": {"color": BEFORE, "symbol": "diamond-open", "size": 8},
+             "hovertemplate": "%{x}: PF at peak %{y:.3f}<extra></extra>"}]
+    shapes, notes = [], []
+    for i, t in enumerate(thresholds):
+        shapes.append({"type": "line", "xref": "paper", "x0": 0, "x1": 1, "y0": t["pf"], "y1": t["pf"],
+                       "line": {"color": LIMIT, "width": 1.5, "dash": "dash"}})
+        notes.append({"xref": "paper", "x": 1, "xanchor": "right", "y": t["pf"], "yanchor": "bottom",
+                      "text": f"{t['key']}: PF {t['pf']:.3f}", "showarrow": False,
+                      "font": {"color": LIMIT, "size": 11}, "yshift": 2 + 12 * i})
+    ys = [v for p in periods for v in (p["pf"], p["pf_at_peak"]) if v is not None] + [t["pf"] for t in thresholds]
+    lo = max(0.0, min(ys) - 0.03) if ys else 0.5
+    return {"data": data, "layout": _layout("Power factor by billing period", None, "PF",
+                                            shapes=shapes, annotations=notes,
+                                            yaxis={"range": [lo, 1.005]})}
+
+
+def reactive_by_period(audit: dict, reactive_keys: list[str]) -> dict:
+    periods = audit["periods"]
+    labels = [period_label(p) for p in periods]
+    cur = audit.get("currency") or ""
+    data = []
+    for i, key in enumerate(reactive_keys):
+        data.append({"type": "bar", "name": key, "x": labels,
+                     "y": [p["charges"].get(key, 0.0) for p in periods],
+                     "marker": {"color": EXTRA[i % len(EXTRA)]},
+                     "hovertemplate": f"%{{x}} {key}: %{{y:,.2f}} {cur}<extra></extra>"})
+    return {"data": data, "layout": _layout("Reactive charges by billing period", None, f"charge ({cur})",
+                                            barmode="stack")}
+
+
+def peaks_by_period(audit: dict) -> dict:
+    periods = audit["periods"]
+    labels = [period_label(p) for p in periods]
+    data = [{"type": "bar", "name": "peak kW", "x": labels, "y": [p["peak_kw"] for p in periods],
+             "marker": {"color": NEUTRAL}, "hovertemplate": "%{x}: %{y:,.1f} kW<extra></extra>"},
+            {"type": "bar", "name": "peak kVA", "x": labels, "y": [p["peak_kva"] for p in periods],
+             "marker": {"color": BEFORE}, "hovertemplate": "%{x}: %{y:,.1f} kVA<extra></extra>"},
+            {"type": "scatter", "mode": "lines+markers", "name": "peak kvar (lagging)", "x": labels,
+             "y": [p["peak_kvar"] for p in periods], "line": {"color": LIMIT, "width": 1.5},
+             "hovertemplate": "%{x}: %{y:,.1f} kvar<extra></extra>"}]
+    return {"data": data, "layout": _layout("Demand peaks by billing period", None, "kW · kVA · kvar",
+                                            barmode="group")}
+
+
+def pf_heatmap(profile) -> dict:
+    """PF per interval: days across, time of day up. ``z`` is sent as days × slots and
+    transposed by plotly, so the payload is one number per interval (365 × 96)."""
+    m = np.round(profile.pf_matrix, 3)
+    z = [[None if v != v else v for v in row] for row in m.tolist()]
+    slots = m.shape[1]
+    step = profile.slot_minutes
+    tod = [f"{(i * step) // 60:02d}:{(i * step) % 60:02d}" for i in range(slots)]
+    data = [{"type": "heatmap", "z": z, "x": profile.days, "y": tod, "transpose": True,
+             "zmin": 0.6, "zmax": 1.0, "zauto": False,
+             "colorscale": [[0.0, "#7a1f2b"], [0.45, "#d0783a"], [0.75, "#f2d49b"], [0.875, "#9cc9b4"], [1.0, "#1f6e5c"]],
+             "colorbar": {"title": {"text": "PF"}, "thickness": 12},
+             "hovertemplate": "%{x} %{y}<br>PF %{z:.3f}<extra></extra>", "hoverongaps": False}]
+    return {"data": data, "layout": _layout(f"Power factor by time of day ({profile.timezone})", None, "time of day",
+                                            yaxis={"autorange": "reversed", "dtick": 4 * 60 // step if step <= 60 else 1,
+                                                   "type": "category"},
+                                            xaxis={"type": "date"})}
+
+
+def pq_scatter(profile, thresholds: list[dict]) -> dict:
+    kw = np.asarray(profile.scatter_kw, dtype=float)
+    kvar = np.asarray(profile.scatter_kvar, dtype=float)
+    kmax = float(np.nanmax(kw)) if kw.size else 1.0
+    tphi = math.sqrt(1 - profile.target_pf ** 2) / profile.target_pf
+    data = [{"type": "scatter", "mode": "markers", "name": f"intervals (every {max(1, round(profile.n_intervals / max(1, kw.size)))}th)",
+             "x": np.round(kw, 2).tolist(), "y": np.round(kvar, 2).tolist(),
+             "marker": {"color": NEUTRAL, "size": 4, "opacity": 0.45},
+             "hovertemplate": "%{x:,.1f} kW, %{y:,.1f} kvar<extra></extra>"},
+            {"type": "scatter", "mode": "lines", "name": f"target PF {profile.target_pf:.2f}",
+             "x": [0, kmax], "y": [0, kmax * tphi], "line": {"color": AFTER, "width": 2}}]
+    for t in thresholds:
+        tp = math.sqrt(max(0.0, 1 - t["pf"] ** 2)) / t["pf"]
+        data.append({"type": "scatter", "mode": "lines", "name": f"{t['key']} PF {t['pf']:.3f}",
+                     "x": [0, kmax], "y": [0, kmax * tp], "line": {"color": LIMIT, "width": 1.5, "dash": "dash"}})
+    return {"data": data, "layout": _layout("Active against reactive power (net kvar; leading below zero)",
+                                            "P (kW)", "Q (kvar)")}
+
+
+def duration_curve(profile) -> dict:
+    data = [{"type": "scatter", "mode": "lines", "name": "kvar needed", "x": profile.duration_percent,
+             "y": profile.duration_kvar, "fill": "tozeroy", "line": {"color": AFTER, "width": 2},
+             "fillcolor": "rgba(47,125,109,0.15)",
+             "hovertemplate": "%{x:.0f} % of intervals need ≥ %{y:,.1f} kvar<extra></extra>"}]
+    shapes = [{"type": "line", "x0": 5, "x1": 5, "yref": "paper", "y0": 0, "y1": 1,
+               "line": {"color": LIMIT, "dash": "dot", "width": 1}}]
+    notes = [{"x": 5, "y": profile.kvar_at_95, "text": f"{profile.kvar_at_95:,.0f} kvar suffices in 95 % of intervals",
+              "showarrow": True, "arrowhead": 2, "ax": 90, "ay": -30, "font": {"size": 11}}]
+    return {"data": data, "layout": _layout(f"Duration curve of the kvar needed for PF {profile.target_pf:.2f}",
+                                            "share of intervals (%)", "kvar", shapes=shapes, annotations=notes)}
+
+
+# --------------------------------------------------------------------------------------------
+# scenario
+# --------------------------------------------------------------------------------------------
+def before_after(case: dict) -> dict:
+    before, after = case["before"], case["after"]
+    labels = [period_label(p) for p in before]
+    cur = case.get("currency") or ""
+    data = [{"type": "bar", "name": "reactive charges, as metered", "x": labels,
+             "y": [p["reactive_total"] for p in before], "marker": {"color": BEFORE},
+             "hovertemplate": f"%{{x}}: %{{y:,.2f}} {cur}<extra>before</extra>"},
+            {"type": "bar", "name": "reactive charges, with the bank", "x": labels,
+             "y": [p["reactive_total"] for p in after], "marker": {"color": AFTER},
+             "hovertemplate": f"%{{x}}: %{{y:,.2f}} {cur}<extra>after</extra>"},
+            {"type": "scatter", "mode": "lines+markers", "name": "saving on the whole bill", "x": labels,
+             "y": [b["total"] - a["total"] for b, a in zip(before, after, strict=True)],
+             "line": {"color": NEUTRAL, "width": 1.5, "dash": "dot"},
+             "hovertemplate": f"%{{x}}: %{{y:,.2f}} {cur}<extra>saving</extra>"}]
+    return {"data": data, "layout": _layout("Reactive charges before and after correction", None,
+                                            f"charge ({cur})", barmode="group")}
+
+
+def savings_by_charge(case: dict) -> dict:
+    items = [(k, v) for k, v in case["savings_by_charge"].items() if abs(v) > 0.005]
+    cur = case.get("currency") or ""
+    items.sort(key=lambda kv: kv[1])
+    data = [{"type": "bar", "orientation": "h", "x": [v for _, v in items], "y": [k for k, _ in items],
+             "marker": {"color": [AFTER if v >= 0 else LIMIT for _, v in items]},
+             "hovertemplate": f"%{{y}}: %{{x:,.2f}} {cur} a year<extra></extra>", "name": "saving"}]
+    return {"data": data, "layout": _layout("Annual saving by charge (negative: the bank adds to it)",
+                                            f"{cur} a year", None, showlegend=False,
+                                            margin={"l": 130, "r": 20, "t": 40, "b": 48})}
+
+
+def cash_flow(case: dict) -> dict:
+    rows = case["cash_flow"]
+    years = [r["year"] for r in rows]
+    cur = case.get("currency") or ""
+    data = [{"type": "bar", "name": "net cash flow of the year", "x": years, "y": [r["net"] for r in rows],
+             "marker": {"color": [LIMIT if r["net"] < 0 else "#b8d4cc" for r in rows]},
+             "hovertemplate": f"year %{{x}}: %{{y:,.0f}} {cur}<extra></extra>"},
+            {"type": "scatter", "mode": "lines+markers", "name": "cumulative", "x": years,
+             "y": [r["cumulative"] for r in rows], "line": {"color": AFTER, "width": 2.5},
+             "hovertemplate": f"year %{{x}}: %{{y:,.0f}} {cur}<extra>cumulative</extra>"},
+            {"type": "scatter", "mode": "lines", "name": "cumulative, discounted", "x": years,
+             "y": [r["discounted_cumulative"] for r in rows], "line": {"color": NEUTRAL, "width": 1.5, "dash": "dash"},
+             "hovertemplate": f"year %{{x}}: %{{y:,.0f}} {cur}<extra>discounted</extra>"}]
+    notes, shapes = [], [{"type": "line", "xref": "paper", "x0": 0, "x1": 1, "y0": 0, "y1": 0,
+                          "line": {"color": INK, "width": 1}}]
+    pb = case.get("simple_payback_years")
+    if pb is not None and pb <= (years[-1] if years else 0):
+        data.append({"type": "scatter", "mode": "markers", "name": "payback", "x": [pb], "y": [0],
+                     "marker": {"color": LIMIT, "size": 12, "symbol": "star"},
+                     "hovertemplate": f"payback after {pb:.2f} years<extra></extra>"})
+        notes.append({"x": pb, "y": 0, "text": f"payback {pb:.1f} years", "showarrow": True, "arrowhead": 2,
+                      "ax": 40, "ay": -40, "font": {"color": LIMIT}})
+    return {"data": data, "layout": _layout("Cash flow over the life of the bank", "year", cur,
+                                            annotations=notes, shapes=shapes)}

@@ -1,0 +1,70 @@
+"""Imports and data quality: batches, rejected files, gaps and estimates; upload a file."""
+from __future__ import annotations
+
+import shutil
+import tempfile
+from importlib import resources
+from pathlib import Path
+
+from flask import Blueprint, flash, redirect, render_template, url_for
+from werkzeug.utils import secure_filename
+
+from auditor.ingest.pipeline import ImportOptions
+from auditor.services import portfolio as pf
+from auditor.services.ingest import import_files
+from auditor.web.forms import UploadForm
+from auditor.web.helpers import store
+
+bp = Blueprint("data", __name__)
+
+
+def _profiles() -> dict[str, Path]:
+    folder = Path(str(resources.files("auditor") / "profiles"))
+    return {p.stem: p for p in sorted(folder.glob("*.toml"))}
+
+
+def _form() -> UploadForm:
+    form = UploadForm()
+    form.profile.choices = [("", "detect the layout")] + [(k, f"profile: {k}") for k in _profiles()]
+    return form
+
+
+def _page(form: UploadForm, status: int = 200, outcome: dict | None = None):
+    s = store()
+    batches = pf.import_overview(s)
+    for b in batches:
+        b["short_name"] = Path(b["file_name"]).name
+    return render_template("imports.html", form=form, batches=batches,
+                           rejected=[b for b in batches if b["status"] == "rejected"],
+                           quality=pf.quality_overview(s), outcome=outcome), status
+
+
+@bp.get("/imports")
+def index():
+    return _page(_form())
+
+
+@bp.post("/imports")
+def upload():
+    form = _form()
+    if not form.validate():
+        return _page(form, 400)
+    upload = form.file.data
+    name = secure_filename(upload.filename or "") or "upload.csv"
+    folder = Path(tempfile.mkdtemp(prefix="auditor-upload-"))
+    try:
+        path = folder / name
+        upload.save(path)
+        profile = _profiles().get(form.profile.data) if form.profile.data else None
+        options = ImportOptions(site=(form.site.data or "").strip() or None,
+                                timezone=(form.timezone.data or "").strip() or None,
+                                profile_path=str(profile) if profile else None,
+                                estimate_gaps=form.estimate_gaps.data == "yes")
+        outcome = import_files(store(), [path], options)[0].as_dict()
+    finally:
+        shutil.rmtree(folder, ignore_errors=True)
+    outcome["short_name"] = name
+    if outcome["status"] == "rejected":
+        return _page(_form(), 422, outcome=outcome)
+    flash(f"{name}: {outcome['status']} — {outcome['message']}", "ok")
+    return redirect(url_for("data.index"))

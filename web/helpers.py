@@ -1,0 +1,76 @@
+"""Shared helpers of the blueprints: the store, the tariff chosen, the cache warm-up."""
+from __future__ import annotations
+
+import logging
+import threading
+
+from flask import Flask, current_app, request
+
+from auditor.errors import AuditorError
+from auditor.services import portfolio as pf
+from auditor.tariffs import Tariff
+
+log = logging.getLogger("auditor.web")
+
+
+def store():
+    return current_app.extensions["auditor_store"]
+
+
+def tariff_dirs() -> list[str]:
+    return list(current_app.config["TARIFF_DIRS"] or [])
+
+
+def tariff_choices() -> list[pf.TariffChoice]:
+    return pf.tariff_choices(tariff_dirs())
+
+
+def default_tariff_name() -> str:
+    names = [c.name for c in tariff_choices() if not c.error]
+    wanted = current_app.config.get("DEFAULT_TARIFF")
+    if wanted in names:
+        return wanted
+    return names[0] if names else ""
+
+
+def chosen_tariff(name: str | None = None) -> tuple[str, Tariff]:
+    """The tariff named by ``name`` or the ``tariff`` query parameter (a file stem), else the
+    default one."""
+    name = name or request.args.get("tariff") or default_tariff_name()
+    return name, pf.load_named_tariff(name, tariff_dirs())
+
+
+def warm_cache(app: Flask) -> None:
+    """Audit every meter under the default tariff in a background thread, so the first visit
+    to the portfolio does not wait for all the audits."""
+
+    def run():
+        with app.app_context():
+            try:
+                name = default_tariff_name()
+                if name:
+                    pf.portfolio_summary(store(), pf.load_named_tariff(name, tariff_dirs()))
+            except AuditorError as exc:  # the page itself will show the problem
+                log.warning("cache warm-up: %s", exc.message)
+
+    threading.Thread(target=run, name="auditor-warm-cache", daemon=True).start()
+
+
+def tariff_for_scenario(saved: dict) -> tuple[str, Tariff]:
+    """The dashboard's tariff a saved scenario was computed under: by the name its request
+    gave (a file stem or path), else by the tariff's title."""
+    from pathlib import Path
+
+    from auditor.errors import NotFoundError
+
+    asked = str(saved.get("request", {}).get("tariff") or "")
+    stem = Path(asked).stem if asked else ""
+    choices = [c for c in tariff_choices() if not c.error]
+    for c in choices:
+        if c.name == stem:
+            return c.name, pf.load_named_tariff(c.name, tariff_dirs())
+    for c in choices:
+        if c.title == saved.get("tariff"):
+            return c.name, pf.load_named_tariff(c.name, tariff_dirs())
+    raise NotFoundError(f"scenario {saved.get('name')!r} was computed under tariff {saved.get('tariff')!r}, "
+                        "which the dashboard does not have; put its TOML file in the instance folder's tariffs/")

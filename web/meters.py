@@ -1,0 +1,85 @@
+"""The meter page (audit by period and interval charts) and the exports."""
+from __future__ import annotations
+
+import re
+import secrets
+
+from flask import Blueprint, Response, abort, render_template, request
+
+from auditor.errors import UsageError
+from auditor.services import portfolio as pf
+from auditor.services import report as rp
+from auditor.services.correction import list_scenarios
+from auditor.web import charts
+from auditor.web.helpers import chosen_tariff, store, tariff_choices, tariff_for_scenario
+
+bp = Blueprint("meters", __name__)
+
+MIME = {"html": "text/html; charset=utf-8", "csv": "text/csv; charset=utf-8",
+        "xlsx": "application/vnd.openxmlformats-officedocument.spreadsheetml.sheet"}
+
+
+def _target_pf() -> float:
+    raw = request.args.get("target_pf", "0.95")
+    try:
+        value = float(raw)
+    except ValueError:
+        raise UsageError(f"target_pf must be a number such as 0.95, not {raw!r}") from None
+    if not 0.5 <= value <= 1.0:
+        raise UsageError(f"target_pf must be between 0.5 and 1, not {raw}")
+    return value
+
+
+@bp.get("/meters/<meter>")
+def meter(meter: str):
+    name, tariff = chosen_tariff()
+    target = _target_pf()
+    s = store()
+    ma = pf.cached_audit(s, meter, tariff)
+    audit = ma.to_dict()
+    profile = pf.meter_profile(s, meter, target)
+    thresholds = pf.tariff_threshold_pf(tariff)
+    cols, rows = rp.period_rows(audit, rp.period_columns(audit, list(ma.result.charge_keys)))
+    figs = [("pf", charts.pf_by_period(audit, thresholds)),
+            ("reactive", charts.reactive_by_period(audit, list(ma.result.reactive_keys))),
+            ("peaks", charts.peaks_by_period(audit)),
+            ("heatmap", charts.pf_heatmap(profile)),
+            ("scatter", charts.pq_scatter(profile, thresholds)),
+            ("duration", charts.duration_curve(profile))]
+    totals = dict(audit["totals"])
+    return render_template("meter.html", meter=meter, audit=audit, data=ma.data, tariff=tariff,
+                           tariff_name=name, tariffs=tariff_choices(), columns=cols, rows=rows,
+                           charts={k: charts.figure_json(f) for k, f in figs}, profile=profile,
+                           totals=totals, target_pf=target, thresholds=thresholds,
+                           scenarios=list_scenarios(s, meter))
+
+
+_SAFE = re.compile(r"[^A-Za-z0-9._-]+")
+
+
+@bp.get("/export/<meter>.<fmt>")
+def export(meter: str, fmt: str):
+    """An export of the audit (``?tariff=``) or of a saved scenario (``?scenario=``)."""
+    if fmt not in rp.FORMATS:
+        abort(404)
+    scenario = request.args.get("scenario") or None
+    if scenario:
+        from auditor.services.correction import get_scenario
+
+        name, tariff = tariff_for_scenario(get_scenario(store(), scenario))
+    else:
+        name, tariff = chosen_tariff()
+    report = rp.build_report(store(), meter, tariff, scenario, with_profile=(fmt == "html"))
+    nonce = secrets.token_urlsafe(16)
+    body = rp.render_html(report, nonce=nonce).encode("utf-8") if fmt == "html" else rp.render(report, fmt)
+    stem = _SAFE.sub("_", f"{meter}_{scenario or name}").strip("_") or "report"
+    resp = Response(body, mimetype=MIME[fmt].split(";")[0])
+    if fmt != "html":
+        resp.headers["Content-Type"] = MIME[fmt]
+    resp.headers["Content-Disposition"] = f'attachment; filename="{stem}.{fmt}"'
+    if fmt == "html":
+        # the report carries its own scripts; allow exactly those (by nonce), nothing remote
+        resp.headers["Content-Security-Policy"] = (
+            f"default-src 'none'; script-src 'nonce-{nonce}'; style-src 'unsafe-inline'; "
+            "img-src data: blob:; font-src data:; base-uri 'none'; form-action 'none'; frame-ancestors 'none'")
+    return resp

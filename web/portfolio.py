@@ -1,0 +1,33 @@
+"""The portfolio (home page): every site and meter, worst power factor first."""
+from __future__ import annotations
+
+from importlib import resources
+
+from flask import Blueprint, render_template, send_file
+
+from auditor.services import portfolio as pf
+from auditor.web.helpers import chosen_tariff, store, tariff_choices
+
+bp = Blueprint("portfolio", __name__)
+
+
+@bp.get("/")
+def index():
+    name, tariff = chosen_tariff()
+    rows = pf.portfolio_summary(store(), tariff)
+    totals = {
+        "meters": len(rows),
+        "sites": len({r["site"] for r in rows}),
+        "reactive_12m": sum(r["reactive_12m"] or 0.0 for r in rows),
+        "savings": sum(r["best"]["annual_savings"] for r in rows
+                       if r["best"] and (r["best"]["npv"] or 0) > 0 and r["best"]["tariff"] == tariff.name),
+    }
+    return render_template("portfolio.html", rows=rows, totals=totals, tariff=tariff, tariff_name=name,
+                           tariffs=tariff_choices(), thresholds=pf.tariff_threshold_pf(tariff))
+
+
+@bp.get("/vendor/plotly.min.js")
+def plotly_js():
+    """plotly.js as bundled in the plotly Python package (never from a CDN)."""
+    path = resources.files("plotly") / "package_data" / "plotly.min.js"
+    return send_file(str(path), mimetype="text/javascript", max_age=86400)

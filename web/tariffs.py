@@ -1,0 +1,24 @@
+"""Tariffs: each loaded tariff as readable clauses."""
+from __future__ import annotations
+
+from flask import Blueprint, render_template
+
+from auditor.services import portfolio as pf
+from auditor.tariffs import describe_tariff
+from auditor.web.helpers import tariff_choices, tariff_dirs
+
+bp = Blueprint("tariffs", __name__)
+
+
+@bp.get("/tariffs")
+def index():
+    items = []
+    for c in tariff_choices():
+        if c.error:
+            items.append({"name": c.name, "title": c.title, "error": c.error, "clauses": [], "source": ""})
+            continue
+        t = pf.load_named_tariff(c.name, tariff_dirs())
+        items.append({"name": c.name, "title": t.name, "error": None, "clauses": describe_tariff(t),
+                      "currency": t.currency, "thresholds": pf.tariff_threshold_pf(t),
+                      "source": c.path.read_text(encoding="utf-8"), "path": c.path.name})
+    return render_template("tariffs.html", items=items)
