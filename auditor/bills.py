@@ -43,7 +43,9 @@ Causes (bill-level patterns, tested in this order; see the functions of the same
     meter multiplier or CT / VT ratio (domain.md section 2).
 ``period_shift``
     the billed kWh (and kvarh, when billed) match the same-length period moved by 1 to
-    ``max_shift_days`` days with complete data: the bill's dates do not match its reads.
+    ``max_shift_days`` days with complete data: the bill's dates do not match its reads. When
+    the bill shows only energies, a matching shift wins over a common ratio (a multiplier would
+    scale the peaks too; without peaks on the bill the shift is the more specific match).
 ``lag_plus_lead``
     the billed kvarh, PF or charges match the figures with leading kvarh counted as lagging
     (lag + lead) while the tariff counts otherwise.
@@ -390,7 +392,7 @@ def _shifted_sums(frame: pd.DataFrame, tariff: Tariff, periods: Sequence[Billing
         day_n = np.zeros(ndays, dtype=np.int64)
     dates = [first + timedelta(days=i) for i in range(ndays + 1)]
     bounds = local_bounds_utc(dates, tz)
-    day_expected = np.floor(np.diff(bounds.asi8) / 1e9 / (interval_minutes * 60) + 1e-9).astype(np.int64)
+    day_expected = np.floor(np.diff(bounds.as_unit("s").asi8) / (interval_minutes * 60) + 1e-9).astype(np.int64)
     cum = [np.concatenate([[0.0], np.cumsum(a)]) for a in (day_kwh, day_kvarh, day_n, day_expected)]
     s = np.array([(p.start - epoch).days - d0 for p in periods])[:, None] + offsets[None, :]
     e = np.array([(p.end - epoch).days - d0 for p in periods])[:, None] + offsets[None, :]
@@ -687,16 +689,19 @@ def _check_one(bill: BillRecord, p: PeriodResult, k: int, tariff: Tariff, alt: A
             details["estimated_data"] = round(est_share, 4)
             causes.update(dict.fromkeys(raw, "estimated_data"))
         ratio = multiplier(billed, expected, tol)
+        shift = period_shift(billed, k, alt, tol) if (alt is not None and "kwh" in raw) else None
+        # Energies alone scaled alike may be a shifted period; a multiplier also scales the peaks,
+        # which a shift of a few days rarely does, so the peaks decide between the two.
+        if ratio is not None and shift is not None and not any(_finite(billed[f]) for f in DEMAND_FIELDS):
+            ratio = None
         if ratio is not None:
             details["multiplier"] = round(ratio, 6)
             for f in raw:
                 causes.setdefault(f, "multiplier")
-        if alt is not None and "kwh" in raw and "multiplier" not in details:
-            d = period_shift(billed, k, alt, tol)
-            if d is not None:
-                details["period_shift"] = d
-                for f in raw:
-                    causes.setdefault(f, "period_shift")
+        elif shift is not None:
+            details["period_shift"] = shift
+            for f in raw:
+                causes.setdefault(f, "period_shift")
         if alt is not None:
             lpl = lag_plus_lead(billed, expected, k, alt, tol) & set(raw)
             if lpl:
