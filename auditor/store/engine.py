@@ -49,7 +49,10 @@ def make_engine(url: str) -> Engine:
     try:
         if url.startswith("sqlite"):
             path = url.split("///", 1)[1] if "///" in url else ""
-            if path and path != ":memory:":
+            if path.startswith("file:"):
+                # an SQLite URI (sqlite:///file:PATH?mode=ro&uri=true): its folder is PATH's
+                path = path[5:].split("?", 1)[0]
+            if path and path != ":memory:" and "mode=memory" not in url:
                 try:
                     Path(path).parent.mkdir(parents=True, exist_ok=True)
                 except OSError as exc:
