@@ -81,3 +81,41 @@ def store(request, tmp_path):
             yield s
         finally:
             s.dispose()
+
+
+# --------------------------------------------------------------------------------------------
+# dashboard and report fixtures
+# --------------------------------------------------------------------------------------------
+DEMO_SCENARIO = "demo fixed 150"
+
+
+@pytest.fixture(scope="session")
+def demo_db(tmp_path_factory):
+    """The demo database (invented sites, a year of 15-minute data) built once per session in a
+    tmp dir, with one saved scenario ``DEMO_SCENARIO`` (a fixed 150 kvar bank on KQ-MAIN).
+    Tests may add scenarios under names of their own but must not delete this one."""
+    from auditor.services.correction import SizeRequest, save_scenario, size_meter
+    from auditor.services.demo import DEMO_TARIFF, load_demo
+
+    folder = tmp_path_factory.mktemp("demo-db")
+    s = open_store(f"sqlite:///{folder / 'demo.sqlite3'}")
+    load_demo(s)
+    case = size_meter(s, SizeRequest(meter="KQ-MAIN", tariff=DEMO_TARIFF, fixed_kvar=150.0))
+    save_scenario(s, DEMO_SCENARIO, case)
+    try:
+        yield s
+    finally:
+        s.dispose()
+
+
+@pytest.fixture
+def web_app(demo_db, tmp_path):
+    """The dashboard on the demo database, instance folder in the test's tmp dir."""
+    from auditor.web import create_app
+
+    return create_app({"INSTANCE_PATH": str(tmp_path / "instance"), "TESTING": True}, store=demo_db)
+
+
+@pytest.fixture
+def client(web_app):
+    return web_app.test_client()

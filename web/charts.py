@@ -100,12 +100,18 @@ def reactive_by_period(audit: dict, reactive_keys: list[str]) -> dict:
     cur = audit.get("currency") or ""
     data = []
     for i, key in enumerate(reactive_keys):
+        if not any(p["charges"].get(key) for p in periods):
+            continue  # a clause that charged nothing in any period only clutters the legend
         data.append({"type": "bar", "name": key, "x": labels,
                      "y": [p["charges"].get(key, 0.0) for p in periods],
                      "marker": {"color": EXTRA[i % len(EXTRA)]},
                      "hovertemplate": f"%{{x}} {key}: %{{y:,.2f}} {cur}<extra></extra>"})
-    return {"data": data, "layout": _layout("Reactive charges by billing period", None, f"charge ({cur})",
-                                            barmode="stack")}
+    layout = _layout("Reactive charges by billing period", None, f"charge ({cur})", barmode="stack",
+                     showlegend=True)
+    if not data:
+        layout["annotations"] = [{"xref": "paper", "yref": "paper", "x": 0.5, "y": 0.5, "showarrow": False,
+                                  "text": "no reactive charge in any period"}]
+    return {"data": data, "layout": layout}
 
 
 def peaks_by_period(audit: dict) -> dict:

@@ -12,7 +12,7 @@ from werkzeug.utils import secure_filename
 from auditor.ingest.pipeline import ImportOptions
 from auditor.services import portfolio as pf
 from auditor.services.ingest import import_files
-from auditor.web.forms import UploadForm
+from auditor.web.forms import UploadForm, choices
 from auditor.web.helpers import store
 
 bp = Blueprint("data", __name__)
@@ -25,7 +25,7 @@ def _profiles() -> dict[str, Path]:
 
 def _form() -> UploadForm:
     form = UploadForm()
-    form.profile.choices = [("", "detect the layout")] + [(k, f"profile: {k}") for k in _profiles()]
+    form.profile.choices = choices([("", "detect the layout")] + [(k, f"profile: {k}") for k in _profiles()])
     return form
 
 

@@ -16,7 +16,7 @@ from auditor.services.correction import (
 )
 from auditor.services.ingest import list_meters
 from auditor.web import charts
-from auditor.web.forms import COSTS, DeleteForm, ScenarioForm
+from auditor.web.forms import COSTS, DeleteForm, ScenarioForm, choices
 from auditor.web.helpers import default_tariff_name, store, tariff_choices, tariff_dirs
 
 bp = Blueprint("scenarios", __name__)
@@ -24,8 +24,8 @@ bp = Blueprint("scenarios", __name__)
 
 def _form() -> ScenarioForm:
     form = ScenarioForm()
-    form.meter.choices = [(m["meter"], f"{m['meter']} — {m['site']}") for m in list_meters(store())]
-    form.tariff.choices = [(c.name, c.title) for c in tariff_choices() if not c.error]
+    form.meter.choices = choices((m["meter"], f"{m['meter']} — {m['site']}") for m in list_meters(store()))
+    form.tariff.choices = choices((c.name, c.title) for c in tariff_choices() if not c.error)
     return form
 
 
@@ -42,7 +42,7 @@ def _prefill(form: ScenarioForm, saved: dict | None) -> None:
     from pathlib import Path
 
     stem = Path(str(r.get("tariff") or "")).stem
-    if stem in dict(form.tariff.choices):
+    if stem in {c.value if hasattr(c, 'value') else c[0] for c in form.tariff.choices}:
         form.tariff.data = stem
     form.target_pf.data = r.get("target_pf", 0.95)
     if r.get("optimize"):
