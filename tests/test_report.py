@@ -15,7 +15,14 @@ from auditor.errors import NotFoundError, UsageError
 from auditor.services.correction import get_scenario
 from auditor.services.demo import DEMO_TARIFF
 from auditor.services.meters import load_meter
-from auditor.services.report import DISCLAIMER, build_report, render_csv, render_html, render_xlsx, write_report
+from auditor.services.report import (
+    DISCLAIMER,
+    build_report,
+    render_csv,
+    render_html,
+    render_xlsx,
+    write_report,
+)
 
 
 def read_csv(data: bytes) -> list[dict]:

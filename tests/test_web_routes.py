@@ -10,12 +10,12 @@ import pytest
 from conftest import DEMO_SCENARIO
 from ingest_helpers import day_rows, write_csv
 
+from auditor.ingest.pipeline import ImportOptions
 from auditor.services.audit import audit_meter
 from auditor.services.correction import get_scenario, list_scenarios
 from auditor.services.demo import DEMO_TARIFF
 from auditor.services.ingest import import_files
 from auditor.services.meters import set_site
-from auditor.ingest.pipeline import ImportOptions
 
 EVIL = "<script>alert(1)</script>"
 
@@ -39,7 +39,7 @@ def test_portfolio_lists_every_meter_worst_pf_first(client, demo_db):
     expected = sorted(pfs, key=pfs.get)
     positions = [html.index(f">{m}</a>") for m in expected]
     assert positions == sorted(positions)
-    for m, pf in pfs.items():
+    for pf in pfs.values():
         assert f"{pf:.3f}" in html
     assert "Kestrel Quay Cold Store" in html and "Alder Row Offices" in html
     assert "does not certify" in html

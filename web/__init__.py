@@ -86,11 +86,10 @@ def create_app(config: dict | None = None, store=None) -> Flask:
     register_filters(app.jinja_env.filters)
     security.init_app(app)
 
-    from auditor.web import data, meters, portfolio, scenarios, tariffs
+    from auditor.web import bills, data, meters, portfolio, scenarios, tariffs
 
-    for bp in (portfolio.bp, meters.bp, scenarios.bp, data.bp, tariffs.bp, security.bp):
+    for bp in (portfolio.bp, meters.bp, scenarios.bp, data.bp, tariffs.bp, bills.bp, security.bp):
         app.register_blueprint(bp)
-    from auditor.web import bills as _bills; app.register_blueprint(_bills.bp)  # noqa: E702
 
     @app.errorhandler(CSRFError)
     def _csrf_error(exc):

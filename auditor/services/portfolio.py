@@ -30,7 +30,13 @@ from auditor.correction import size_required, tan_phi
 from auditor.errors import NotFoundError, TariffError, UsageError
 from auditor.quantities import energy_pf
 from auditor.services.audit import MeterAudit, audit_meter
-from auditor.services.correction import SizeCase, SizeRequest, best_scenario, list_scenarios, size_meter
+from auditor.services.correction import (
+    SizeCase,
+    SizeRequest,
+    best_scenario,
+    list_scenarios,
+    size_meter,
+)
 from auditor.services.ingest import list_meters
 from auditor.services.meters import load_meter
 from auditor.store import Store
