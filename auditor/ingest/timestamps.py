@@ -32,6 +32,9 @@ def parse_iso(raw: pd.Series, lines: np.ndarray, column: str, file: str,
         uniform = True
     except (ValueError, TypeError):
         uniform = False
+    if uniform and parsed.isna().any():
+        # pandas reads "NaN", "NaT", "null" as a missing time: never a timestamp here
+        _bad_cells(raw, parsed, lines, column, file, "not an ISO 8601 timestamp")
     if uniform and isinstance(parsed.dtype, pd.DatetimeTZDtype):
         return parsed.dt.tz_convert("UTC").dt.as_unit("s").astype("int64").to_numpy()
     if uniform:

@@ -149,11 +149,7 @@ def _mapping(cols: list[str], file: str, warnings: list[Problem]) -> tuple[list[
 
 def read(path: Path, options: ReadOptions) -> ReadOutput:
     file = str(path)
-    try:
-        with open(path, encoding="utf-8-sig", errors="strict") as fh:
-            head = fh.readline()
-    except UnicodeDecodeError as exc:
-        raise InputError(file, Problem(f"not UTF-8 text (byte {exc.start}: {exc.reason}); save the file as UTF-8", 1)) from None
+    head = plain_csv.read_header_line(path, file)
     info = ReadInfo(format=FORMAT)
     cols, powers, units = _mapping(_header(head), file, info.warnings)
     time_col = plain_csv.check_header([c for c in cols if not c.startswith("__skip_")], file)

@@ -59,8 +59,7 @@ def check_header(cols: list[str], file: str) -> str:
 
 def read(path: Path, options: ReadOptions) -> ReadOutput:
     file = str(path)
-    with open(path, encoding="utf-8-sig", errors="strict") as fh:
-        head = fh.readline()
+    head = read_header_line(path, file)
     cols = header_of(head)
     time_col = check_header(cols, file)
     info = ReadInfo(format=FORMAT)
@@ -76,13 +75,14 @@ def _chunks(path: Path, cols: list[str], time_col: str, options: ReadOptions, fi
     _check_first_row(path, cols, file)
     # index_col=False: a longer row later in the file is a parser error naming its line (pandas
     # would otherwise take surplus leading fields as an index).
-    reader = pd.read_csv(
-        path, header=0, names=cols, dtype=dtypes, chunksize=options.chunk_rows, index_col=False,
-        skip_blank_lines=False, encoding="utf-8-sig", engine="c", on_bad_lines="error",
-        na_filter=True, keep_default_na=False, na_values=[""],
-    )
     first_line = 2
     try:
+        # inside the try: pandas reads the first block when the reader is made
+        reader = pd.read_csv(
+            path, header=0, names=cols, dtype=dtypes, chunksize=options.chunk_rows, index_col=False,
+            skip_blank_lines=False, encoding="utf-8-sig", engine="c", on_bad_lines="error",
+            na_filter=True, keep_default_na=False, na_values=[""],
+        )
         for chunk in reader:
             lines = np.arange(first_line, first_line + len(chunk))
             first_line += len(chunk)
@@ -95,8 +95,30 @@ def _chunks(path: Path, cols: list[str], time_col: str, options: ReadOptions, fi
             yield _canonical(chunk, lines, time_col, options, file)
     except pd.errors.ParserError as exc:
         raise InputError(file, Problem(_parser_message(exc))) from None
-    except UnicodeDecodeError as exc:
-        raise InputError(file, Problem(f"not UTF-8 text (byte {exc.start}: {exc.reason}); save the file as UTF-8")) from None
+    except UnicodeDecodeError:
+        raise InputError(file, undecodable(path)) from None
+
+
+def read_header_line(path: Path, file: str) -> str:
+    """The first line as text; bytes that are not UTF-8 there are an error naming line 1."""
+    with open(path, "rb") as fh:
+        raw = fh.readline()
+    try:
+        return raw.decode("utf-8-sig")
+    except UnicodeDecodeError:
+        raise InputError(file, undecodable(path)) from None
+
+
+def undecodable(path: Path) -> Problem:
+    """Where the file stops being UTF-8: line and byte (pandas' own offset is per chunk)."""
+    with open(path, "rb") as fh:
+        for n, raw in enumerate(fh, start=1):
+            try:
+                raw.decode("utf-8-sig" if n == 1 else "utf-8")
+            except UnicodeDecodeError as exc:
+                return Problem(f"not UTF-8 text (byte {exc.start + 1} of the line: {exc.reason}); save the "
+                               "file as UTF-8", n, f"byte {exc.start + 1}")
+    return Problem("not UTF-8 text; save the file as UTF-8")
 
 
 def _check_first_row(path: Path, cols: list[str], file: str) -> None:
