@@ -160,7 +160,6 @@ def test_cli_import_check_list_dispute(tmp_path):
 @pytest.mark.slow
 def test_demo_finds_the_two_planted_errors_and_the_file_is_reproducible(tmp_path):
     from auditor.demo_data import make_bills
-
     from auditor.services.bills import demo_bill_check, demo_bills_path
     from auditor.services.demo import load_demo
     from auditor.store import open_store

@@ -6,7 +6,6 @@ import pytest
 from auditor.ingest.pipeline import ImportOptions, import_file
 from tests.ingest_helpers import HEADER, day_rows, epoch, reading_count, readings, write_csv
 
-
 # ``store`` (tests/conftest.py) runs each test on SQLite and, when a server is given, PostgreSQL.
 
 

@@ -58,7 +58,7 @@ def import_cmd(ctx: Context, paths, site, tz, profile, estimate_gaps, strict, dr
             bar = click.progressbar(length=approx_rows, label=f"importing {p.name}", file=sys.stderr)
             bar.__enter__()
         try:
-            outcomes.extend(import_files(store, [p], options, (lambda n: bar.update(n)) if bar else None))
+            outcomes.extend(import_files(store, [p], options, bar.update if bar else None))
         finally:
             if bar is not None:
                 bar.__exit__(None, None, None)

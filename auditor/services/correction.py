@@ -8,7 +8,14 @@ from pathlib import Path
 
 from sqlalchemy import select
 
-from auditor.correction import BankDesign, CostInputs, ScenarioResult, SiteElectrical, optimise, run_scenario
+from auditor.correction import (
+    BankDesign,
+    CostInputs,
+    ScenarioResult,
+    SiteElectrical,
+    optimise,
+    run_scenario,
+)
 from auditor.errors import NotFoundError, UsageError
 from auditor.render import to_json
 from auditor.services.audit import resolve_tariff

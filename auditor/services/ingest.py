@@ -9,8 +9,9 @@ from auditor.store import Store
 from auditor.store.queries import meter_summaries
 
 
-def import_files(store: Store, paths: Iterable[str | Path], options: ImportOptions = ImportOptions(),
+def import_files(store: Store, paths: Iterable[str | Path], options: ImportOptions | None = None,
                  progress: Callable[[int], None] | None = None) -> list[FileOutcome]:
+    options = options or ImportOptions()
     return [import_file(store, p, options, progress) for p in paths]
 
 

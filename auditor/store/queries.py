@@ -9,7 +9,16 @@ from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from auditor.errors import NotFoundError
-from auditor.store.models import FLAG_ESTIMATED, FLAG_FILLED, QUANTITIES, ImportBatch, Meter, QualityFlag, Reading, Site
+from auditor.store.models import (
+    FLAG_ESTIMATED,
+    FLAG_FILLED,
+    QUANTITIES,
+    ImportBatch,
+    Meter,
+    QualityFlag,
+    Reading,
+    Site,
+)
 
 
 def now_utc() -> datetime:

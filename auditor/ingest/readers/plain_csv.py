@@ -13,7 +13,14 @@ import numpy as np
 import pandas as pd
 
 from auditor.errors import InputError, Problem
-from auditor.ingest.frame import MAX_PROBLEMS, ReadInfo, ReadOptions, ReadOutput, canonical, numeric_column
+from auditor.ingest.frame import (
+    MAX_PROBLEMS,
+    ReadInfo,
+    ReadOptions,
+    ReadOutput,
+    canonical,
+    numeric_column,
+)
 from auditor.ingest.timestamps import parse_iso
 
 FORMAT = "plain_csv"
