@@ -105,3 +105,15 @@ def test_size_site_per_meter_and_central(demo_db):
     r = run(demo_db, "size", "--meter", "KQ-MAIN", "--site", "X", "--tariff", "harrowgate_industrial_tou",
             "--fixed", "50", rc=2)
     assert "either --meter" in r.stderr
+
+
+def test_audit_explicit_periods(demo_db, tmp_path):
+    periods = tmp_path / "periods.csv"
+    periods.write_text("start,end\n2025-01-14,2025-02-13\n2025-02-13,2025-03-15\n")
+    d = json.loads(run(demo_db, "audit", "--meter", "KQ-DOCKS", "--tariff", "harrowgate_industrial_tou",
+                       "--periods", str(periods), "--json").stdout)
+    assert [(p["start"], p["end"]) for p in d["periods"]] == [("2025-01-14", "2025-02-13"), ("2025-02-13", "2025-03-15")]
+    bad = tmp_path / "bad.csv"
+    bad.write_text("start,end\n2025-01-14,2025-13-01\n")
+    r = run(demo_db, "audit", "--meter", "KQ-DOCKS", "--tariff", "harrowgate_industrial_tou", "--periods", str(bad), rc=1)
+    assert "line 2, column 'end'" in r.stderr

@@ -31,14 +31,19 @@ def audit_table(periods: list[dict], currency: str) -> str:
 @click.option("--from", "start", type=click.DateTime(["%Y-%m-%d"]), help="First local day (inclusive).")
 @click.option("--to", "end", type=click.DateTime(["%Y-%m-%d"]), help="Last local day (exclusive).")
 @click.option("--billing-day", type=click.IntRange(1, 28), help="Day of month billing periods start (default: calendar months).")
+@click.option("--periods", "periods_file", type=click.Path(dir_okay=False),
+              help="CSV of billing periods (header start,end; local dates, end exclusive).")
 @click.option("--json", "json_out", is_flag=True, help="Machine-readable output.")
 @pass_ctx
-def audit_cmd(ctx: Context, meter, tariff, start, end, billing_day, json_out):
+def audit_cmd(ctx: Context, meter, tariff, start, end, billing_day, periods_file, json_out):
     """Energy, demand and every reactive charge per billing period."""
-    from auditor.services.audit import audit_meter
+    from auditor.services.audit import audit_meter, read_periods_file
 
+    if periods_file and billing_day:
+        raise click.UsageError("give either --periods or --billing-day")
+    periods = read_periods_file(periods_file) if periods_file else None
     result = audit_meter(ctx.store, meter, tariff, start=start.date() if start else None,
-                         end=end.date() if end else None, billing_day=billing_day)
+                         end=end.date() if end else None, billing_day=billing_day, periods=periods)
     d = result.to_dict()
     if json_out:
         echo_json(d)

@@ -6,6 +6,8 @@ from datetime import date
 from pathlib import Path
 
 from auditor.audit import AuditResult, audit
+from auditor.errors import AuditorError
+from auditor.quantities import BillingPeriod, check_periods
 from auditor.services.meters import MeterData, load_meter
 from auditor.store import Store
 from auditor.tariffs import Tariff, load_tariff
@@ -39,9 +41,54 @@ def resolve_tariff(tariff: str | Path | Tariff) -> Tariff:
     return load_tariff(p)
 
 
+def read_periods_file(path: str | Path) -> list[BillingPeriod]:
+    """Billing periods from a CSV with columns ``start,end`` (local dates, end exclusive)."""
+    import csv
+
+    from auditor.errors import InputError, Problem
+
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8-sig")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(str(path), Problem(f"cannot read the periods file: {exc}")) from None
+    rows = list(csv.reader(text.splitlines()))
+    if not rows or [c.strip().lower() for c in rows[0]][:2] != ["start", "end"]:
+        raise InputError(str(path), Problem("the header must be start,end", 1))
+    out = []
+    for n, row in enumerate(rows[1:], start=2):
+        if not any(c.strip() for c in row):
+            continue
+        if len(row) != 2:
+            raise InputError(str(path), Problem(f"expected 2 fields, found {len(row)}", n))
+        try:
+            a, b = (date.fromisoformat(c.strip()) for c in row)
+        except ValueError:
+            col = "start"
+            try:
+                date.fromisoformat(row[0].strip())
+                col = "end"
+            except ValueError:
+                pass
+            raise InputError(str(path), Problem("not a date (YYYY-MM-DD)", n, col)) from None
+        if b <= a:
+            raise InputError(str(path), Problem(f"end {b} is not after start {a}", n, "end"))
+        out.append(BillingPeriod(a, b))
+    if not out:
+        raise InputError(str(path), Problem("no periods in the file"))
+    try:
+        return check_periods(out)
+    except AuditorError as exc:
+        raise InputError(str(path), Problem(exc.message)) from None
+
+
 def audit_meter(store: Store, meter: str, tariff: str | Path | Tariff, *, start: date | None = None,
-                end: date | None = None, billing_day: int | None = None) -> MeterAudit:
+                end: date | None = None, billing_day: int | None = None,
+                periods: list[BillingPeriod] | None = None) -> MeterAudit:
     t = resolve_tariff(tariff)
+    if periods:
+        start = start or periods[0].start
+        end = end or periods[-1].end
     data = load_meter(store, meter, start, end)
     if data.frame.empty:
         from auditor.errors import UsageError
@@ -49,5 +96,5 @@ def audit_meter(store: Store, meter: str, tariff: str | Path | Tariff, *, start:
         span = f" between {start} and {end}" if start or end else ""
         raise UsageError(f"meter {meter} has no readings{span}")
     result = audit(data.frame, t, tz=data.timezone, interval_minutes=data.interval_minutes,
-                   start=start, end=end, billing_day=billing_day)
+                   start=start, end=end, billing_day=billing_day, periods=periods)
     return MeterAudit(data, t, result)
