@@ -129,19 +129,29 @@ def peaks_by_period(audit: dict) -> dict:
 
 
 def pf_heatmap(profile) -> dict:
-    """PF per interval: days across, time of day up. ``z`` is sent as days × slots and
-    transposed by plotly, so the payload is one number per interval (365 × 96)."""
+    """PF per interval: days across, time of day down; lagging and leading intervals in two
+    colour scales. Each ``z`` is sent as days × slots and transposed by plotly, one number
+    (or null) per interval."""
     m = np.round(profile.pf_matrix, 3)
-    z = [[None if v != v else v for v in row] for row in m.tolist()]
+    lead = profile.leading_matrix
+    lag_z = [[None if (v != v or ld) else v for v, ld in zip(row, lrow)] for row, lrow in zip(m.tolist(), lead.tolist())]
+    lead_z = [[v if (ld and v == v) else None for v, ld in zip(row, lrow)] for row, lrow in zip(m.tolist(), lead.tolist())]
     slots = m.shape[1]
     step = profile.slot_minutes
     tod = [f"{(i * step) // 60:02d}:{(i * step) % 60:02d}" for i in range(slots)]
-    data = [{"type": "heatmap", "z": z, "x": profile.days, "y": tod, "transpose": True,
-             "zmin": 0.6, "zmax": 1.0, "zauto": False,
-             "colorscale": [[0.0, "#7a1f2b"], [0.45, "#d0783a"], [0.75, "#f2d49b"], [0.875, "#9cc9b4"], [1.0, "#1f6e5c"]],
-             "colorbar": {"title": {"text": "PF"}, "thickness": 12},
-             "hovertemplate": "%{x} %{y}<br>PF %{z:.3f}<extra></extra>", "hoverongaps": False}]
-    return {"data": data, "layout": _layout(f"Power factor by time of day ({profile.timezone})", None, "time of day",
+    common = {"x": profile.days, "y": tod, "transpose": True, "zmin": 0.6, "zmax": 1.0, "zauto": False,
+              "hoverongaps": False, "xgap": 0, "ygap": 0}
+    data = [dict(common, type="heatmap", name="lagging", z=lag_z,
+                 colorscale=[[0.0, "#7a1f2b"], [0.45, "#d0783a"], [0.75, "#f2d49b"], [0.875, "#9cc9b4"], [1.0, "#1f6e5c"]],
+                 colorbar={"title": {"text": "PF lagging"}, "thickness": 12, "len": 0.5, "y": 0.75},
+                 hovertemplate="%{x} %{y}<br>PF %{z:.3f} lagging<extra></extra>")]
+    if lead.any():
+        data.append(dict(common, type="heatmap", name="leading", z=lead_z,
+                         colorscale=[[0.0, "#1b2f6b"], [0.5, "#5b7fc7"], [1.0, "#cfe0f5"]],
+                         colorbar={"title": {"text": "PF leading"}, "thickness": 12, "len": 0.45, "y": 0.22},
+                         hovertemplate="%{x} %{y}<br>PF %{z:.3f} leading<extra></extra>"))
+    return {"data": data, "layout": _layout(f"Power factor by time of day ({profile.timezone}); blue: leading",
+                                            None, "time of day",
                                             yaxis={"autorange": "reversed", "dtick": 4 * 60 // step if step <= 60 else 1,
                                                    "type": "category"},
                                             xaxis={"type": "date"})}

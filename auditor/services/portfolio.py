@@ -28,7 +28,7 @@ from sqlalchemy import func, select
 
 from auditor.correction import size_required, tan_phi
 from auditor.errors import NotFoundError, TariffError, UsageError
-from auditor.quantities import energy_pf
+from auditor.quantities import power_factor
 from auditor.services.audit import MeterAudit, audit_meter
 from auditor.services.correction import (
     SizeCase,
@@ -225,7 +225,10 @@ class MeterProfile:
     slot_minutes : int
         Width of a heat-map column (the meter's interval).
     pf_matrix : numpy.ndarray
-        (days, slots per day) lagging-energy PF per interval, NaN where no data or no load.
+        (days, slots per day) PF per interval from kWh and net kvarh (|P| / |S|, IEEE Std
+        1459-2010), NaN where no data or no load.
+    leading_matrix : numpy.ndarray of bool
+        Where the interval's net reactive energy is leading (capacitive).
         On the autumn DST day the repeated hour keeps its second occurrence; on the spring
         day the skipped hour stays empty.
     scatter_kw, scatter_kvar : numpy.ndarray
@@ -245,6 +248,7 @@ class MeterProfile:
     days: list[str]
     slot_minutes: int
     pf_matrix: np.ndarray
+    leading_matrix: np.ndarray
     scatter_kw: np.ndarray
     scatter_kvar: np.ndarray
     n_intervals: int
@@ -269,9 +273,13 @@ def _profile(store: Store, meter: str, target_pf: float) -> MeterProfile:
     slots = 1440 // minutes
     row = ((day - first).days).to_numpy()
     col = ((local.hour * 60 + local.minute) // minutes).to_numpy()
-    pf = energy_pf(f["kwh"].to_numpy(dtype=float), f["kvarh_lag"].to_numpy(dtype=float))
+    kwh = f["kwh"].to_numpy(dtype=float)
+    kvarh_net = f["kvarh_lag"].to_numpy(dtype=float) - f["kvarh_lead"].to_numpy(dtype=float)
+    pf, sense = power_factor(kwh, kvarh_net)
     matrix = np.full((ndays, slots), np.nan)
     matrix[row, col] = pf
+    leading = np.zeros((ndays, slots), dtype=bool)
+    leading[row, col] = sense == "lead"
     days = [d.date().isoformat() for d in pd.date_range(first, periods=ndays, freq="D")]
     to_demand = 60.0 / minutes
     kw = f["kwh"].to_numpy(dtype=float) * to_demand
@@ -281,6 +289,7 @@ def _profile(store: Store, meter: str, target_pf: float) -> MeterProfile:
     curve = sizing.duration_curve(101)
     return MeterProfile(
         meter=meter, timezone=data.timezone, days=days, slot_minutes=minutes, pf_matrix=matrix,
+        leading_matrix=leading,
         scatter_kw=kw[::step], scatter_kvar=kvar[::step], n_intervals=len(kw),
         duration_percent=[c["percent_of_intervals"] for c in curve],
         duration_kvar=[c["kvar"] for c in curve], kvar_at_95=sizing.kvar_at_quantile,
