@@ -145,7 +145,7 @@ def test_entity_tricks(world, depth, external):
         data = (b'<?xml version="1.0"?>\n<!DOCTYPE f [<!ENTITY x SYSTEM "file:///etc/passwd">]>\n'
                 b'<feed xmlns="http://www.w3.org/2005/Atom"><title>&x;</title>' + BASE_XML.split(b"<feed", 1)[1].split(b">", 1)[1])
     else:
-        ents = "".join(f'<!ENTITY e{i} "{("&e%d;" % (i - 1)) * 10 if i else "ha"}">' for i in range(depth))
+        ents = "".join(f'<!ENTITY e{i} "{f"&e{i - 1};" * 10 if i else "ha"}">' for i in range(depth))
         data = (f'<?xml version="1.0"?>\n<!DOCTYPE feed [{ents}]>\n<feed><title>&e{depth - 1};</title>'
                 "<entry><content><IntervalBlock xmlns=\"http://naesb.org/espi\"/></content></entry></feed>").encode()
     check(world, "entities", data if depth % 2 else BOMB, ".xml")

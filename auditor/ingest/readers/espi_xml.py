@@ -49,7 +49,14 @@ from defusedxml import DefusedXmlException
 from defusedxml.ElementTree import DefusedXMLParser
 
 from auditor.errors import InputError, Problem
-from auditor.ingest.frame import ALLOWED_INTERVALS, MAX_PROBLEMS, ReadInfo, ReadOptions, ReadOutput, canonical
+from auditor.ingest.frame import (
+    ALLOWED_INTERVALS,
+    MAX_PROBLEMS,
+    ReadInfo,
+    ReadOptions,
+    ReadOutput,
+    canonical,
+)
 
 FORMAT = "espi_xml"
 _SNIFF_RE = re.compile(r"<(?:\w+:)?(?:IntervalBlock|ReadingType|UsagePoint|MeterReading)\b")
