@@ -92,7 +92,7 @@ def _read_all(path: Path, options: ImportOptions, progress: Callable[[int], None
     names: dict[str, int] = {}
     parts = []
     for chunk in output.chunks:
-        uniq, inv = np.unique(chunk["meter"].to_numpy(dtype=object).astype(str), return_inverse=True)
+        inv, uniq = pd.factorize(chunk["meter"].to_numpy(dtype=object))
         local = np.array([names.setdefault(u, len(names)) for u in uniq], dtype=np.int32)
         chunk = chunk.drop(columns="meter")
         chunk["meter"] = local[inv]

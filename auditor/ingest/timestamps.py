@@ -25,13 +25,16 @@ def parse_iso(raw: pd.Series, lines: np.ndarray, column: str, file: str,
     (an error without it); a repeated autumn hour is resolved by file order, a spring-forward
     time that does not exist is an error naming the line.
     """
-    raw = raw.astype("string").str.strip()
     try:
-        # Fast path: every string carries the same offset (or none): one C-level parse.
+        # Fast path: every string carries the same offset (or none): one C-level parse, which
+        # also ignores surrounding blanks.
         parsed = pd.to_datetime(raw, format="ISO8601")
         uniform = True
     except (ValueError, TypeError):
         uniform = False
+    if not (uniform and isinstance(parsed.dtype, pd.DatetimeTZDtype)):
+        # the slower paths look at the text itself
+        raw = raw.astype("string").str.strip()
     if uniform and parsed.isna().any():
         # pandas reads "NaN", "NaT", "null" as a missing time: never a timestamp here
         _bad_cells(raw, parsed, lines, column, file, "not an ISO 8601 timestamp")

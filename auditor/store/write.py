@@ -35,21 +35,6 @@ def _ph(conn: Connection, n: int) -> str:
     return ", ".join([mark] * n)
 
 
-def _none_for_nan(a: np.ndarray) -> list:
-    lst = a.tolist()
-    if np.isnan(a).any():
-        return [None if x != x else x for x in lst]
-    return lst
-
-
-def _columns(meter_id: int, start: np.ndarray, values: dict[str, np.ndarray], flags: np.ndarray,
-             batch_id: int, nan_to_none: bool) -> list[list]:
-    n = len(start)
-    conv = _none_for_nan if nan_to_none else (lambda a: a.tolist())
-    return [[meter_id] * n, start.tolist(), *[conv(values[q]) for q in QUANTITIES],
-            flags.tolist(), [batch_id] * n]
-
-
 def insert_rows(conn: Connection, meter_id: int, start: np.ndarray, values: dict[str, np.ndarray],
                 flags: np.ndarray, batch_id: int) -> int:
     if not len(start):
@@ -66,16 +51,49 @@ def insert_rows(conn: Connection, meter_id: int, start: np.ndarray, values: dict
 
 
 def _executemany_rows(conn, meter_id, start, values, flags, batch_id) -> int:
-    # SQLite stores a bound NaN as NULL, which is what an absent channel means.
-    sql = f"INSERT INTO reading ({', '.join(READING_COLUMNS)}) VALUES ({_ph(conn, len(READING_COLUMNS))})"
+    """The SQLite bulk path: one prepared INSERT, rows bound as tuples.
+
+    Columns that are the same for every row of the call (the meter, the batch, an absent
+    channel, flags when none is set) are written into the statement as literals, so each row
+    binds only what varies: in the common case 4 values instead of 8, which is most of the cost.
+    All literals are integers or NULL produced here, never text from a file.
+    """
+    n = len(start)
+    exprs: list[str] = []
+    varying: list[np.ndarray] = []
+    mark = "?" if conn.dialect.paramstyle == "qmark" else "%s"
+    for col in READING_COLUMNS:
+        if col == "meter_id":
+            exprs.append(str(int(meter_id)))
+        elif col == "batch_id":
+            exprs.append(str(int(batch_id)))
+        elif col == "flags":
+            if n and (flags == flags[0]).all():
+                exprs.append(str(int(flags[0])))
+            else:
+                exprs.append(mark)
+                varying.append(flags)
+        elif col == "start":
+            exprs.append(mark)
+            varying.append(start)
+        else:
+            v = values[col]
+            if np.isnan(v).all():
+                exprs.append("NULL")
+            else:
+                # SQLite stores a bound NaN as NULL, which is what a missing value means
+                exprs.append(mark)
+                varying.append(v)
+    sql = f"INSERT INTO reading ({', '.join(READING_COLUMNS)}) VALUES ({', '.join(exprs)})"
     raw = conn.connection.driver_connection
     cur = raw.cursor()
-    for lo in range(0, len(start), BATCH_ROWS):
-        sl = slice(lo, lo + BATCH_ROWS)
-        cols = _columns(meter_id, start[sl], {q: v[sl] for q, v in values.items()}, flags[sl], batch_id, False)
-        cur.executemany(sql, zip(*cols, strict=True))
-    cur.close()
-    return len(start)
+    try:
+        for lo in range(0, n, BATCH_ROWS):
+            cols = [a[lo:lo + BATCH_ROWS].tolist() for a in varying]
+            cur.executemany(sql, zip(*cols, strict=True))
+    finally:
+        cur.close()
+    return n
 
 
 # PostgreSQL binary COPY: the fixed binary header, and the trailer (a field count of -1)
