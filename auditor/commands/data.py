@@ -27,9 +27,12 @@ def _progress_wanted(ctx: Context, json_out: bool) -> bool:
 @click.option("--dry-run", is_flag=True, help="Read and validate only; write nothing.")
 @click.option("--inbox", type=click.Path(file_okay=False, path_type=Path),
               help="Process every file in DIR, moving each to DIR/done or DIR/rejected.")
+@click.option("--wait", "wait_seconds", type=click.FloatRange(0, 86400), default=0, show_default=True,
+              help="With --inbox: seconds to wait for another run's lock before giving up.")
 @click.option("--json", "json_out", is_flag=True, help="Machine-readable output.")
 @pass_ctx
-def import_cmd(ctx: Context, paths, site, tz, profile, estimate_gaps, strict, dry_run, inbox, json_out):
+def import_cmd(ctx: Context, paths, site, tz, profile, estimate_gaps, strict, dry_run, inbox, wait_seconds,
+               json_out):
     """Import meter exports (plain CSV, day-per-row CSV, or any CSV through --profile)."""
     options = ImportOptions(site=site, timezone=tz, profile_path=str(profile) if profile else None,
                             estimate_gaps=estimate_gaps, strict=strict, dry_run=dry_run)
@@ -38,12 +41,16 @@ def import_cmd(ctx: Context, paths, site, tz, profile, estimate_gaps, strict, dr
 
         if paths:
             raise click.UsageError("give either --inbox DIR or files, not both")
-        result = run_inbox(ctx.store, inbox, options)
+        result = run_inbox(ctx.store, inbox, options, wait_seconds=wait_seconds)
         files = result["files"]
         if json_out:
             echo_json(result)
         else:
             _print_outcomes(files, result.get("message"))
+            for skipped in result.get("skipped", []):
+                if isinstance(skipped, dict):
+                    skipped = f"{skipped.get('path', '')} ({skipped.get('reason', '')})"
+                click.echo(f"skipped   {skipped}")
         return 1 if any(f["status"] == "rejected" for f in files) else 0
     if not paths:
         raise click.UsageError("give at least one file to import (or --inbox DIR)")
