@@ -81,18 +81,23 @@ def bank_of(req: SizeRequest) -> BankDesign | None:
     return None
 
 
+def _scenario_inputs(data: MeterData, req: SizeRequest, start: date | None, end: date | None) -> dict:
+    """The keyword arguments run_scenario and optimise share: site facts, costs, options."""
+    site = SiteElectrical(transformer_kva=data.transformer_kva,
+                          transformer_impedance_percent=data.transformer_impedance_percent,
+                          nominal_voltage_v=data.nominal_voltage_v)
+    return dict(tz=data.timezone, interval_minutes=data.interval_minutes, target_pf=req.target_pf,
+                costs=CostInputs(**req.costs) if req.costs else CostInputs(), site=site, start=start,
+                end=end, leading_pf_limit=req.leading_pf_limit)
+
+
 def size_meter(store: Store, req: SizeRequest, tariff: Tariff | None = None) -> SizeCase:
     t = tariff or resolve_tariff(req.tariff)
     start, end = _date(req.start), _date(req.end)
     data = load_meter(store, req.meter, start, end)
     if data.frame.empty:
         raise UsageError(f"meter {req.meter} has no readings to size a bank on")
-    costs = CostInputs(**req.costs) if req.costs else CostInputs()
-    site = SiteElectrical(transformer_kva=data.transformer_kva,
-                          transformer_impedance_percent=data.transformer_impedance_percent,
-                          nominal_voltage_v=data.nominal_voltage_v)
-    common = dict(tz=data.timezone, interval_minutes=data.interval_minutes, target_pf=req.target_pf,
-                  costs=costs, site=site, start=start, end=end, leading_pf_limit=req.leading_pf_limit)
+    common = _scenario_inputs(data, req, start, end)
     bank = bank_of(req)
     if bank is None:
         result = optimise(data.frame, t, **common)
@@ -194,13 +199,7 @@ def size_site(store: Store, site: str, req: SizeRequest, mode: str = "central") 
     minutes = {d.interval_minutes for d in datas.values()}
     if len(minutes) != 1:
         raise UsageError(f"the meters of site {site!r} have different interval lengths: {sorted(minutes)}")
-    first = next(iter(datas.values()))
-    costs = CostInputs(**req.costs) if req.costs else CostInputs()
-    elec = SiteElectrical(transformer_kva=first.transformer_kva,
-                          transformer_impedance_percent=first.transformer_impedance_percent,
-                          nominal_voltage_v=first.nominal_voltage_v)
-    common = dict(tz=first.timezone, interval_minutes=first.interval_minutes, target_pf=req.target_pf,
-                  costs=costs, site=elec, start=start, end=end, leading_pf_limit=req.leading_pf_limit)
+    common = _scenario_inputs(next(iter(datas.values())), req, start, end)
     frames = {n: d.frame for n, d in datas.items()}
     bank = bank_of(req)
     if bank is None:
