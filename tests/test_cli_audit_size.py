@@ -117,3 +117,16 @@ def test_audit_explicit_periods(demo_db, tmp_path):
     bad.write_text("start,end\n2025-01-14,2025-13-01\n")
     r = run(demo_db, "audit", "--meter", "KQ-DOCKS", "--tariff", "harrowgate_industrial_tou", "--periods", str(bad), rc=1)
     assert "line 2, column 'end'" in r.stderr
+
+
+def test_size_capacitor_voltage_derates_output(demo_db):
+    # output scales by (U_site / U_rated)^2: 400 V site, 440 V capacitors -> 0.826 (common practice)
+    base = json.loads(run(demo_db, "size", "--meter", "KQ-MAIN", "--tariff", "harrowgate_industrial_tou",
+                          "--bank", "4x25", "--json").stdout)
+    derated = json.loads(run(demo_db, "size", "--meter", "KQ-MAIN", "--tariff", "harrowgate_industrial_tou",
+                             "--bank", "4x25", "--capacitor-voltage", "440", "--json").stdout)
+    assert derated["mean_output_kvar"] < base["mean_output_kvar"]
+    assert derated["annual_savings"] < base["annual_savings"]
+    leading = json.loads(run(demo_db, "size", "--meter", "KQ-MAIN", "--tariff", "harrowgate_industrial_tou",
+                             "--bank", "4x25", "--leading-limit", "0.97", "--json").stdout)
+    assert leading["request"]["leading_pf_limit"] == 0.97

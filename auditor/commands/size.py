@@ -52,6 +52,10 @@ def render_case(d: dict) -> str:
 @click.option("--optimize", "--optimise", "optimize", is_flag=True, help="Search designs for the best NPV that passes screening.")
 @click.option("--detuning", "detuning_percent", type=click.Choice(["0", "5.67", "7", "14"]), default="0",
               show_default=True, help="Series reactor, percent (with --fixed/--bank).")
+@click.option("--leading-limit", "leading_pf_limit", type=click.FloatRange(0.5, 1.0),
+              help="Let the automatic controller go leading down to this PF (default: never leading).")
+@click.option("--capacitor-voltage", "capacitor_rated_voltage_v", type=click.FloatRange(min=0, min_open=True),
+              help="Rated voltage of the capacitors, V: output scales by (V_site / V_rated)².")
 @click.option("--capex-per-kvar", type=click.FloatRange(min=0), help="Installed cost per kvar.")
 @click.option("--capex-fixed", type=click.FloatRange(min=0), help="Fixed installed cost.")
 @click.option("--life-years", type=click.IntRange(1, 60), help="Economic life (default 15).")
@@ -63,7 +67,7 @@ def render_case(d: dict) -> str:
 @click.option("--json", "json_out", is_flag=True)
 @pass_ctx
 def size_cmd(ctx: Context, meter, site, mode, tariff, target_pf, fixed_kvar, steps, optimize, detuning_percent,
-             capex_per_kvar, capex_fixed, life_years, discount_rate, escalation, start, end, save_as, json_out):
+             leading_pf_limit, capacitor_rated_voltage_v, capex_per_kvar, capex_fixed, life_years, discount_rate, escalation, start, end, save_as, json_out):
     """Size power factor correction and cost the case."""
     from auditor.services.correction import SizeRequest, save_scenario, size_meter
 
@@ -72,6 +76,7 @@ def size_cmd(ctx: Context, meter, site, mode, tariff, target_pf, fixed_kvar, ste
                                ("escalation", escalation)) if v is not None}
     req = SizeRequest(meter=meter or "", tariff=tariff, target_pf=target_pf, fixed_kvar=fixed_kvar, steps=steps,
                       optimize=optimize, detuning_percent=float(detuning_percent), costs=costs,
+                      leading_pf_limit=leading_pf_limit, capacitor_rated_voltage_v=capacitor_rated_voltage_v,
                       start=start.date().isoformat() if start else None, end=end.date().isoformat() if end else None)
     if bool(meter) == bool(site):
         raise click.UsageError("give either --meter M or --site NAME")

@@ -41,6 +41,7 @@ class SizeRequest:
     start: str | None = None
     end: str | None = None
     leading_pf_limit: float | None = None
+    capacitor_rated_voltage_v: float | None = None
 
     def to_dict(self) -> dict:
         return {k: getattr(self, k) for k in self.__dataclass_fields__}
@@ -75,9 +76,11 @@ def bank_of(req: SizeRequest) -> BankDesign | None:
     if len(chosen) != 1:
         raise UsageError("choose exactly one of --fixed KVAR, --bank STEPS or --optimize")
     if req.fixed_kvar is not None:
-        return BankDesign.fixed(req.fixed_kvar, detuning_percent=req.detuning_percent)
+        return BankDesign.fixed(req.fixed_kvar, detuning_percent=req.detuning_percent,
+                                capacitor_rated_voltage_v=req.capacitor_rated_voltage_v)
     if req.steps:
-        return BankDesign.automatic(req.steps, detuning_percent=req.detuning_percent)
+        return BankDesign.automatic(req.steps, detuning_percent=req.detuning_percent,
+                                    capacitor_rated_voltage_v=req.capacitor_rated_voltage_v)
     return None
 
 
