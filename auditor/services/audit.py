@@ -38,6 +38,12 @@ def resolve_tariff(tariff: str | Path | Tariff) -> Tariff:
         cand = EXAMPLES_DIR / (p.name if p.suffix == ".toml" else f"{p.name}.toml")
         if cand.exists():
             p = cand
+        else:
+            from auditor.errors import NotFoundError
+
+            shipped = ", ".join(sorted(x.stem for x in EXAMPLES_DIR.glob("*.toml")))
+            raise NotFoundError(f"no tariff file {str(tariff)!r}, and no shipped example of that name "
+                             f"(examples: {shipped})")
     return load_tariff(p)
 
 
