@@ -10,7 +10,13 @@ from numpy.testing import assert_allclose
 
 from auditor.audit import prepare_audit
 from auditor.correction import BankDesign, SiteElectrical, bank_output_kvar
-from auditor.correction.optimiser import _outputs, candidate_designs, default_sizes, optimise
+from auditor.correction.optimiser import (
+    STANDARD_STEP_KVAR,
+    _outputs,
+    candidate_designs,
+    default_sizes,
+    optimise,
+)
 from auditor.correction.scenario import run_scenario
 from auditor.errors import UsageError
 from auditor.render import to_json
@@ -45,10 +51,16 @@ def test_candidates_built_from_sizes():
                                 detuning=(0.0, 7.0), nominal_voltage_v=400)
     labels = {d.label for d in designs}
     assert "fixed 30 kvar" in labels and "automatic 4x25 kvar, 7 % detuned" in labels
-    # 1:1:2:2 of 100 kvar: 16.7, 16.7, 33.3, 33.3; of 30 kvar the 5 kvar unit is kept (>= 5)
+    # 1:1:2:2 of 30 kvar: 5, 5, 10, 10 (5 kvar units are sold); of 100 kvar the 16.7 kvar unit
+    # is not a step size anyone sells, so that pattern is left out
     mixed = [d for d in designs if d.kind == "automatic" and len(set(d.steps_kvar)) == 2]
-    assert_allclose(mixed[-1].steps_kvar, [100 / 6, 100 / 6, 100 / 3, 100 / 3])
-    assert len(designs) == 2 * 2 * 3
+    assert {d.steps_kvar for d in mixed} == {(5.0, 5.0, 10.0, 10.0)}
+    # equal steps of standard sizes fill in: 30 = 6x5 = 3x10; 100 = 8x12.5 = 5x20
+    assert {"automatic 6x5 kvar", "automatic 3x10 kvar", "automatic 8x12.5 kvar", "automatic 5x20 kvar"} <= labels
+    assert all(any(abs(s - u) < 1e-9 for u in STANDARD_STEP_KVAR) for d in designs if d.kind == "automatic"
+               for s in d.steps_kvar)
+    # per detuning: 30 kvar fixed + 4 automatic, 100 kvar fixed + 3 automatic
+    assert len(designs) == 2 * (5 + 4)
     assert all(d.capacitor_rated_voltage_v == 440 for d in designs if d.detuned)
     with pytest.raises(UsageError, match="pattern"):
         candidate_designs((100,), step_patterns=((1, 0),))
@@ -70,7 +82,8 @@ def test_optimiser_picks_best_passing_npv_and_matches_a_direct_run():
     res = optimise(frame, TARIFF, tz=TZ, interval_minutes=15, site=SITE,
                    sizes=(100, 150, 200, 250, 300), sensitivity=False)
     table = res.candidates
-    assert len(table) == 5 * 2 * 4
+    assert len(table) == len(candidate_designs((100, 150, 200, 250, 300), nominal_voltage_v=SITE.nominal_voltage_v))
+    assert len(table) > 5 * 2 * 4
     passed = [c for c in table if c["passed_screening"]]
     assert passed and any(not c["passed_screening"] for c in table)
     chosen = [c for c in table if c["chosen"]]

@@ -43,6 +43,13 @@ STANDARD_KVAR = (10, 15, 20, 25, 30, 40, 50, 60, 75, 100, 125, 150, 175, 200, 25
 #: equal steps, and the 1:1:2:2 sequence (six-step resolution from four contactors) — common
 #: practice.
 STEP_PATTERNS: tuple[tuple[int, ...], ...] = ((1, 1, 1, 1), (1, 1, 1, 1, 1, 1), (1, 1, 2, 2))
+#: Step (capacitor unit) sizes commonly sold for LV banks, kvar — common practice
+#: (illustrative list). Automatic candidates are built only from these, so every design the
+#: optimiser proposes can be bought as specified (no 29.17 kvar steps).
+STANDARD_STEP_KVAR = (5, 7.5, 10, 12.5, 15, 20, 25, 30, 40, 50, 60, 75, 100, 125, 150, 200)
+#: Numbers of equal steps tried beyond the patterns (controller outputs usually 3 to 8 stages
+#: or more; more steps follow the load more closely) — common practice.
+EQUAL_STEP_COUNTS = (3, 4, 5, 6, 7, 8)
 #: Smallest step worth switching, kvar — common practice.
 MIN_STEP_KVAR = 5.0
 #: Capacitor rated voltage per system voltage for detuned banks (e.g. 440 V capacitors on a
@@ -68,13 +75,27 @@ def candidate_designs(sizes: Sequence[float], *,
                 cap_v = round(nominal_voltage_v * ratio)
             if include_fixed:
                 designs.append(BankDesign.fixed(float(total), p, cap_v))
+            seen: set[tuple[float, ...]] = set()
             for pattern in step_patterns:
                 if not pattern or any(int(k) < 1 for k in pattern):
                     raise UsageError(f"step pattern {tuple(pattern)!r}: use whole numbers >= 1")
                 unit = float(total) / sum(int(k) for k in pattern)
-                if unit * min(pattern) >= MIN_STEP_KVAR:
-                    designs.append(BankDesign("automatic", tuple(unit * int(k) for k in pattern), p, cap_v))
+                if unit * min(pattern) >= MIN_STEP_KVAR and _standard_step(unit):
+                    steps = tuple(unit * int(k) for k in pattern)
+                    seen.add(steps)
+                    designs.append(BankDesign("automatic", steps, p, cap_v))
+            for step in STANDARD_STEP_KVAR:
+                count = float(total) / step
+                if step >= MIN_STEP_KVAR and abs(count - round(count)) < 1e-9 and round(count) in EQUAL_STEP_COUNTS:
+                    steps = (float(step),) * round(count)
+                    if steps not in seen:
+                        seen.add(steps)
+                        designs.append(BankDesign("automatic", steps, p, cap_v))
     return designs
+
+
+def _standard_step(kvar: float) -> bool:
+    return any(abs(kvar - s) < 1e-9 for s in STANDARD_STEP_KVAR)
 
 
 def default_sizes(prepared, target_pf: float, limit: float = 1.25) -> tuple[float, ...]:
