@@ -44,8 +44,7 @@ def main() -> None:
     tariff = load_tariff(EXAMPLES_DIR / "harrowgate_industrial_tou.toml")
     site = SiteElectrical(transformer_kva=1000, transformer_impedance_percent=6, nominal_voltage_v=400)
     sizes = (50, 75, 100, 125, 150, 200, 250, 300, 350, 400, 450, 500)
-    designs = candidate_designs(sizes, detuning=(0.0, 7.0),
-                                nominal_voltage_v=400)
+    designs = candidate_designs(sizes, detuning=(0.0, 5.67, 7.0, 14.0), nominal_voltage_v=400)[:100]
     print(f"intervals: {len(frame)}, candidates: {len(designs)}")
     times = []
     for _ in range(args.repeat):
