@@ -268,3 +268,14 @@ def test_rows_with_too_many_or_too_few_fields(store, tmp_path):
     out = import_file(store, short)
     assert out.status == "rejected" and out.errors[0].column == "kvarh_lead" and out.errors[0].line == 2
     assert reading_count(store) == 0
+
+
+def test_autumn_repeated_hour_for_two_meters_in_one_file(store, tmp_path):
+    # the repeated 02:00-02:45 is resolved by row order within each meter (common practice)
+    lines = _local_day("2025-10-26", 25)
+    lines += [r.replace("M1,", "M2,", 1) for r in lines]
+    out = import_file(store, write_csv(tmp_path / "a.csv", lines), ImportOptions(timezone="Europe/Berlin"))
+    assert out.status == "imported", out.errors
+    df = readings(store)
+    assert len(df) == 200
+    assert df.groupby("meter_id")["start"].diff().dropna().eq(900).all()

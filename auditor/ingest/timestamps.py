@@ -18,12 +18,12 @@ def _bad_cells(raw: pd.Series, parsed: pd.Series, lines: np.ndarray, column: str
 
 
 def parse_iso(raw: pd.Series, lines: np.ndarray, column: str, file: str,
-              timezone: str | None) -> np.ndarray:
+              timezone: str | None, meters: np.ndarray | None = None) -> np.ndarray:
     """UTC epoch seconds from ISO 8601 strings.
 
     Strings with a UTC offset are exact. Strings without one are local wall time in ``timezone``
-    (an error without it); a repeated autumn hour is resolved by file order, a spring-forward
-    time that does not exist is an error naming the line.
+    (an error without it); a repeated autumn hour is resolved by file order (per meter when
+    ``meters`` is given), a spring-forward time that does not exist is an error naming the line.
     """
     try:
         # Fast path: every string carries the same offset (or none): one C-level parse, which
@@ -42,7 +42,7 @@ def parse_iso(raw: pd.Series, lines: np.ndarray, column: str, file: str,
         return parsed.dt.tz_convert("UTC").dt.as_unit("s").astype("int64").to_numpy()
     if uniform:
         # naive: wall time
-        return localise(parsed, lines, column, file, timezone, raw)
+        return localise(parsed, lines, column, file, timezone, raw, meters)
     has_offset = raw.str.contains(_OFFSET_RE, regex=True).fillna(False).to_numpy()
     if has_offset.all():
         parsed = pd.to_datetime(raw, format="ISO8601", utc=True, errors="coerce")
@@ -55,7 +55,7 @@ def parse_iso(raw: pd.Series, lines: np.ndarray, column: str, file: str,
             int(lines[i]), column))
     parsed = pd.to_datetime(raw, format="ISO8601", errors="coerce")
     _bad_cells(raw, parsed, lines, column, file, "not an ISO 8601 timestamp")
-    return localise(parsed, lines, column, file, timezone, raw)
+    return localise(parsed, lines, column, file, timezone, raw, meters)
 
 
 def localise(naive: pd.Series, lines: np.ndarray, column: str, file: str, timezone: str | None,

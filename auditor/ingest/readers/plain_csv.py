@@ -165,7 +165,7 @@ def _canonical(chunk: pd.DataFrame, lines: np.ndarray, time_col: str, options: R
     if missing.any():
         raise InputError(file, [Problem("empty timestamp", int(lines[i]), time_col)
                                 for i in np.flatnonzero(missing)[:MAX_PROBLEMS]])
-    start = parse_iso(raw_time, lines, time_col, file, options.timezone)
+    start = parse_iso(raw_time, lines, time_col, file, options.timezone, meter_ids)
     values = {q: numeric_column(chunk[q], lines, q, file) for q in ("kwh", "kvarh_lag", "kvarh_lead")}
     received = (numeric_column(chunk["kwh_received"], lines, "kwh_received", file)
                 if "kwh_received" in chunk.columns else None)
