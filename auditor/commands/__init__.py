@@ -10,11 +10,6 @@ MODULES = ("data", "audit", "size", "bills", "report", "serve", "demo")
 
 def register(group: click.Group) -> None:
     for name in MODULES:
-        try:
-            module = importlib.import_module(f"auditor.commands.{name}")
-        except ModuleNotFoundError as exc:
-            if exc.name == f"auditor.commands.{name}":
-                continue  # an area not built yet
-            raise
+        module = importlib.import_module(f"auditor.commands.{name}")
         for cmd in module.commands:
             group.add_command(cmd)

@@ -4,7 +4,7 @@ from __future__ import annotations
 import click
 
 from auditor.cli import Context, pass_ctx
-from auditor.render import echo_json, fmt, table
+from auditor.render import echo_json, table
 
 
 @click.command("demo")
@@ -27,6 +27,7 @@ def demo_cmd(ctx: Context, no_serve: bool, port: int, json_out: bool):
     audits = {m["meter"]: audit_meter(store, m["meter"], demo.DEMO_TARIFF).to_dict() for m in summary["meters"]}
     summary["audits"] = audits
     extra = demo_extensions(store)
+    sections = extra.pop("_render")
     summary.update(extra)
     summary["database"] = safe_url(store.url)
     if json_out:
@@ -45,7 +46,7 @@ def demo_cmd(ctx: Context, no_serve: bool, port: int, json_out: bool):
         t = a["totals"]
         rows.append([meter, t.get("kwh"), t.get("pf"), t.get("total"), t.get("reactive_total")])
     click.echo(table(["meter", "kWh", "energy PF", f"total {a['currency']}", f"reactive {a['currency']}"], rows))
-    for section in extra.get("_render", []):
+    for section in sections:
         click.echo("")
         click.echo(section)
     if not no_serve:
@@ -56,26 +57,16 @@ def demo_cmd(ctx: Context, no_serve: bool, port: int, json_out: bool):
 
 
 def demo_extensions(store) -> dict:
-    """Later stages of the demo (savings case, bill check), when those areas are installed."""
+    """The later stages of the demo: the savings case and the bill check."""
+    from auditor.services.bills import demo_bill_check
+    from auditor.services.demo_case import savings_case
+
     out: dict = {"_render": []}
-    try:
-        from auditor.services.demo_case import savings_case
-    except ModuleNotFoundError:
-        savings_case = None
-    if savings_case is not None:
-        case = savings_case(store)
-        out["savings_case"] = case["data"]
-        out["_render"].append(case["text"])
-    try:
-        from auditor.services.bills import demo_bill_check as bill_check
-    except ImportError:
-        bill_check = None
-    if bill_check is not None:
-        check = bill_check(store)
-        out["bill_check"] = check["data"]
-        out["_render"].append(check["text"])
+    for key, stage in (("savings_case", savings_case), ("bill_check", demo_bill_check)):
+        result = stage(store)
+        out[key] = result["data"]
+        out["_render"].append(result["text"])
     return out
 
 
 commands = [demo_cmd]
-_ = fmt
