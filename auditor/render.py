@@ -56,8 +56,8 @@ def fmt(value: Any, digits: int = 2) -> str:
 
 def table(headers: Sequence[str], rows: Iterable[Sequence[Any]], digits: int = 2) -> str:
     """An aligned plain-text table; numbers right-aligned."""
-    cells = [[fmt(c, digits) for c in row] for row in rows]
-    raw = [list(r) for r in rows] if not isinstance(rows, list) else rows
+    raw = [list(r) for r in rows]  # rows may be a generator: read it once
+    cells = [[fmt(c, digits) for c in row] for row in raw]
     widths = [len(h) for h in headers]
     for row in cells:
         for i, c in enumerate(row):

@@ -16,7 +16,6 @@ from collections.abc import Sequence
 import numpy as np
 import pandas as pd
 
-from auditor.audit import prepare_audit
 from auditor.correction.banks import (
     BankDesign,
     controller_limits,
@@ -30,9 +29,10 @@ from auditor.correction.scenario import (
     _result,
     _sensitivity,
     evaluate_prepared,
+    prepare_case,
 )
 from auditor.correction.screening import SiteElectrical
-from auditor.correction.sizing import check_frame, check_pf, required_kvar
+from auditor.correction.sizing import required_kvar
 from auditor.errors import UsageError
 from auditor.finance import CostInputs
 
@@ -159,14 +159,10 @@ def optimise(frame: pd.DataFrame, tariff, *, tz: str, interval_minutes: int,
         For the chosen design, with ``candidates`` filled (one dict per design, best first).
         When no candidate passes screening, the best NPV overall is returned with a warning.
     """
-    check_frame(frame, interval_minutes)
-    target_pf = check_pf(target_pf)
-    costs = costs or CostInputs()
-    site = site or SiteElectrical()
-    prepare_kwargs = dict(tz=tz, interval_minutes=interval_minutes, periods=periods,
-                          billing_day=billing_day, start=start, end=end)
-    prepared = prepare_audit(frame, tariff, **prepare_kwargs)
-    before = prepared.run()
+    target_pf, costs, site, prepare_kwargs, prepared, before = prepare_case(
+        frame, tariff, tz=tz, interval_minutes=interval_minutes, target_pf=target_pf, costs=costs,
+        site=site, periods=periods, start=start, end=end, billing_day=billing_day,
+        leading_pf_limit=leading_pf_limit)
     if designs is None:
         chosen_sizes = tuple(sizes) if sizes is not None else default_sizes(prepared, target_pf)
         if not chosen_sizes or any(not s > 0 for s in chosen_sizes):

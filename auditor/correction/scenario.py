@@ -324,6 +324,25 @@ def _warnings(before, after, figures: dict, bank: BankDesign, target_pf: float) 
     return tuple(items)
 
 
+def prepare_case(frame: pd.DataFrame, tariff, *, tz: str, interval_minutes: int, target_pf: float,
+                 costs: CostInputs | None, site: SiteElectrical | None, periods, start, end,
+                 billing_day: int | None, leading_pf_limit: float | None):
+    """Checks and the audit before correction, shared by :func:`run_scenario` and the optimiser.
+
+    Returns ``(target_pf, costs, site, prepare_kwargs, prepared, before)``.
+    """
+    check_frame(frame, interval_minutes)
+    target_pf = check_pf(target_pf)
+    if leading_pf_limit is not None:
+        check_pf(leading_pf_limit, "leading_pf_limit")
+    costs = costs or CostInputs()
+    site = site or SiteElectrical()
+    prepare_kwargs = dict(tz=tz, interval_minutes=interval_minutes, periods=periods,
+                          billing_day=billing_day, start=start, end=end)
+    prepared = prepare_audit(frame, tariff, **prepare_kwargs)
+    return target_pf, costs, site, prepare_kwargs, prepared, prepared.run()
+
+
 def run_scenario(frame: pd.DataFrame, tariff, *, tz: str, interval_minutes: int, bank: BankDesign,
                  target_pf: float = 0.95, costs: CostInputs | None = None,
                  site: SiteElectrical | None = None, periods: Sequence | None = None,
@@ -364,18 +383,12 @@ def run_scenario(frame: pd.DataFrame, tariff, *, tz: str, interval_minutes: int,
     ----------
     .. [1] IEEE Std 1036-2010 (sizing, switched banks, screening).
     """
-    check_frame(frame, interval_minutes)
-    target_pf = check_pf(target_pf)
-    if leading_pf_limit is not None:
-        check_pf(leading_pf_limit, "leading_pf_limit")
     if not isinstance(bank, BankDesign):
         raise UsageError(f"bank must be a BankDesign, got {type(bank).__name__}")
-    costs = costs or CostInputs()
-    site = site or SiteElectrical()
-    prepare_kwargs = dict(tz=tz, interval_minutes=interval_minutes, periods=periods,
-                          billing_day=billing_day, start=start, end=end)
-    prepared = prepare_audit(frame, tariff, **prepare_kwargs)
-    before = prepared.run()
+    target_pf, costs, site, prepare_kwargs, prepared, before = prepare_case(
+        frame, tariff, tz=tz, interval_minutes=interval_minutes, target_pf=target_pf, costs=costs,
+        site=site, periods=periods, start=start, end=end, billing_day=billing_day,
+        leading_pf_limit=leading_pf_limit)
     figures = evaluate_prepared(prepared, before, tariff, interval_minutes=interval_minutes,
                                 bank=bank, target_pf=target_pf, costs=costs, site=site,
                                 leading_pf_limit=leading_pf_limit)
