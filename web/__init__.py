@@ -1,8 +1,10 @@
 """The dashboard: a Flask application over the service layer.
 
 ``create_app(config=None, store=None)`` builds it; ``auditor serve`` runs it on waitress.
-One blueprint per area: portfolio (``/``), meters, scenarios, data (imports and quality),
-tariffs. Chart data are built by :mod:`auditor.web.charts`; exports by
+One blueprint per area: portfolio (``/``), meters (meter page and exports), scenarios, data
+(imports and quality), tariffs, bills, and auth (``security.py``: headers, token, login).
+Chart figures come from :mod:`auditor.charts` and number filters from
+:mod:`auditor.presentation` (both shared with the exported reports); exports from
 :mod:`auditor.services.report`.
 """
 from __future__ import annotations
@@ -80,8 +82,8 @@ def create_app(config: dict | None = None, store=None) -> Flask:
 
     csrf.init_app(app)
 
+    from auditor.presentation import register_filters
     from auditor.web import security
-    from auditor.web.filters import register_filters
 
     register_filters(app.jinja_env.filters)
     security.init_app(app)

@@ -6,11 +6,11 @@ import secrets
 
 from flask import Blueprint, Response, abort, render_template, request
 
+from auditor import charts
 from auditor.errors import UsageError
 from auditor.services import portfolio as pf
 from auditor.services import report as rp
 from auditor.services.correction import list_scenarios
-from auditor.web import charts
 from auditor.web.helpers import chosen_tariff, store, tariff_choices, tariff_for_scenario
 
 bp = Blueprint("meters", __name__)

@@ -3,6 +3,7 @@ from __future__ import annotations
 
 from flask import Blueprint, flash, redirect, render_template, request, url_for
 
+from auditor import charts
 from auditor.correction import CAUTIONS
 from auditor.errors import AuditorError
 from auditor.services import portfolio as pf
@@ -15,7 +16,6 @@ from auditor.services.correction import (
     save_scenario,
 )
 from auditor.services.ingest import list_meters
-from auditor.web import charts
 from auditor.web.forms import COSTS, DeleteForm, ScenarioForm, choices
 from auditor.web.helpers import default_tariff_name, store, tariff_choices, tariff_dirs
 

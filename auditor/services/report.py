@@ -51,7 +51,7 @@ def _pct(x):
 
 
 def _label(p: dict) -> str:
-    from auditor.web.charts import period_label
+    from auditor.charts import period_label
 
     return period_label(p)
 
@@ -290,22 +290,9 @@ def candidate_columns(cur: str) -> list[Column]:
 # --------------------------------------------------------------------------------------------
 # HTML
 # --------------------------------------------------------------------------------------------
-def _environment():
-    from importlib import resources
-
-    from jinja2 import Environment, FileSystemLoader, select_autoescape
-
-    from auditor.web.filters import register_filters
-
-    folder = str(resources.files("auditor.web") / "templates")
-    env = Environment(loader=FileSystemLoader(folder), autoescape=select_autoescape(["html"]))
-    register_filters(env.filters)
-    return env
-
-
 def report_charts(report: ReportData) -> list[tuple[str, str]]:
     """(id, figure JSON) of every chart of the report."""
-    from auditor.web import charts
+    from auditor import charts
 
     out = [("pf", charts.pf_by_period(report.audit, report.thresholds)),
            ("reactive", charts.reactive_by_period(report.audit, list(report.reactive_keys))),
@@ -322,12 +309,12 @@ def report_charts(report: ReportData) -> list[tuple[str, str]]:
 
 def render_html(report: ReportData, nonce: str | None = None) -> str:
     """One HTML file: styles, plotly.js, chart data and tables inline; opens offline."""
-    from importlib import resources
-
     from plotly.offline import get_plotlyjs
 
+    from auditor.presentation import document_environment, stylesheet
+
     nonce = nonce or secrets.token_urlsafe(16)
-    css = (resources.files("auditor.web") / "static" / "style.css").read_text(encoding="utf-8")
+    css = stylesheet()
     cols, rows = period_rows(report.audit, period_columns(report.audit, list(report.charge_keys)))
     ctx = dict(r=report, audit=report.audit, columns=cols, rows=rows, charts=report_charts(report),
                clauses=describe_tariff(report.tariff), css=css, plotly_js=get_plotlyjs(), nonce=nonce,
@@ -335,7 +322,7 @@ def render_html(report: ReportData, nonce: str | None = None) -> str:
     if report.scenario:
         ctx["scenario_columns"], ctx["scenario_rows"] = scenario_rows(report.scenario)
         ctx["candidate_columns"] = candidate_columns(report.scenario.get("currency") or "")
-    return _environment().get_template("report.html").render(**ctx)
+    return document_environment().get_template("report.html").render(**ctx)
 
 
 def render(report: ReportData, fmt: str) -> bytes:

@@ -1,7 +1,15 @@
-"""Jinja filters for numbers: thousands separators, fixed decimals, a dash for "no value"."""
+"""Presentation shared by the dashboard and the exported documents (report, billing query).
+
+Jinja filters for numbers (thousands separators, fixed decimals, a dash for "no value") and
+:func:`document_environment`, the plain Jinja environment (no Flask) that renders the report
+and the billing query from the dashboard's template folder. It sits below both the web layer
+and the services and imports neither.
+"""
 from __future__ import annotations
 
 import math
+from functools import lru_cache
+from pathlib import Path
 
 from markupsafe import Markup
 
@@ -58,3 +66,31 @@ def sortkey(value) -> str:
 
 def register_filters(filters: dict) -> None:
     filters.update(num=num, cell=cell, pct=pct, years=years, jsonblock=jsonblock, sortkey=sortkey)
+
+
+def web_folder() -> Path:
+    """The folder of the ``auditor.web`` package (templates and static files), found without
+    importing it (importing it would load Flask)."""
+    from importlib.util import find_spec
+
+    spec = find_spec("auditor.web")
+    if spec is None or not spec.submodule_search_locations:
+        raise RuntimeError("the auditor.web package files are missing from this installation")
+    return Path(next(iter(spec.submodule_search_locations)))
+
+
+@lru_cache(maxsize=1)
+def document_environment():
+    """A Jinja environment over the dashboard's templates with the number filters, HTML
+    autoescaped, for documents rendered outside a request (report, billing query)."""
+    from jinja2 import Environment, FileSystemLoader, select_autoescape
+
+    env = Environment(loader=FileSystemLoader(str(web_folder() / "templates")),
+                      autoescape=select_autoescape(["html"]))
+    register_filters(env.filters)
+    return env
+
+
+def stylesheet() -> str:
+    """The dashboard's style sheet (inlined in self-contained HTML documents)."""
+    return (web_folder() / "static" / "style.css").read_text(encoding="utf-8")

@@ -1,5 +1,8 @@
 """Chart figures (plotly JSON: ``{"data": [...], "layout": {...}}``) from service results.
 
+Shared by the dashboard (:mod:`auditor.web`) and the exported reports
+(:mod:`auditor.services.report`), so it lives below both: it imports neither Flask nor the store.
+
 Plain dicts rather than ``plotly.graph_objects``: the figures are serialised once per page,
 and building validated graph objects for a meter-year costs more than the page budget. The
 browser draws them with the plotly.js bundled in the plotly package (served locally; reports
@@ -134,8 +137,8 @@ def pf_heatmap(profile) -> dict:
     (or null) per interval."""
     m = np.round(profile.pf_matrix, 3)
     lead = profile.leading_matrix
-    lag_z = [[None if (v != v or ld) else v for v, ld in zip(row, lrow)] for row, lrow in zip(m.tolist(), lead.tolist())]
-    lead_z = [[v if (ld and v == v) else None for v, ld in zip(row, lrow)] for row, lrow in zip(m.tolist(), lead.tolist())]
+    lag_z = [[None if (v != v or ld) else v for v, ld in zip(row, lrow, strict=True)] for row, lrow in zip(m.tolist(), lead.tolist(), strict=True)]
+    lead_z = [[v if (ld and v == v) else None for v, ld in zip(row, lrow, strict=True)] for row, lrow in zip(m.tolist(), lead.tolist(), strict=True)]
     slots = m.shape[1]
     step = profile.slot_minutes
     tod = [f"{(i * step) // 60:02d}:{(i * step) % 60:02d}" for i in range(slots)]
