@@ -1,17 +1,32 @@
-"""Terminal rendering shared by the commands: a plain aligned table and JSON from one dict."""
+"""Terminal rendering shared by the commands: a plain aligned table and JSON from one dict.
+
+numpy is not imported here: a value can only be a numpy scalar once numpy is loaded, so the
+numpy cases are looked up in ``sys.modules`` (``auditor --help`` stays free of numpy).
+"""
 from __future__ import annotations
 
 import json
 import math
+import sys
 from collections.abc import Iterable, Sequence
 from datetime import date, datetime
 from typing import Any
 
 import click
-import numpy as np
+
+
+class _NoNumpy:
+    """Stands in for numpy's scalar types while numpy is not loaded (nothing is an instance)."""
+
+    integer = floating = bool_ = number = type("_Never", (), {})
+
+
+def _numpy():
+    return sys.modules.get("numpy") or _NoNumpy
 
 
 def _default(value: Any) -> Any:
+    np = _numpy()
     if isinstance(value, datetime | date):
         return value.isoformat()
     if isinstance(value, np.integer):
@@ -27,6 +42,7 @@ def _default(value: Any) -> Any:
 
 def _clean(value: Any) -> Any:
     """Replace NaN/inf by None so the JSON is standard (no bare NaN tokens)."""
+    np = _numpy()
     if isinstance(value, float | np.floating):
         return None if not math.isfinite(float(value)) else float(value)
     if isinstance(value, dict):
@@ -45,6 +61,7 @@ def echo_json(data: Any) -> None:
 
 
 def fmt(value: Any, digits: int = 2) -> str:
+    np = _numpy()
     if value is None:
         return "-"
     if isinstance(value, float | np.floating):
@@ -56,6 +73,7 @@ def fmt(value: Any, digits: int = 2) -> str:
 
 def table(headers: Sequence[str], rows: Iterable[Sequence[Any]], digits: int = 2) -> str:
     """An aligned plain-text table; numbers right-aligned."""
+    np = _numpy()
     raw = [list(r) for r in rows]  # rows may be a generator: read it once
     cells = [[fmt(c, digits) for c in row] for row in raw]
     widths = [len(h) for h in headers]

@@ -15,7 +15,7 @@ from wtforms.validators import DataRequired, NumberRange, Optional
 
 from auditor.errors import AuditorError
 from auditor.services.bills import add_bill, check_bills, dispute_summary, import_bills, list_bills
-from auditor.services.ingest import list_meters
+from auditor.services.meters import list_meters
 from auditor.web.helpers import chosen_tariff, store
 
 bp = Blueprint("bills", __name__)

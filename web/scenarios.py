@@ -15,7 +15,7 @@ from auditor.services.correction import (
     list_scenarios,
     save_scenario,
 )
-from auditor.services.ingest import list_meters
+from auditor.services.meters import list_meters
 from auditor.web.forms import COSTS, DeleteForm, ScenarioForm, choices
 from auditor.web.helpers import default_tariff_name, store, tariff_choices, tariff_dirs
 

@@ -1,11 +1,16 @@
-"""Command modules; each exposes ``commands`` (a list of click commands or groups)."""
+"""Command modules; each exposes ``commands`` (a list of click commands or groups).
+
+A command module imports only click, the standard library and the other modules of this
+package at its top; services are imported inside the command functions, so ``auditor --help``
+loads neither pandas nor SQLAlchemy.
+"""
 from __future__ import annotations
 
 import importlib
 
 import click
 
-MODULES = ("data", "audit", "size", "bills", "report", "serve", "demo")
+MODULES = ("data", "meters", "db", "audit", "size", "bills", "report", "serve", "demo")
 
 
 def register(group: click.Group) -> None:

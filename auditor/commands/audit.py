@@ -3,7 +3,14 @@ from __future__ import annotations
 
 import click
 
-from auditor.cli import Context, pass_ctx
+from auditor.commands.context import Context, pass_ctx
+from auditor.commands.options import (
+    check_date_range,
+    date_range_options,
+    json_option,
+    meter_option,
+    tariff_option,
+)
 from auditor.render import echo_json, fmt, table
 
 
@@ -25,15 +32,14 @@ def audit_table(periods: list[dict], currency: str) -> str:
 
 
 @click.command("audit")
-@click.option("--meter", "meter", required=True, metavar="M", help="Meter id as imported.")
-@click.option("--tariff", "tariff", required=True, metavar="FILE",
-              help="Tariff TOML file (or the name of a shipped example).")
-@click.option("--from", "start", type=click.DateTime(["%Y-%m-%d"]), help="First local day (inclusive).")
-@click.option("--to", "end", type=click.DateTime(["%Y-%m-%d"]), help="Last local day (exclusive).")
-@click.option("--billing-day", type=click.IntRange(1, 28), help="Day of month billing periods start (default: calendar months).")
-@click.option("--periods", "periods_file", type=click.Path(dir_okay=False),
+@meter_option()
+@tariff_option()
+@date_range_options
+@click.option("--billing-day", type=click.IntRange(1, 28), metavar="N",
+              help="Day of month billing periods start (default: calendar months).")
+@click.option("--periods", "periods_file", type=click.Path(dir_okay=False), metavar="FILE",
               help="CSV of billing periods (header start,end; local dates, end exclusive).")
-@click.option("--json", "json_out", is_flag=True, help="Machine-readable output.")
+@json_option
 @pass_ctx
 def audit_cmd(ctx: Context, meter, tariff, start, end, billing_day, periods_file, json_out):
     """Energy, demand and every reactive charge per billing period."""
@@ -41,6 +47,7 @@ def audit_cmd(ctx: Context, meter, tariff, start, end, billing_day, periods_file
 
     if periods_file and billing_day:
         raise click.UsageError("give either --periods or --billing-day")
+    check_date_range(start, end)
     periods = read_periods_file(periods_file) if periods_file else None
     result = audit_meter(ctx.store, meter, tariff, start=start.date() if start else None,
                          end=end.date() if end else None, billing_day=billing_day, periods=periods)

@@ -5,13 +5,14 @@ from pathlib import Path
 
 import click
 
-from auditor.cli import Context, pass_ctx
+from auditor.commands.context import Context, pass_ctx
+from auditor.commands.options import NounGroup, json_option, meter_option, tariff_option
 from auditor.render import echo_json, fmt, table
 
 _FIELDS = ("kwh", "kvarh", "peak_kw", "peak_kva", "pf", "reactive_charge", "total")
 
 
-@click.group("bills")
+@click.group("bills", cls=NounGroup)
 def bills_group():
     """Utility bills: import, list, check against the interval data, dispute."""
 
@@ -20,7 +21,7 @@ def bills_group():
 @click.argument("file", type=click.Path(dir_okay=False, path_type=Path))
 @click.option("--profile", type=click.Path(exists=True, dir_okay=False, path_type=Path),
               help="Bill profile (TOML) for a layout other than the bill CSV contract.")
-@click.option("--json", "json_out", is_flag=True, help="Machine-readable output.")
+@json_option
 @pass_ctx
 def import_cmd(ctx: Context, file: Path, profile: Path | None, json_out: bool):
     """Import a bills CSV (meter,period_start,period_end,kwh,kvarh,peak_kw,peak_kva,pf,reactive_charge,total)."""
@@ -30,15 +31,15 @@ def import_cmd(ctx: Context, file: Path, profile: Path | None, json_out: bool):
     if json_out:
         echo_json(res)
         return 0
-    click.echo(f"{res['status']:<9} {file.name}: {res['message']}")
+    ctx.say(f"{res['status']:<9} {file.name}: {res['message']}")
     for w in res["warnings"]:
-        click.echo(f"warning: {w}")
+        ctx.say(f"warning: {w}")
     return 0
 
 
 @bills_group.command("list")
-@click.option("--meter", metavar="M", help="Only this meter's bills.")
-@click.option("--json", "json_out", is_flag=True, help="Machine-readable output.")
+@meter_option("Only this meter's bills.", required=False)
+@json_option
 @pass_ctx
 def list_cmd(ctx: Context, meter: str | None, json_out: bool):
     """The stored bills."""
@@ -109,10 +110,10 @@ def check_text(d: dict) -> str:
 
 
 @bills_group.command("check")
-@click.option("--meter", required=True, metavar="M", help="Meter id as imported.")
-@click.option("--tariff", required=True, metavar="FILE", help="Tariff TOML file (or a shipped example's name).")
+@meter_option()
+@tariff_option()
 @_tolerance_options
-@click.option("--json", "json_out", is_flag=True, help="Machine-readable output.")
+@json_option
 @pass_ctx
 def check_cmd(ctx: Context, meter: str, tariff: str, json_out: bool, **kw):
     """Compare every bill of a meter with the same period computed from its data and the tariff.
@@ -130,8 +131,8 @@ def check_cmd(ctx: Context, meter: str, tariff: str, json_out: bool, **kw):
 
 
 @bills_group.command("dispute")
-@click.option("--meter", required=True, metavar="M", help="Meter id as imported.")
-@click.option("--tariff", required=True, metavar="FILE", help="Tariff TOML file (or a shipped example's name).")
+@meter_option()
+@tariff_option()
 @click.option("--out", "out", required=True, type=click.Path(dir_okay=False, path_type=Path),
               help="Output file: .txt for plain text, .html for HTML.")
 @_tolerance_options
@@ -143,14 +144,14 @@ def dispute_cmd(ctx: Context, meter: str, tariff: str, out: Path, **kw):
 
     ext = out.suffix.lower()
     if ext not in (".txt", ".html", ".htm"):
-        raise UsageError(f"--out {out.name}: use a .txt or .html file name")
+        raise click.BadParameter(f"{out.name}: use a .txt or .html file name", param_hint="--out")
     d = check_bills(ctx.store, meter, tariff, _tolerances(kw))
     text = dispute_summary(d, "text" if ext == ".txt" else "html")
     try:
         out.write_text(text, encoding="utf-8")
     except OSError as exc:
-        raise UsageError(f"{out}: {exc.strerror or exc}") from None
-    click.echo(f"wrote {out} ({len(d['findings'])} findings, {fmt(d['total_disputable'])} {d['currency']} in question)")
+        raise UsageError(f"cannot write {out}: {exc.strerror or exc}") from None
+    ctx.say(f"wrote {out} ({len(d['findings'])} findings, {fmt(d['total_disputable'])} {d['currency']} in question)")
     return 0
 
 

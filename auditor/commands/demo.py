@@ -3,33 +3,35 @@ from __future__ import annotations
 
 import click
 
-from auditor.cli import Context, pass_ctx
+from auditor.commands.context import Context, pass_ctx
+from auditor.commands.meters import SPAN_HEADERS
+from auditor.commands.options import json_option
 from auditor.render import echo_json, table
 
 
 @click.command("demo")
 @click.option("--no-serve", is_flag=True, help="Do not start the dashboard at the end.")
-@click.option("--port", default=8050, show_default=True, help="Dashboard port (loopback).")
-@click.option("--json", "json_out", is_flag=True, help="Machine-readable summary (implies --no-serve).")
+@click.option("--port", default=8050, show_default=True, type=click.IntRange(0, 65535),
+              help="Dashboard port (loopback).")
+@json_option
 @pass_ctx
 def demo_cmd(ctx: Context, no_serve: bool, port: int, json_out: bool):
-    """Build the demo database (if absent), import the demo data and print the case."""
+    """Build the demo database (if absent), import the demo data and print the case.
+
+    With --json, only the summary is printed (the dashboard is not started)."""
     from auditor.services import demo
     from auditor.services.audit import audit_meter
-    from auditor.store import open_store
-    from auditor.store.engine import safe_url
+    from auditor.services.database import database_label
 
-    if ctx.db_url is None:
-        ctx.db_url = demo.demo_db_url()
-    store = open_store(ctx.db_url)
-    ctx._store = store
+    store = demo.open_demo_database(ctx.db_url)
+    ctx.use_store(store)
     summary = demo.load_demo(store)
     audits = {m["meter"]: audit_meter(store, m["meter"], demo.DEMO_TARIFF).to_dict() for m in summary["meters"]}
     summary["audits"] = audits
     extra = demo_extensions(store)
     sections = extra.pop("_render")
     summary.update(extra)
-    summary["database"] = safe_url(store.url)
+    summary["database"] = database_label(store)
     if json_out:
         echo_json(summary)
         return 0
@@ -37,7 +39,7 @@ def demo_cmd(ctx: Context, no_serve: bool, port: int, json_out: bool):
     for f in summary["files"]:
         click.echo(f"  {f['status']:<9} {f['path'].split('/')[-1]}  {f['message']}")
     click.echo("")
-    click.echo(table(["meter", "site", "first", "last", "intervals", "coverage %"],
+    click.echo(table(["meter", "site", *SPAN_HEADERS, "intervals", "coverage %"],
                      [[m["meter"], m["site"], m["first"], m["last"], m["intervals"], 100 * (m["coverage"] or 0)]
                       for m in summary["meters"]]))
     click.echo(f"\nAudit under the tariff {demo.DEMO_TARIFF!r} (an invented utility):")

@@ -6,7 +6,7 @@ import socket
 
 import click
 
-from auditor.cli import Context, pass_ctx
+from auditor.commands.context import Context, pass_ctx
 from auditor.errors import UsageError
 
 TOKEN_ENV = "AUDITOR_TOKEN"
@@ -74,7 +74,8 @@ def serve_dashboard(store, host: str = "127.0.0.1", port: int = 8050, token: str
 @click.command("serve")
 @click.option("--host", default="127.0.0.1", show_default=True,
               help="Address to listen on; beyond loopback an access token is required.")
-@click.option("--port", default=8050, show_default=True, type=click.IntRange(0, 65535))
+@click.option("--port", default=8050, show_default=True, type=click.IntRange(0, 65535),
+              help="TCP port to listen on (0: any free port).")
 @click.option("--token", metavar="TOKEN", envvar=TOKEN_ENV, show_envvar=True,
               help="Access token every request must carry (cookie after a first ?token=TOKEN or the login page).")
 @click.option("--tariff", "default_tariff", metavar="NAME",

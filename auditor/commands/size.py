@@ -3,7 +3,8 @@ from __future__ import annotations
 
 import click
 
-from auditor.cli import Context, pass_ctx
+from auditor.commands.context import Context, pass_ctx
+from auditor.commands.options import NounGroup
 from auditor.render import echo_json, fmt, table
 
 
@@ -46,7 +47,8 @@ def render_case(d: dict) -> str:
 @click.option("--mode", type=click.Choice(["central", "per-meter"]), default="central", show_default=True,
               help="With --site: one bank on the meters' sum, or one bank per meter.")
 @click.option("--tariff", required=True, metavar="FILE", help="Tariff TOML file (or a shipped example's name).")
-@click.option("--target-pf", default=0.95, show_default=True, type=click.FloatRange(0.5, 1.0))
+@click.option("--target-pf", default=0.95, show_default=True, type=click.FloatRange(0.5, 1.0),
+              help="Power factor the bank should reach.")
 @click.option("--fixed", "fixed_kvar", type=click.FloatRange(min=0, min_open=True), metavar="KVAR", help="A fixed bank of KVAR.")
 @click.option("--bank", "steps", metavar="STEPS", help='An automatic bank, e.g. "6x50" or "25,50,50,100".')
 @click.option("--optimize", "--optimise", "optimize", is_flag=True, help="Search designs for the best NPV that passes screening.")
@@ -61,10 +63,12 @@ def render_case(d: dict) -> str:
 @click.option("--life-years", type=click.IntRange(1, 60), help="Economic life (default 15).")
 @click.option("--discount-rate", type=click.FloatRange(-0.5, 1.0), help="Fraction a year (0.08 = 8 %).")
 @click.option("--escalation", type=click.FloatRange(-0.5, 1.0), help="Tariff price escalation, fraction a year.")
-@click.option("--from", "start", type=click.DateTime(["%Y-%m-%d"]))
-@click.option("--to", "end", type=click.DateTime(["%Y-%m-%d"]))
+@click.option("--from", "start", type=click.DateTime(["%Y-%m-%d"]), metavar="YYYY-MM-DD",
+              help="First local day, inclusive (default: the start of the data).")
+@click.option("--to", "end", type=click.DateTime(["%Y-%m-%d"]), metavar="YYYY-MM-DD",
+              help="Last local day, exclusive (default: the end of the data).")
 @click.option("--save", "save_as", metavar="NAME", help="Save the scenario under NAME.")
-@click.option("--json", "json_out", is_flag=True)
+@click.option("--json", "json_out", is_flag=True, help="Machine-readable output (the same data as the table).")
 @pass_ctx
 def size_cmd(ctx: Context, meter, site, mode, tariff, target_pf, fixed_kvar, steps, optimize, detuning_percent,
              leading_pf_limit, capacitor_rated_voltage_v, capex_per_kvar, capex_fixed, life_years, discount_rate, escalation, start, end, save_as, json_out):
@@ -108,14 +112,14 @@ def size_cmd(ctx: Context, meter, site, mode, tariff, target_pf, fixed_kvar, ste
     return 0
 
 
-@click.group("scenarios")
+@click.group("scenarios", cls=NounGroup)
 def scenarios_group():
     """Saved correction scenarios."""
 
 
 @scenarios_group.command("list")
-@click.option("--meter", metavar="M")
-@click.option("--json", "json_out", is_flag=True)
+@click.option("--meter", metavar="M", help="Only this meter's scenarios.")
+@click.option("--json", "json_out", is_flag=True, help="Machine-readable output (the same data as the table).")
 @pass_ctx
 def scenarios_list(ctx: Context, meter, json_out):
     """List saved scenarios."""

@@ -28,10 +28,18 @@ def demo_db_url() -> str:
     return f"sqlite:///{Path(platformdirs.user_data_dir(APP_DIR_NAME)) / 'demo.sqlite3'}"
 
 
+def open_demo_database(url: str | None = None):
+    """The demo database: ``url`` when given, else ``demo.sqlite3`` in the user's data
+    directory (never the everyday database)."""
+    from auditor.services.database import open_database
+
+    return open_database(url or demo_db_url())
+
+
 def load_demo(store) -> dict:
     """Sites, then every demo file (idempotent: a second run reports them unchanged)."""
-    from auditor.services.ingest import import_files, list_meters
-    from auditor.services.meters import load_sites_file
+    from auditor.services.ingest import import_files
+    from auditor.services.meters import list_meters, load_sites_file
 
     folder = demo_dir()
     sites = load_sites_file(store, folder / "sites.toml")

@@ -1,19 +1,36 @@
-"""Loading a meter's data and site facts for the computations; site management."""
+"""Meters and sites: what is stored, a meter's data and site facts for the computations, site
+management and the meter multiplier.
+
+pandas is imported only where a meter's interval data are loaded, so listing meters or sites
+starts quickly.
+"""
 from __future__ import annotations
 
+import difflib
 import tomllib
 from dataclasses import dataclass
 from datetime import date
 from pathlib import Path
+from typing import TYPE_CHECKING
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
-import pandas as pd
 from sqlalchemy import select
 
 from auditor.errors import NotFoundError, ProfileError, UsageError
 from auditor.store import Store
 from auditor.store.models import Meter, Site
-from auditor.store.queries import get_meter, now_utc, read_intervals
+from auditor.store.queries import get_meter, meter_summaries, now_utc, read_intervals
+
+if TYPE_CHECKING:  # pragma: no cover
+    import pandas as pd
+
+
+def list_meters(store: Store) -> list[dict]:
+    """Every meter by site: ``meter``, ``site``, ``timezone``, ``interval_minutes``,
+    ``multiplier``, ``first`` (start of the first interval), ``last`` (end of the last
+    interval), ``intervals`` and ``coverage`` (intervals present / expected over that span)."""
+    with store.session() as s:
+        return meter_summaries(s)
 
 
 @dataclass(frozen=True)
@@ -32,13 +49,15 @@ class MeterData:
 def _local_midnight_utc(d: date | None, tz: str) -> int | None:
     if d is None:
         return None
+    import pandas as pd
+
     return int(pd.Timestamp(d).tz_localize(tz).tz_convert("UTC").value // 10**9)
 
 
 def load_meter(store: Store, meter: str, start: date | None = None, end: date | None = None) -> MeterData:
     """One meter's interval frame (local dates ``start`` ≤ day < ``end``) and its site facts."""
     if start and end and end <= start:
-        raise UsageError(f"--to {end} must be after --from {start}")
+        raise UsageError(f"the end date {end} must be after the start date {start}")
     with store.session() as s:
         m = get_meter(s, meter)
         site = m.site
@@ -56,6 +75,12 @@ def meters_of_site(store: Store, site: str) -> list[str]:
 
 
 SITE_FIELDS = ("timezone", "nominal_voltage_v", "transformer_kva", "transformer_impedance_percent")
+
+
+def closest(key: str, known) -> str:
+    """``" (did you mean 'x'?)"`` naming the known key most like ``key``, or ``""``."""
+    match = difflib.get_close_matches(key, list(known), n=1, cutoff=0.6)
+    return f" (did you mean {match[0]!r}?)" if match else ""
 
 
 def _check_site_values(values: dict, where: str) -> None:
@@ -77,9 +102,10 @@ def _check_site_values(values: dict, where: str) -> None:
 def set_site(store: Store, name: str, meters: list[str] | None = None, **values) -> dict:
     """Create or update a site; optionally move meters onto it."""
     values = {k: v for k, v in values.items() if v is not None}
-    unknown = set(values) - set(SITE_FIELDS)
+    unknown = sorted(set(values) - set(SITE_FIELDS))
     if unknown:
-        raise UsageError(f"unknown site field(s): {', '.join(sorted(unknown))}")
+        raise UsageError(f"unknown site field {unknown[0]!r}{closest(unknown[0], SITE_FIELDS)}; "
+                         f"allowed: {', '.join(SITE_FIELDS)}")
     _check_site_values(values, f"site {name!r}")
     with store.session() as s:
         site = s.scalar(select(Site).where(Site.name == name))
@@ -121,11 +147,13 @@ def load_sites_file(store: Store, path: str | Path) -> list[dict]:
     out = []
     for i, entry in enumerate(data.get("site", [])):
         extra = set(entry) - {"name", "meters", *SITE_FIELDS}
+        if extra:  # before the required keys: a misspelt "name" is reported as misspelt
+            key = sorted(extra)[0]
+            allowed = ("name", "meters", *SITE_FIELDS)
+            raise ProfileError(f"site[{i}].{key}", f"unknown key{closest(key, allowed)}; allowed: {', '.join(allowed)}",
+                               str(path))
         if "name" not in entry:
             raise ProfileError(f"site[{i}].name", "every site needs a name", str(path))
-        if extra:
-            raise ProfileError(f"site[{i}].{sorted(extra)[0]}", f"unknown key; allowed: name, meters, {', '.join(SITE_FIELDS)}",
-                               str(path))
         fields = {k: entry[k] for k in SITE_FIELDS if k in entry}
         out.append(set_site(store, entry["name"], list(entry.get("meters", [])), **fields))
     return out
@@ -133,6 +161,6 @@ def load_sites_file(store: Store, path: str | Path) -> list[dict]:
 
 def set_multiplier(store: Store, meter: str, multiplier: float) -> None:
     if not multiplier > 0:
-        raise UsageError("the multiplier must be a positive number")
+        raise UsageError(f"the multiplier of meter {meter} must be a positive number, not {multiplier:g}")
     with store.session() as s:
         get_meter(s, meter).multiplier = float(multiplier)

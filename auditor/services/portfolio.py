@@ -37,8 +37,7 @@ from auditor.services.correction import (
     list_scenarios,
     size_meter,
 )
-from auditor.services.ingest import list_meters
-from auditor.services.meters import load_meter
+from auditor.services.meters import list_meters, load_meter
 from auditor.store import Store
 from auditor.store.models import ImportBatch, Meter, QualityFlag, Site
 from auditor.store.queries import batches

@@ -343,13 +343,13 @@ def write_report(store: Store, meter: str, tariff: str | Path | Tariff, out: str
     if fmt == "htm":
         fmt = "html"
     if fmt not in FORMATS:
-        raise UsageError(f"--out {out}: the file name must end in .html, .csv or .xlsx")
+        raise UsageError(f"{out.name}: a report file name must end in .html, .csv or .xlsx")
     report = build_report(store, meter, tariff, scenario, with_profile=(fmt == "html"))
     data = render(report, fmt)
     try:
         out.parent.mkdir(parents=True, exist_ok=True)
         out.write_bytes(data)
     except OSError as exc:
-        raise UsageError(f"--out {out}: cannot write ({exc.strerror})") from None
+        raise UsageError(f"cannot write {out} ({exc.strerror})") from None
     return out
 

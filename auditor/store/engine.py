@@ -4,10 +4,17 @@ The database is named by a SQLAlchemy URL: ``--db URL``, else ``AUDITOR_DB_URL``
 file ``auditor.sqlite3`` in the user's data directory (``platformdirs.user_data_dir("pf-auditor")``,
 on Linux ``~/.local/share/pf-auditor/``). The schema is created and upgraded only by the Alembic
 migrations, on first use and by ``auditor db upgrade``.
+
+Opening a store checks the schema cheaply: one query reads the stored revision
+(:meth:`Store.stored_revision`) and the head is read from the version files' ``revision`` and
+``down_revision`` lines (:func:`quick_head_revision`); Alembic (and its templating and
+highlighting libraries) is loaded only when the two differ or the files cannot be read that
+simply, which keeps every command's start-up short.
 """
 from __future__ import annotations
 
 import os
+import re
 from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass
@@ -16,7 +23,13 @@ from pathlib import Path
 
 import platformdirs
 from sqlalchemy import Engine, create_engine, event, inspect
-from sqlalchemy.exc import ArgumentError, NoSuchModuleError, OperationalError, SQLAlchemyError
+from sqlalchemy.exc import (
+    ArgumentError,
+    DBAPIError,
+    NoSuchModuleError,
+    OperationalError,
+    SQLAlchemyError,
+)
 from sqlalchemy.orm import Session, sessionmaker
 
 from auditor.errors import StoreError
@@ -86,6 +99,37 @@ def migrations_dir() -> str:
     return str(resources.files("auditor.migrations"))
 
 
+_REVISION_LINE = re.compile(
+    r"""^(down_revision|revision)\s*(?::[^=]+)?=\s*(None|'[^']*'|"[^"]*")\s*$""", re.MULTILINE)
+
+
+def quick_head_revision(folder: str | Path | None = None) -> str | None:
+    """The head revision read from the version files' ``revision = "..."`` and
+    ``down_revision = "..."`` lines, without loading Alembic.
+
+    Returns None whenever the answer is not plain (a file without both lines, a merge
+    revision, a branch with two heads): the caller then asks Alembic, which is always right.
+    """
+    versions = Path(folder or migrations_dir()) / "versions"
+    revisions: set[str] = set()
+    parents: set[str] = set()
+    try:
+        files = sorted(versions.glob("*.py"))
+        for f in files:
+            if f.name == "__init__.py":
+                continue
+            found = dict((k, v) for k, v in _REVISION_LINE.findall(f.read_text(encoding="utf-8")))
+            if "revision" not in found or "down_revision" not in found:
+                return None
+            revisions.add(found["revision"].strip("'\""))
+            if found["down_revision"] != "None":
+                parents.add(found["down_revision"].strip("'\""))
+    except OSError:
+        return None
+    heads = revisions - parents
+    return next(iter(heads)) if len(heads) == 1 and parents <= revisions else None
+
+
 def alembic_config(url: str):
     from alembic.config import Config
 
@@ -143,6 +187,37 @@ class Store:
         with self.engine.connect() as conn:
             return MigrationContext.configure(conn).get_current_revision()
 
+    def stored_revision(self) -> tuple[str | None, bool]:
+        """The revision in ``alembic_version`` by one plain query, without Alembic.
+
+        Returns ``(revision, plain)``: ``plain`` is False when the table holds more than one
+        row (branches), and the caller must ask Alembic. An absent table is an empty schema.
+        """
+        with self.engine.connect() as conn:
+            try:
+                rows = conn.exec_driver_sql("SELECT version_num FROM alembic_version").all()
+            except DBAPIError as exc:
+                if isinstance(exc, OperationalError) and self._unreachable(exc):
+                    raise
+                return None, True  # no such table: nothing migrated yet
+        if len(rows) > 1:
+            return None, False
+        return (rows[0][0] if rows else None), True
+
+    @staticmethod
+    def _unreachable(exc: OperationalError) -> bool:
+        """An error opening the database itself (not a missing table)."""
+        text = str(exc.orig).lower()
+        return "no such table" not in text and "does not exist" not in text
+
+    def schema_is_current(self) -> bool:
+        """True when the stored revision is the head, decided without Alembic when possible."""
+        stored, plain = self.stored_revision()
+        head = quick_head_revision() if plain else None
+        if head is not None:
+            return stored == head
+        return self.current_revision() == self.head_revision()
+
     def head_revision(self) -> str:
         from alembic.script import ScriptDirectory
 
@@ -157,7 +232,7 @@ def open_store(url: str | None = None, *, upgrade: bool = True) -> Store:
     url = url or default_db_url()
     store = Store(url, make_engine(url))
     try:
-        if upgrade and store.current_revision() != store.head_revision():
+        if upgrade and not store.schema_is_current():
             store.upgrade()
     except OperationalError as exc:
         raise StoreError(f"cannot open the database {safe_url(url)}: {exc.orig}") from exc

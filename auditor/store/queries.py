@@ -2,9 +2,8 @@
 from __future__ import annotations
 
 from datetime import UTC, datetime
+from typing import TYPE_CHECKING
 
-import numpy as np
-import pandas as pd
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
@@ -19,6 +18,9 @@ from auditor.store.models import (
     Reading,
     Site,
 )
+
+if TYPE_CHECKING:  # pragma: no cover
+    import pandas as pd
 
 
 def now_utc() -> datetime:
@@ -61,6 +63,9 @@ def read_intervals(session: Session, meter: Meter, start_utc: int | None = None,
 
 
 def interval_frame(rows: list[tuple], multiplier: float = 1.0) -> pd.DataFrame:
+    import numpy as np  # here, not at the top: listing meters does without them
+    import pandas as pd
+
     if rows:
         arr = np.array(rows, dtype="float64")
         start = arr[:, 0].astype("int64")
