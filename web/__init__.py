@@ -18,7 +18,7 @@ from flask import Flask, render_template
 from flask_wtf.csrf import CSRFError, CSRFProtect
 
 from auditor.errors import AuditorError, NotFoundError, UsageError
-from auditor.store.engine import APP_DIR_NAME
+from auditor.services.database import APP_DIR_NAME
 
 csrf = CSRFProtect()
 
@@ -75,9 +75,9 @@ def create_app(config: dict | None = None, store=None) -> Flask:
     app.jinja_env.autoescape = True  # every template, whatever its extension
 
     if store is None:
-        from auditor.store import open_store
+        from auditor.services.database import open_database
 
-        store = open_store(app.config["DATABASE_URL"])
+        store = open_database(app.config["DATABASE_URL"])
     app.extensions["auditor_store"] = store
 
     csrf.init_app(app)

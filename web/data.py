@@ -9,9 +9,8 @@ from pathlib import Path
 from flask import Blueprint, flash, redirect, render_template, url_for
 from werkzeug.utils import secure_filename
 
-from auditor.ingest.pipeline import ImportOptions
 from auditor.services import portfolio as pf
-from auditor.services.ingest import import_files
+from auditor.services.ingest import ImportOptions, import_files
 from auditor.web.forms import UploadForm, choices
 from auditor.web.helpers import store
 

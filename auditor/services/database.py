@@ -9,9 +9,9 @@ from contextlib import contextmanager
 
 from auditor.errors import UsageError
 from auditor.store import Store, open_store
-from auditor.store.engine import safe_url
+from auditor.store.engine import APP_DIR_NAME, safe_url
 
-__all__ = ["open_database", "database_label", "schema_status", "upgrade_schema", "downgrade_schema"]
+__all__ = ["APP_DIR_NAME", "open_database", "database_label", "schema_status", "upgrade_schema", "downgrade_schema"]
 
 
 def open_database(url: str | None = None) -> Store:
