@@ -41,9 +41,9 @@ def main() -> None:
     ap.add_argument("--db", help="database URL with the demo loaded (default: build one in a temp dir)")
     args = ap.parse_args()
 
+    from auditor.services.cache import clear_caches
     from auditor.services.correction import SizeRequest, save_scenario, size_meter
     from auditor.services.demo import DEMO_TARIFF, load_demo
-    from auditor.services.portfolio import clear_caches
     from auditor.store import open_store
     from auditor.web import create_app
 

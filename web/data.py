@@ -9,7 +9,7 @@ from pathlib import Path
 from flask import Blueprint, flash, redirect, render_template, url_for
 from werkzeug.utils import secure_filename
 
-from auditor.services import portfolio as pf
+from auditor.services.import_views import import_overview, quality_overview
 from auditor.services.ingest import ImportOptions, import_files
 from auditor.web.forms import UploadForm, choices
 from auditor.web.helpers import store
@@ -30,12 +30,12 @@ def _form() -> UploadForm:
 
 def _page(form: UploadForm, status: int = 200, outcome: dict | None = None):
     s = store()
-    batches = pf.import_overview(s)
+    batches = import_overview(s)
     for b in batches:
         b["short_name"] = Path(b["file_name"]).name
     return render_template("imports.html", form=form, batches=batches,
                            rejected=[b for b in batches if b["status"] == "rejected"],
-                           quality=pf.quality_overview(s), outcome=outcome), status
+                           quality=quality_overview(s), outcome=outcome), status
 
 
 @bp.get("/imports")

@@ -7,7 +7,7 @@ import threading
 from flask import Flask, current_app, request
 
 from auditor.errors import AuditorError
-from auditor.services import portfolio as pf
+from auditor.services import portfolio
 from auditor.tariffs import Tariff
 
 log = logging.getLogger("auditor.web")
@@ -21,8 +21,8 @@ def tariff_dirs() -> list[str]:
     return list(current_app.config["TARIFF_DIRS"] or [])
 
 
-def tariff_choices() -> list[pf.TariffChoice]:
-    return pf.tariff_choices(tariff_dirs())
+def tariff_choices() -> list[portfolio.TariffChoice]:
+    return portfolio.tariff_choices(tariff_dirs())
 
 
 def default_tariff_name() -> str:
@@ -37,7 +37,7 @@ def chosen_tariff(name: str | None = None) -> tuple[str, Tariff]:
     """The tariff named by ``name`` or the ``tariff`` query parameter (a file stem), else the
     default one."""
     name = name or request.args.get("tariff") or default_tariff_name()
-    return name, pf.load_named_tariff(name, tariff_dirs())
+    return name, portfolio.load_named_tariff(name, tariff_dirs())
 
 
 def warm_cache(app: Flask) -> None:
@@ -49,7 +49,7 @@ def warm_cache(app: Flask) -> None:
             try:
                 name = default_tariff_name()
                 if name:
-                    pf.portfolio_summary(store(), pf.load_named_tariff(name, tariff_dirs()))
+                    portfolio.portfolio_summary(store(), portfolio.load_named_tariff(name, tariff_dirs()))
             except AuditorError as exc:  # the page itself will show the problem
                 log.warning("cache warm-up: %s", exc.message)
 
@@ -68,9 +68,9 @@ def tariff_for_scenario(saved: dict) -> tuple[str, Tariff]:
     choices = [c for c in tariff_choices() if not c.error]
     for c in choices:
         if c.name == stem:
-            return c.name, pf.load_named_tariff(c.name, tariff_dirs())
+            return c.name, portfolio.load_named_tariff(c.name, tariff_dirs())
     for c in choices:
         if c.title == saved.get("tariff"):
-            return c.name, pf.load_named_tariff(c.name, tariff_dirs())
+            return c.name, portfolio.load_named_tariff(c.name, tariff_dirs())
     raise NotFoundError(f"scenario {saved.get('name')!r} was computed under tariff {saved.get('tariff')!r}, "
                         "which the dashboard does not have; put its TOML file in the instance folder's tariffs/")

@@ -8,9 +8,11 @@ from flask import Blueprint, Response, abort, render_template, request
 
 from auditor import charts
 from auditor.errors import UsageError
-from auditor.services import portfolio as pf
 from auditor.services import report as rp
+from auditor.services.cache import cached_audit
 from auditor.services.correction import list_scenarios
+from auditor.services.meter_charts import meter_profile
+from auditor.services.portfolio import tariff_threshold_pf
 from auditor.web.helpers import chosen_tariff, store, tariff_choices, tariff_for_scenario
 
 bp = Blueprint("meters", __name__)
@@ -35,10 +37,10 @@ def meter(meter: str):
     name, tariff = chosen_tariff()
     target = _target_pf()
     s = store()
-    ma = pf.cached_audit(s, meter, tariff)
+    ma = cached_audit(s, meter, tariff)
     audit = ma.to_dict()
-    profile = pf.meter_profile(s, meter, target)
-    thresholds = pf.tariff_threshold_pf(tariff)
+    profile = meter_profile(s, meter, target)
+    thresholds = tariff_threshold_pf(tariff)
     cols, rows = rp.period_rows(audit, rp.period_columns(audit, list(ma.result.charge_keys)))
     figs = [("pf", charts.pf_by_period(audit, thresholds)),
             ("reactive", charts.reactive_by_period(audit, list(ma.result.reactive_keys))),

@@ -5,7 +5,7 @@ from importlib import resources
 
 from flask import Blueprint, render_template, send_file
 
-from auditor.services import portfolio as pf
+from auditor.services.portfolio import portfolio_summary, tariff_threshold_pf
 from auditor.web.helpers import chosen_tariff, store, tariff_choices
 
 bp = Blueprint("portfolio", __name__)
@@ -14,7 +14,7 @@ bp = Blueprint("portfolio", __name__)
 @bp.get("/")
 def index():
     name, tariff = chosen_tariff()
-    rows = pf.portfolio_summary(store(), tariff)
+    rows = portfolio_summary(store(), tariff)
     totals = {
         "meters": len(rows),
         "sites": len({r["site"] for r in rows}),
@@ -23,7 +23,7 @@ def index():
                        if r["best"] and (r["best"]["npv"] or 0) > 0 and r["best"]["tariff"] == tariff.name),
     }
     return render_template("portfolio.html", rows=rows, totals=totals, tariff=tariff, tariff_name=name,
-                           tariffs=tariff_choices(), thresholds=pf.tariff_threshold_pf(tariff))
+                           tariffs=tariff_choices(), thresholds=tariff_threshold_pf(tariff))
 
 
 @bp.get("/vendor/plotly.min.js")

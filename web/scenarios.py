@@ -6,8 +6,8 @@ from flask import Blueprint, flash, redirect, render_template, request, url_for
 from auditor import charts
 from auditor.correction import CAUTIONS
 from auditor.errors import AuditorError
-from auditor.services import portfolio as pf
 from auditor.services import report as rp
+from auditor.services.cache import cached_size
 from auditor.services.correction import (
     SizeRequest,
     delete_scenario,
@@ -16,6 +16,7 @@ from auditor.services.correction import (
     save_scenario,
 )
 from auditor.services.meters import list_meters
+from auditor.services.portfolio import load_named_tariff
 from auditor.web.forms import COSTS, DeleteForm, ScenarioForm, choices
 from auditor.web.helpers import default_tariff_name, store, tariff_choices, tariff_dirs
 
@@ -98,8 +99,8 @@ def run():
         detuning_percent=float(form.detuning.data) if form.design.data != "optimise" else 0.0,
         costs=form.costs())
     try:
-        tariff = pf.load_named_tariff(req.tariff, tariff_dirs())
-        case = pf.cached_size(store(), req, tariff)
+        tariff = load_named_tariff(req.tariff, tariff_dirs())
+        case = cached_size(store(), req, tariff)
         name = (form.name.data or "").strip()
         if name:
             save_scenario(store(), name, case)

@@ -125,7 +125,7 @@ class ReportData:
     charge_keys: tuple[str, ...]
     reactive_keys: tuple[str, ...]
     thresholds: list[dict]
-    profile: object | None = None  # portfolio.MeterProfile (heat map in the HTML report)
+    profile: object | None = None  # meter_charts.MeterProfile (heat map in the HTML report)
     scenario_name: str | None = None
     scenario: dict | None = None  # a saved SizeCase.to_dict()
     generated_at: str = field(default_factory=lambda: datetime.now(UTC).isoformat(timespec="seconds"))
@@ -144,7 +144,9 @@ def build_report(store: Store, meter: str, tariff: str | Path | Tariff, scenario
     The scenario must belong to ``meter`` and have been computed under the same tariff (by
     name); otherwise the report would set two different bills side by side.
     """
-    from auditor.services.portfolio import cached_audit, meter_profile, tariff_threshold_pf
+    from auditor.services.cache import cached_audit
+    from auditor.services.meter_charts import meter_profile
+    from auditor.services.portfolio import tariff_threshold_pf
 
     t = resolve_tariff(tariff)
     saved = None
