@@ -1,9 +1,12 @@
 """The audit: period figures and tariff charges for one meter, as a pure computation.
 
-:func:`prepare_audit` does everything that does not depend on reactive energy once (period
-boundaries, kWh, kW peaks, local-time masks, coverage); :meth:`PreparedAudit.run` then
-recomputes the reactive figures and every charge from per-interval kvarh arrays in a few
-milliseconds, which is what lets the correction layer try many capacitor banks.
+:func:`prepare_audit` does everything that does not depend on reactive energy once, as a list
+of named steps (check the inputs, choose the billing periods, select their intervals, active
+figures, tariff windows, coverage and warnings, demand history); :meth:`PreparedAudit.run`
+then recomputes the reactive figures and every charge from per-interval kvarh arrays in a few
+milliseconds, which is what lets the correction layer try many capacitor banks. The period
+figures themselves come from :mod:`auditor.quantities` (one copy, shared with
+:func:`auditor.quantities.period_figures`).
 """
 from __future__ import annotations
 
@@ -26,10 +29,11 @@ from auditor.quantities import (
     energy_pf,
     expected_intervals,
     local_bounds_utc,
-    power_factor,
+    peak_figures,
+    ratio_figures,
+    reactive_period_figures,
     segment_argmax,
     segment_bounds,
-    segment_max,
     segment_sum,
 )
 from auditor.tariffs.engine import (
@@ -209,20 +213,7 @@ class PreparedAudit:
         lag = self.kvarh_lag if kvarh_lag is None else self._check(kvarh_lag, "kvarh_lag")
         lead = self.kvarh_lead if kvarh_lead is None else self._check(kvarh_lead, "kvarh_lead")
         b = self.bounds
-        to_demand = 60.0 / self.interval_minutes
-        kvar_lag = lag * to_demand
-        kvar_net = (lag - lead) * to_demand
-        kva = np.hypot(self.kw, kvar_net)
-        sums = segment_sum(np.vstack([lag, lead]), b)
-        peak_kva = segment_max(kva, b)
-        peak_kvar = segment_max(kvar_lag, b)
-        at = np.maximum(self.peak_kw_pos, 0)
-        has = self.peak_kw_pos >= 0
-        if self.kw.size:
-            pf_peak, sense = power_factor(self.kw[at], kvar_net[at])
-        else:
-            pf_peak, sense = np.full(len(at), np.nan), np.full(len(at), "")
-        pf_peak = np.where(has, pf_peak, np.nan)
+        r = reactive_period_figures(self.kw, lag, lead, b, self.interval_minutes, self.peak_kw_pos)
         windowed: list[WindowSums | None] = []
         if self.window_masks.shape[0]:
             wl = segment_sum(self.window_masks * lag, b)
@@ -231,17 +222,17 @@ class PreparedAudit:
             windowed.append(None if row is None else WindowSums(self.window_kwh[row], wl[row], wd[row]))
         q = PeriodQuantities(
             kwh=self.period_kwh,
-            kvarh_lag=sums[0],
-            kvarh_lead=sums[1],
+            kvarh_lag=r.kvarh_lag,
+            kvarh_lead=r.kvarh_lead,
             peak_kw=self.peak_kw,
-            peak_kva=peak_kva,
-            peak_kvar=peak_kvar,
-            pf_at_peak=pf_peak,
+            peak_kva=r.peak_kva,
+            peak_kvar=r.peak_kvar,
+            pf_at_peak=r.pf_at_peak,
             energy_kwh=self.energy_kwh,
             windowed=tuple(windowed),
             history_demand=self.history_demand,
         )
-        return q, {"kva": kva, "pf_at_peak_sense": np.where(has, sense, "")}
+        return q, {"kva": r.kva, "pf_at_peak_sense": r.pf_at_peak_sense}
 
     def run_charges(self, kvarh_lag=None, kvarh_lead=None) -> Charges:
         """Charges only (arrays per period), the fastest path for an optimiser."""
@@ -253,12 +244,10 @@ class PreparedAudit:
         q, extra = self.quantities(kvarh_lag, kvarh_lead)
         ch = compute_charges(self.tariff, q)
         n = len(self.periods)
-        pf = energy_pf(q.kwh, q.kvarh_lag)
-        tan_phi = np.divide(q.kvarh_lag, q.kwh, out=np.full(n, np.nan), where=q.kwh > 0)
-        hours = self.intervals * self.interval_minutes / 60.0
-        denom = self.peak_kw * hours
-        load_factor = np.divide(q.kwh, denom, out=np.full(n, np.nan), where=np.nan_to_num(denom) > 0)
-        coverage = np.divide(self.intervals, self.expected, out=np.full(n, np.nan), where=self.expected > 0)
+        ratios = ratio_figures(q.kwh, q.kvarh_lag, self.peak_kw, self.intervals, self.expected,
+                               self.interval_minutes)
+        pf, tan_phi = ratios["pf"], ratios["tan_phi"]
+        load_factor, coverage = ratios["load_factor"], ratios["coverage"]
         kva_pos = segment_argmax(extra["kva"], self.bounds) if self.kw.size else np.full(n, -1)
         warnings = list(self.warnings)
         for k in np.flatnonzero(~np.isfinite(pf) & (self.intervals > 0)):
@@ -379,22 +368,71 @@ def prepare_audit(
     ----------
     .. [1] IEEE Std 1459-2010, section 3.1.1 (P, Q, S, PF).
     """
+    frame = _check_inputs(frame, tariff, interval_minutes, start, end)
+    ps, clipped = _choose_periods(frame, tz, interval_minutes, periods, billing_day, start, end)
+    sel = _select_intervals(frame, ps, tz, interval_minutes)
+    active = _active_figures(sel, ps, tz, interval_minutes)
+    windows = _tariff_windows(tariff, sel, tz)
+    partial, warnings = _coverage_and_warnings(frame, ps, clipped, tz, interval_minutes, active,
+                                               outside=len(frame) - len(sel.index))
+    history = _demand_history(history_peak_kw)
+    return PreparedAudit(
+        tariff=tariff,
+        tz=tz,
+        interval_minutes=int(interval_minutes),
+        periods=list(ps),
+        index=sel.index,
+        kwh=sel.kwh,
+        kw=sel.kw,
+        kvar_lag=demand_from_energy(sel.kvarh_lag, interval_minutes),
+        kvar_lead=demand_from_energy(sel.kvarh_lead, interval_minutes),
+        kvarh_lag=sel.kvarh_lag,
+        kvarh_lead=sel.kvarh_lead,
+        bounds=sel.bounds,
+        partial=partial,
+        intervals=active.intervals,
+        expected=active.expected,
+        estimated=active.estimated,
+        period_kwh=active.period_kwh,
+        peak_kw=active.peak_kw,
+        peak_kw_pos=active.peak_kw_pos,
+        peak_kw_at=active.peak_kw_at,
+        energy_kwh=windows.energy_kwh,
+        window_masks=windows.masks,
+        window_kwh=windows.kwh,
+        window_rows=windows.rows,
+        history_demand=history,
+        warnings=tuple(warnings),
+        _local_index=sel.local_index,
+    )
+
+
+# --------------------------------------------------------------------------------------------
+# the steps of prepare_audit
+# --------------------------------------------------------------------------------------------
+def _check_inputs(frame: pd.DataFrame, tariff: Tariff, interval_minutes: int, start: date | None,
+                  end: date | None) -> pd.DataFrame:
+    """Step 1: the interval length, the tariff, the frame (sorted) and the range."""
     check_interval_minutes(interval_minutes)
     if not isinstance(tariff, Tariff):
         raise UsageError("tariff must be a Tariff (load it with auditor.tariffs.load_tariff)")
     frame = _check_frame(frame)
     if start is not None and end is not None and end <= start:
         raise UsageError(f"end {end.isoformat()} must be after start {start.isoformat()}")
-    step = pd.Timedelta(minutes=interval_minutes)
+    return frame
 
+
+def _choose_periods(frame: pd.DataFrame, tz: str, interval_minutes: int,
+                    periods: Sequence[BillingPeriod] | None, billing_day: int | None,
+                    start: date | None, end: date | None) -> tuple[list[BillingPeriod], list[bool]]:
+    """Step 2: the billing periods (given, or cycles covering the data or ``start``..``end``),
+    cut to the range; ``clipped[k]`` says period k was cut."""
     if periods is not None:
         ps = check_periods(periods)
-        clipped = [False] * len(ps)
-        if start is not None or end is not None:
-            ps, clipped = clip_periods(ps, start, end)
     else:
         if frame.empty and (start is None or end is None):
             raise UsageError("no interval data to audit (give start and end, or billing periods)")
+        step = pd.Timedelta(minutes=interval_minutes)
         first = local_bounds_utc([start], tz)[0] if start is not None else frame.index[0]
         last = local_bounds_utc([end], tz)[0] - step if end is not None else frame.index[-1]
         if start is not None and end is None and last < first:
@@ -402,49 +440,104 @@ def prepare_audit(
         if end is not None and start is None and last < first:
             raise UsageError(f"no interval data before {end.isoformat()}")
         ps = billing_periods(first, last, tz, billing_day=billing_day)
-        clipped = [False] * len(ps)
-        if start is not None or end is not None:
-            ps, clipped = clip_periods(ps, start, end)
+    clipped = [False] * len(ps)
+    if start is not None or end is not None:
+        ps, clipped = clip_periods(ps, start, end)
+    return ps, clipped
 
+
+@dataclass(frozen=True, eq=False)
+class _Selected:
+    """The intervals inside some billing period, time-sorted, as arrays."""
+
+    bounds: np.ndarray
+    index: pd.DatetimeIndex  # UTC
+    local_index: pd.DatetimeIndex
+    kwh: np.ndarray
+    kw: np.ndarray
+    kvarh_lag: np.ndarray
+    kvarh_lead: np.ndarray
+    estimated: np.ndarray
+
+
+def _select_intervals(frame: pd.DataFrame, ps: list[BillingPeriod], tz: str, interval_minutes: int) -> _Selected:
+    """Step 3: the intervals of the periods and their boundaries (period k is
+    ``[bounds[k], bounds[k+1])``)."""
     sel, bounds = segment_bounds(frame.index, ps, tz)
     f = frame[sel]
     index = f.index.tz_convert("UTC")
-    local_index = index.tz_convert(tz)
     kwh = f["kwh"].to_numpy(dtype=float)
-    lag = f["kvarh_lag"].to_numpy(dtype=float)
-    lead = f["kvarh_lead"].to_numpy(dtype=float)
     est = f["estimated"].to_numpy(dtype=bool) if "estimated" in f.columns else np.zeros(len(f), dtype=bool)
-    kw = demand_from_energy(kwh, interval_minutes)
+    return _Selected(bounds=bounds, index=index, local_index=index.tz_convert(tz), kwh=kwh,
+                     kw=demand_from_energy(kwh, interval_minutes),
+                     kvarh_lag=f["kvarh_lag"].to_numpy(dtype=float),
+                     kvarh_lead=f["kvarh_lead"].to_numpy(dtype=float), estimated=est)
 
-    n = len(ps)
-    intervals = np.diff(bounds)
-    expected = expected_intervals(ps, tz, interval_minutes)
-    estimated = segment_sum(est.astype(float), bounds).astype(np.int64)
-    period_kwh = segment_sum(kwh, bounds)
-    peak_kw = segment_max(kw, bounds)
-    peak_kw_pos = segment_argmax(kw, bounds) if kw.size else np.full(n, -1, dtype=np.int64)
-    peak_kw_at = [local_index[i].isoformat() if i >= 0 else None for i in peak_kw_pos]
 
-    cal = local_calendar(index, tz, tariff.calendar)
+@dataclass(frozen=True, eq=False)
+class _Active:
+    """Per period: what reactive energy does not change."""
+
+    intervals: np.ndarray
+    expected: np.ndarray
+    estimated: np.ndarray
+    period_kwh: np.ndarray
+    peak_kw: np.ndarray
+    peak_kw_pos: np.ndarray
+    peak_kw_at: list
+
+
+def _active_figures(sel: _Selected, ps: list[BillingPeriod], tz: str, interval_minutes: int) -> _Active:
+    """Step 4: intervals present and expected (local time, DST-aware), estimated intervals, kWh
+    and the kW peak with its local time."""
+    period_kwh, peak_kw, peak_kw_pos = peak_figures(sel.kwh, sel.kw, sel.bounds)
+    return _Active(
+        intervals=np.diff(sel.bounds),
+        expected=expected_intervals(ps, tz, interval_minutes),
+        estimated=segment_sum(sel.estimated.astype(float), sel.bounds).astype(np.int64),
+        period_kwh=period_kwh, peak_kw=peak_kw, peak_kw_pos=peak_kw_pos,
+        peak_kw_at=[sel.local_index[i].isoformat() if i >= 0 else None for i in peak_kw_pos],
+    )
+
+
+@dataclass(frozen=True, eq=False)
+class _Windows:
+    energy_kwh: np.ndarray  # (energy windows + 1, periods)
+    masks: np.ndarray  # (reactive clauses with windows, intervals) as float 0/1
+    kwh: np.ndarray  # (reactive clauses with windows, periods)
+    rows: tuple[int | None, ...]  # tariff.reactive position -> row in masks
+
+
+def _tariff_windows(tariff: Tariff, sel: _Selected, tz: str) -> _Windows:
+    """Step 5: kWh per energy window, and the local-time masks of the reactive clauses that
+    count energy inside windows (:func:`auditor.tariffs.engine.mechanism_windows`)."""
+    n = len(sel.bounds) - 1
+    cal = local_calendar(sel.index, tz, tariff.calendar)
     e_idx = energy_window_index(tariff.energy, cal)
     onehot = (e_idx[None, :] == np.arange(len(tariff.energy.windows) + 1)[:, None]).astype(float)
-    energy_kwh = segment_sum(onehot * kwh, bounds)
-
+    energy_kwh = segment_sum(onehot * sel.kwh, sel.bounds)
     masks, rows = [], []
     for m in tariff.reactive:
         ws = mechanism_windows(m)
         if ws:
-            mask = np.zeros(len(index), dtype=bool)
+            mask = np.zeros(len(sel.index), dtype=bool)
             for w in ws:
                 mask |= window_mask(w, cal)
             rows.append(len(masks))
             masks.append(mask.astype(float))
         else:
             rows.append(None)
-    window_masks = np.vstack(masks) if masks else np.zeros((0, len(index)))
-    window_kwh = segment_sum(window_masks * kwh, bounds) if masks else np.zeros((0, n))
+    window_masks = np.vstack(masks) if masks else np.zeros((0, len(sel.index)))
+    window_kwh = segment_sum(window_masks * sel.kwh, sel.bounds) if masks else np.zeros((0, n))
+    return _Windows(energy_kwh, window_masks, window_kwh, tuple(rows))
 
-    # Partial: the period reaches beyond the data, or a billing cycle was cut by start/end.
+
+def _coverage_and_warnings(frame: pd.DataFrame, ps: list[BillingPeriod], clipped: list[bool], tz: str,
+                           interval_minutes: int, active: _Active, outside: int) -> tuple[np.ndarray, list[str]]:
+    """Step 6: which periods are partial (beyond the data, or a cycle cut by the range), and a
+    warning for every partial, gappy or estimated period — never silent."""
+    step = pd.Timedelta(minutes=interval_minutes)
+    intervals, expected, estimated = active.intervals, active.expected, active.estimated
     p_start = local_bounds_utc([p.start for p in ps], tz)
     p_end = local_bounds_utc([p.end for p in ps], tz)
     partial = np.array(clipped, dtype=bool)
@@ -474,42 +567,17 @@ def prepare_audit(
             )
         if estimated[k]:
             warnings.append(f"{label}: {estimated[k]} estimated interval{'s' if estimated[k] > 1 else ''}")
-    if int(sel.sum()) < len(frame):
-        warnings.append(f"{len(frame) - int(sel.sum())} intervals fall outside every billing period and are not billed")
+    if outside > 0:
+        warnings.append(f"{outside} intervals fall outside every billing period and are not billed")
+    return partial, warnings
 
+
+def _demand_history(history_peak_kw: Sequence[float] | None) -> np.ndarray:
+    """Step 7: the measured demand of the periods before the first, for the ratchet."""
     history = np.asarray(history_peak_kw if history_peak_kw is not None else [], dtype=float)
     if history.ndim != 1 or (history.size and not (np.isfinite(history).all() and history.min() >= 0)):
         raise UsageError("history_peak_kw must be a list of demands of at least 0, oldest first")
-
-    return PreparedAudit(
-        tariff=tariff,
-        tz=tz,
-        interval_minutes=int(interval_minutes),
-        periods=list(ps),
-        index=index,
-        kwh=kwh,
-        kw=kw,
-        kvar_lag=demand_from_energy(lag, interval_minutes),
-        kvar_lead=demand_from_energy(lead, interval_minutes),
-        kvarh_lag=lag,
-        kvarh_lead=lead,
-        bounds=bounds,
-        partial=partial,
-        intervals=intervals,
-        expected=expected,
-        estimated=estimated,
-        period_kwh=period_kwh,
-        peak_kw=peak_kw,
-        peak_kw_pos=peak_kw_pos,
-        peak_kw_at=peak_kw_at,
-        energy_kwh=energy_kwh,
-        window_masks=window_masks,
-        window_kwh=window_kwh,
-        window_rows=tuple(rows),
-        history_demand=history,
-        warnings=tuple(warnings),
-        _local_index=local_index,
-    )
+    return history
 
 
 def audit(frame: pd.DataFrame, tariff: Tariff, *, tz: str, interval_minutes: int, **kw) -> AuditResult:

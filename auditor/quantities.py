@@ -39,7 +39,11 @@ __all__ = [
     "interval_power",
     "local_bounds_utc",
     "period_figures",
+    "peak_figures",
     "power_factor",
+    "ratio_figures",
+    "reactive_period_figures",
+    "ReactivePeriodFigures",
     "round_pf",
     "segment_bounds",
     "segment_argmax",
@@ -413,8 +417,79 @@ def segment_argmax(values, bounds) -> np.ndarray:
 
 
 # --------------------------------------------------------------------------------------------
-# Period figures (pandas convenience over the same array functions)
+# Period figures: one copy, used by the audit (PreparedAudit) and by period_figures
 # --------------------------------------------------------------------------------------------
+def peak_figures(kwh: np.ndarray, kw: np.ndarray, bounds: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """kWh per period, the peak kW and the position of its (first) interval (-1: none)."""
+    n = len(bounds) - 1
+    period_kwh = segment_sum(kwh, bounds)
+    peak_kw = segment_max(kw, bounds)
+    peak_kw_pos = segment_argmax(kw, bounds) if kw.size else np.full(n, -1, dtype=np.int64)
+    return period_kwh, peak_kw, peak_kw_pos
+
+
+@dataclass(frozen=True, eq=False)
+class ReactivePeriodFigures:
+    """What reactive energy changes in the figures of each period (see
+    :func:`reactive_period_figures`)."""
+
+    kvarh_lag: np.ndarray  # per period
+    kvarh_lead: np.ndarray  # per period
+    kva: np.ndarray  # per interval, with Q_net
+    peak_kva: np.ndarray
+    peak_kvar: np.ndarray  # lagging
+    pf_at_peak: np.ndarray  # interval PF at the kW peak (NaN: no interval)
+    pf_at_peak_sense: np.ndarray  # 'lag', 'lead' or ''
+
+
+def reactive_period_figures(kw: np.ndarray, kvarh_lag: np.ndarray, kvarh_lead: np.ndarray, bounds: np.ndarray,
+                            interval_minutes: int, peak_kw_pos: np.ndarray) -> ReactivePeriodFigures:
+    """Per period: lagging and leading kvarh, peak kVA (from Q_net) and peak lagging kvar, and
+    the interval PF at the kW peak, from per-interval arrays.
+
+    References
+    ----------
+    .. [1] IEEE Std 1459-2010, section 3.1.1 (S = sqrt(P^2 + Q^2), PF = P / S).
+    """
+    to_demand = 60.0 / interval_minutes
+    kvar_lag = kvarh_lag * to_demand
+    kvar_net = (kvarh_lag - kvarh_lead) * to_demand
+    kva = np.hypot(kw, kvar_net)
+    sums = segment_sum(np.vstack([kvarh_lag, kvarh_lead]), bounds)
+    at = np.maximum(peak_kw_pos, 0)
+    has = peak_kw_pos >= 0
+    if kw.size:
+        pf_peak, sense = power_factor(kw[at], kvar_net[at])
+    else:
+        pf_peak, sense = np.full(len(at), np.nan), np.full(len(at), "")
+    return ReactivePeriodFigures(
+        kvarh_lag=sums[0], kvarh_lead=sums[1], kva=kva, peak_kva=segment_max(kva, bounds),
+        peak_kvar=segment_max(kvar_lag, bounds), pf_at_peak=np.where(has, pf_peak, np.nan),
+        pf_at_peak_sense=np.where(has, sense, ""),
+    )
+
+
+def ratio_figures(kwh: np.ndarray, kvarh_lag: np.ndarray, peak_kw: np.ndarray, intervals: np.ndarray,
+                  expected: np.ndarray, interval_minutes: int) -> dict[str, np.ndarray]:
+    """Per period: ``pf`` (lagging-only energy PF), ``tan_phi`` (lagging kvarh / kWh),
+    ``load_factor`` (kWh / (peak kW x hours with data)) and ``coverage`` (intervals present /
+    expected); NaN where undefined.
+
+    References
+    ----------
+    .. [1] IEEE Std 1459-2010, section 3.1.1, applied to period energies.
+    """
+    n = len(kwh)
+    hours = intervals * interval_minutes / 60.0
+    denom = peak_kw * hours
+    return {
+        "pf": energy_pf(kwh, kvarh_lag),
+        "tan_phi": np.divide(kvarh_lag, kwh, out=np.full(n, np.nan), where=kwh > 0),
+        "load_factor": np.divide(kwh, denom, out=np.full(n, np.nan), where=np.nan_to_num(denom) > 0),
+        "coverage": np.divide(intervals, expected, out=np.full(n, np.nan), where=expected > 0),
+    }
+
+
 def period_figures(
     frame: pd.DataFrame,
     periods: Sequence[BillingPeriod],
@@ -423,6 +498,9 @@ def period_figures(
     kvarh_basis: str = "lag",
 ) -> pd.DataFrame:
     """Billing-period figures of an interval frame, one row per period.
+
+    A pandas view over the same functions the audit uses (:func:`peak_figures`,
+    :func:`reactive_period_figures`, :func:`ratio_figures`), so the two never disagree.
 
     Columns: ``start``, ``end`` (local dates), ``kwh``, ``kvarh_lag``, ``kvarh_lead``, ``pf``
     (lagging-only energy PF), ``pf_basis`` (energy PF with ``kvarh_basis``: 'lag', 'net' or
@@ -437,27 +515,23 @@ def period_figures(
     """
     check_interval_minutes(interval_minutes)
     periods = check_periods(periods)
+    basis_of = {"lag": lambda lag, lead: lag, "net": lambda lag, lead: lag - lead,
+                "lag_plus_lead": lambda lag, lead: lag + lead}
+    if kvarh_basis not in basis_of:
+        raise UsageError(f"kvarh basis must be 'lag', 'net' or 'lag_plus_lead', got {kvarh_basis!r}")
     frame = frame.sort_index()
     sel, bounds = segment_bounds(frame.index, periods, tz)
     f = frame[sel]
-    power = interval_power(f, interval_minutes)
-    kwh = segment_sum(f["kwh"].to_numpy(float), bounds)
-    lag = segment_sum(f["kvarh_lag"].to_numpy(float), bounds)
-    lead = segment_sum(f["kvarh_lead"].to_numpy(float), bounds)
-    kw = power["kw"].to_numpy()
-    kva = power["kva"].to_numpy()
-    i_kw = segment_argmax(kw, bounds)
-    i_kva = segment_argmax(kva, bounds)
-    local = f.index.tz_convert(tz)
+    kwh_i = f["kwh"].to_numpy(float)
+    kw = demand_from_energy(kwh_i, interval_minutes)
+    kwh, peak_kw, i_kw = peak_figures(kwh_i, kw, bounds)
+    r = reactive_period_figures(kw, f["kvarh_lag"].to_numpy(float), f["kvarh_lead"].to_numpy(float), bounds,
+                                interval_minutes, i_kw)
     present = np.diff(bounds)
     expected = expected_intervals(periods, tz, interval_minutes)
-    peak_kw = segment_max(kw, bounds)
-    hours = present * interval_minutes / 60.0
-    pf_peak = np.where(i_kw >= 0, power["pf"].to_numpy()[np.maximum(i_kw, 0)], np.nan)
-    sense_peak = np.where(i_kw >= 0, power["pf_sense"].to_numpy()[np.maximum(i_kw, 0)], "")
-    basis = {"lag": lag, "net": lag - lead, "lag_plus_lead": lag + lead}
-    if kvarh_basis not in basis:
-        raise UsageError(f"kvarh basis must be 'lag', 'net' or 'lag_plus_lead', got {kvarh_basis!r}")
+    ratios = ratio_figures(kwh, r.kvarh_lag, peak_kw, present, expected, interval_minutes)
+    i_kva = segment_argmax(r.kva, bounds)
+    local = f.index.tz_convert(tz)
 
     def at(i):
         return [local[j].isoformat() if j >= 0 else None for j in i]
@@ -467,22 +541,22 @@ def period_figures(
             "start": [p.start for p in periods],
             "end": [p.end for p in periods],
             "kwh": kwh,
-            "kvarh_lag": lag,
-            "kvarh_lead": lead,
-            "pf": energy_pf(kwh, lag),
-            "pf_basis": energy_pf(kwh, basis[kvarh_basis]),
-            "tan_phi": np.divide(lag, kwh, out=np.full(len(periods), np.nan), where=kwh > 0),
+            "kvarh_lag": r.kvarh_lag,
+            "kvarh_lead": r.kvarh_lead,
+            "pf": ratios["pf"],
+            "pf_basis": energy_pf(kwh, basis_of[kvarh_basis](r.kvarh_lag, r.kvarh_lead)),
+            "tan_phi": ratios["tan_phi"],
             "peak_kw": peak_kw,
             "peak_kw_at": at(i_kw),
-            "peak_kva": segment_max(kva, bounds),
+            "peak_kva": r.peak_kva,
             "peak_kva_at": at(i_kva),
-            "peak_kvar": segment_max(power["kvar_lag"].to_numpy(), bounds),
-            "pf_at_peak": pf_peak,
-            "pf_at_peak_sense": sense_peak,
-            "load_factor": np.divide(kwh, peak_kw * hours, out=np.full(len(periods), np.nan), where=(peak_kw * hours) > 0),
+            "peak_kvar": r.peak_kvar,
+            "pf_at_peak": r.pf_at_peak,
+            "pf_at_peak_sense": r.pf_at_peak_sense,
+            "load_factor": ratios["load_factor"],
             "intervals": present,
             "expected_intervals": expected,
-            "coverage": np.divide(present, expected, out=np.full(len(periods), np.nan), where=expected > 0),
+            "coverage": ratios["coverage"],
             "estimated_intervals": segment_sum(f["estimated"].to_numpy(dtype=float), bounds).astype(np.int64),
         }
     )

@@ -201,3 +201,33 @@ def test_more_lagging_energy_never_lowers_the_bill(scale, shift):
     base = prepared.run_charges(lag).total.sum()
     lag[shift] += 100 * scale
     assert prepared.run_charges(lag).total.sum() >= base - 1e-9
+
+
+def test_period_figures_and_the_audit_give_the_same_figures():
+    """One copy of the period figures: quantities.period_figures and PreparedAudit.run share
+    their functions, so every common figure agrees exactly, gaps, leading hours and a partial
+    month included (the figures themselves are checked against hand-worked values above)."""
+    from auditor.quantities import period_figures
+    from tests.audit_helpers import set_at
+
+    rng = np.random.default_rng(7)
+    f = interval_frame("2025-03-01", "2025-05-10", minutes=15)
+    f["kwh"] = rng.uniform(0, 80, len(f))
+    f["kvarh_lag"] = rng.uniform(0, 50, len(f))
+    f["kvarh_lead"] = np.where(rng.uniform(size=len(f)) < 0.1, rng.uniform(0, 20, len(f)), 0.0)
+    f["estimated"] = rng.uniform(size=len(f)) < 0.01
+    f = f.drop(f.index[1000:1100])  # a gap
+    set_at(f, "2025-04-02 10:00", kwh=0.0, kvarh_lag=0.0, kvarh_lead=5.0)
+    periods = [BillingPeriod(date(2025, 3, 1), date(2025, 4, 1)), BillingPeriod(date(2025, 4, 1), date(2025, 5, 1)),
+               BillingPeriod(date(2025, 5, 1), date(2025, 6, 1))]
+    fig = period_figures(f, periods, "Europe/Berlin", 15)
+    res = audit(f, tariff(), tz="Europe/Berlin", interval_minutes=15, periods=periods)
+    for k, p in enumerate(res.periods):
+        row = fig.iloc[k]
+        for name in ("kwh", "kvarh_lag", "kvarh_lead", "pf", "tan_phi", "peak_kw", "peak_kva", "peak_kvar",
+                     "pf_at_peak", "load_factor", "coverage"):
+            assert getattr(p, name) == row[name] or (np.isnan(getattr(p, name)) and np.isnan(row[name])), name
+        assert (p.intervals, p.expected_intervals, p.estimated_intervals) == (
+            row["intervals"], row["expected_intervals"], row["estimated_intervals"])
+        assert (p.peak_kw_at, p.peak_kva_at, p.pf_at_peak_sense) == (
+            row["peak_kw_at"], row["peak_kva_at"], row["pf_at_peak_sense"])
