@@ -40,7 +40,8 @@ Causes (bill-level patterns, tested in this order; see the functions of the same
 ``multiplier``
     at least two of kWh, kvarh, peak kW, peak kVA differ by the *same* ratio (each within its own
     tolerance of the common ratio) and the PF, which a multiplier leaves alone, agrees: a wrong
-    meter multiplier or CT / VT ratio (domain.md section 2).
+    meter multiplier or CT / VT ratio (common practice). Tested by :func:`common_ratio`: the
+    word "multiplier" alone stays the meter's CT × VT factor (``Meter.multiplier``).
 ``period_shift``
     the billed kWh (and kvarh, when billed) match the same-length period moved by 1 to
     ``max_shift_days`` days with complete data: the bill's dates do not match its reads. When
@@ -126,7 +127,7 @@ __all__ = [
     "fill_gaps_high",
     "demand_interval",
     "lag_plus_lead",
-    "multiplier",
+    "common_ratio",
     "period_shift",
     "pf_threshold",
     "reactive_above_threshold",
@@ -466,7 +467,7 @@ def _finite(x) -> bool:
     return x is not None and math.isfinite(float(x))
 
 
-def multiplier(billed: dict, expected: dict, tol: Tolerances) -> float | None:
+def common_ratio(billed: dict, expected: dict, tol: Tolerances) -> float | None:
     """The common ratio billed / expected when every billed quantity shares it, else None.
 
     At least two of kWh, kvarh, peak kW and peak kVA must be billed; each ratio must lie within
@@ -638,16 +639,34 @@ def _severity(cause: str | None, money: float, diff: float, allowed: float, tol:
 
 def _check_one(bill: BillRecord, p: PeriodResult, k: int, tariff: Tariff, alt: Alternatives | None,
                tol: Tolerances, interval_minutes: int | None, upper: PeriodResult | None = None) -> BillCheck:
+    """One bill against period ``k`` of the audit: coverage, fields beyond tolerance, their
+    causes, the findings with their money, and what the bill makes disputable."""
     expected = expected_figures(p, tariff)
     billed = bill.billed()
     label = f"bill {bill.meter} {bill.period_start}..{bill.period_end}"
+    coverage, est_share, warnings, comparable = _data_coverage(p, tol, label)
+    if not comparable:
+        return BillCheck(bill, expected, coverage, est_share, False, (), (), 0.0, tuple(warnings))
+    up_fig = expected_figures(upper, tariff) if (upper is not None and coverage < 1.0) else None
+    raw, upper_of = _beyond_tolerance(billed, expected, up_fig, coverage, tol, label, warnings)
+    causes, details = _probable_causes(raw, billed, expected, k, p, tariff, alt, tol, est_share)
+    findings = _findings(bill, raw, upper_of, causes, details, p, tariff, billed, expected, tol, interval_minutes)
+    disputable = _disputable(findings, billed, _demand_field(tariff))
+    ordered = tuple(c for c in CAUSES if c in details)
+    return BillCheck(bill, expected, coverage, est_share, True, tuple(findings), ordered,
+                     round(float(disputable), 2), tuple(warnings), details)
+
+
+def _data_coverage(p: PeriodResult, tol: Tolerances, label: str) -> tuple[float, float, list[str], bool]:
+    """Coverage and estimated share of the period's data, their warnings, and whether the bill
+    can be compared at all (not below ``min_coverage``)."""
     coverage = p.coverage if math.isfinite(p.coverage) else 0.0
     est_share = p.estimated_intervals / p.intervals if p.intervals else 0.0
     warnings: list[str] = []
     if p.intervals == 0 or coverage + _SLACK < tol.min_coverage:
         warnings.append(f"{label}: the data cover {coverage:.1%} of the period ({p.intervals} of "
                         f"{p.expected_intervals} intervals), below {tol.min_coverage:.0%}; not compared")
-        return BillCheck(bill, expected, coverage, est_share, False, (), (), 0.0, tuple(warnings))
+        return coverage, est_share, warnings, False
     if coverage < 1.0:
         warnings.append(f"{label}: the data cover {coverage:.1%} of the period ({p.expected_intervals - p.intervals} "
                         f"intervals missing); billed energies and charges are compared with a range up to the "
@@ -655,11 +674,15 @@ def _check_one(bill: BillRecord, p: PeriodResult, k: int, tariff: Tariff, alt: A
                         f"are not compared")
     if est_share > 0:
         warnings.append(f"{label}: {p.estimated_intervals} estimated intervals ({est_share:.1%} of the data)")
+    return coverage, est_share, warnings, True
 
-    # Fields outside tolerance; with missing intervals the computed value is a range from the
-    # data as they are to the data with every gap filled at the period's highest values.
-    up_fig = expected_figures(upper, tariff) if (upper is not None and coverage < 1.0) else None
-    raw: dict[str, tuple[float, float, float]] = {}  # field -> (billed, expected, allowed)
+
+def _beyond_tolerance(billed: dict, expected: dict, up_fig: dict | None, coverage: float, tol: Tolerances,
+                      label: str, warnings: list[str]) -> tuple[dict[str, tuple[float, float, float]], dict[str, float]]:
+    """The fields outside tolerance as ``{field: (billed, expected, allowed)}``, and the top of
+    each compared field's range. With missing intervals the computed value is a range from the
+    data as they are to the data with every gap filled at the period's highest values."""
+    raw: dict[str, tuple[float, float, float]] = {}
     upper_of: dict[str, float] = {}
     for f in BILL_FIELDS:
         b, e = billed[f], expected[f]
@@ -681,86 +704,104 @@ def _check_one(bill: BillRecord, p: PeriodResult, k: int, tariff: Tariff, alt: A
         slack = _SLACK * max(1.0, abs(e))
         if b < lo - allowed - slack or b > hi + allowed + slack:
             raw[f] = (b, e, allowed)
+    return raw, upper_of
 
+
+def _probable_causes(raw: dict, billed: dict, expected: dict, k: int, p: PeriodResult, tariff: Tariff,
+                     alt: Alternatives | None, tol: Tolerances,
+                     est_share: float) -> tuple[dict[str, str], dict[str, object]]:
+    """The cause of each field beyond tolerance (first match in the order of ``CAUSES``) and
+    the details of every cause found."""
     causes: dict[str, str] = {}
     details: dict[str, object] = {}
-    if raw:
-        if est_share > tol.max_estimated_share + _SLACK:
-            details["estimated_data"] = round(est_share, 4)
-            causes.update(dict.fromkeys(raw, "estimated_data"))
-        ratio = multiplier(billed, expected, tol)
-        shift = period_shift(billed, k, alt, tol) if (alt is not None and "kwh" in raw) else None
-        # Energies alone scaled alike may be a shifted period; a multiplier also scales the peaks,
-        # which a shift of a few days rarely does, so the peaks decide between the two.
-        if ratio is not None and shift is not None and not any(_finite(billed[f]) for f in DEMAND_FIELDS):
-            ratio = None
-        if ratio is not None:
-            details["multiplier"] = round(ratio, 6)
-            for f in raw:
-                causes.setdefault(f, "multiplier")
-        elif shift is not None:
-            details["period_shift"] = shift
-            for f in raw:
-                causes.setdefault(f, "period_shift")
-        if alt is not None:
-            lpl = lag_plus_lead(billed, expected, k, alt, tol) & set(raw)
-            if lpl:
-                details["lag_plus_lead"] = sorted(lpl)
-                for f in lpl:
-                    causes.setdefault(f, "lag_plus_lead")
-        if "reactive_charge" in raw and reactive_above_threshold(billed, expected, p, tariff, tol):
-            details["reactive_above_threshold"] = pf_threshold(tariff)
-            causes.setdefault("reactive_charge", "reactive_above_threshold")
-            if "total" in raw:
-                causes.setdefault("total", "reactive_above_threshold")
-        if alt is not None:
-            di = {f: m for f, m in demand_interval(billed, k, alt, tol).items() if f in raw}
-            if di:
-                details["demand_interval"] = di
-                for f in di:
-                    causes.setdefault(f, "demand_interval")
-                if "total" in raw and not (set(raw) - set(di) - {"total"}):
-                    causes.setdefault("total", "demand_interval")
+    if not raw:
+        return causes, details
+    if est_share > tol.max_estimated_share + _SLACK:
+        details["estimated_data"] = round(est_share, 4)
+        causes.update(dict.fromkeys(raw, "estimated_data"))
+    ratio = common_ratio(billed, expected, tol)
+    shift = period_shift(billed, k, alt, tol) if (alt is not None and "kwh" in raw) else None
+    # Energies alone scaled alike may be a shifted period; a multiplier also scales the peaks,
+    # which a shift of a few days rarely does, so the peaks decide between the two.
+    if ratio is not None and shift is not None and not any(_finite(billed[f]) for f in DEMAND_FIELDS):
+        ratio = None
+    if ratio is not None:
+        details["multiplier"] = round(ratio, 6)
+        for f in raw:
+            causes.setdefault(f, "multiplier")
+    elif shift is not None:
+        details["period_shift"] = shift
+        for f in raw:
+            causes.setdefault(f, "period_shift")
+    if alt is not None:
+        lpl = lag_plus_lead(billed, expected, k, alt, tol) & set(raw)
+        if lpl:
+            details["lag_plus_lead"] = sorted(lpl)
+            for f in lpl:
+                causes.setdefault(f, "lag_plus_lead")
+    if "reactive_charge" in raw and reactive_above_threshold(billed, expected, p, tariff, tol):
+        details["reactive_above_threshold"] = pf_threshold(tariff)
+        causes.setdefault("reactive_charge", "reactive_above_threshold")
+        if "total" in raw:
+            causes.setdefault("total", "reactive_above_threshold")
+    if alt is not None:
+        di = {f: m for f, m in demand_interval(billed, k, alt, tol).items() if f in raw}
+        if di:
+            details["demand_interval"] = di
+            for f in di:
+                causes.setdefault(f, "demand_interval")
+            if "total" in raw and not (set(raw) - set(di) - {"total"}):
+                causes.setdefault("total", "demand_interval")
+    return causes, details
 
-    energy_price = p.charges.get("energy", 0.0) / p.kwh if p.kwh > 0 else 0.0
-    demand_field = None
-    demand_price = 0.0
-    if tariff.demand is not None:
-        demand_field = "peak_kva" if tariff.demand.basis == "kva" else "peak_kw"
-        demand_price = tariff.demand.price_per_kw
 
+def _demand_field(tariff: Tariff) -> str | None:
+    """The bill field the tariff's demand charge is priced on."""
+    if tariff.demand is None:
+        return None
+    return "peak_kva" if tariff.demand.basis == "kva" else "peak_kw"
+
+
+def _money(field_name: str, over: float, cause: str | None, p: PeriodResult, tariff: Tariff) -> float:
+    """What a finding makes disputable (see "Money at stake" in the module docstring)."""
+    if cause in NOT_DISPUTABLE:
+        return 0.0
+    if field_name in CHARGE_FIELDS:
+        return round(over, 2)
+    if field_name == "kwh":
+        energy_price = p.charges.get("energy", 0.0) / p.kwh if p.kwh > 0 else 0.0
+        return round(over * energy_price, 2)
+    if field_name == _demand_field(tariff):
+        return round(over * tariff.demand.price_per_kw, 2)
+    return 0.0
+
+
+def _findings(bill: BillRecord, raw: dict, upper_of: dict, causes: dict, details: dict, p: PeriodResult,
+              tariff: Tariff, billed: dict, expected: dict, tol: Tolerances,
+              interval_minutes: int | None) -> list[Finding]:
     findings = []
     for f, (b, e, allowed) in raw.items():
         cause = causes.get(f)
-        over = max(0.0, b - upper_of[f])
-        if cause in NOT_DISPUTABLE:
-            money = 0.0
-        elif f in CHARGE_FIELDS:
-            money = over
-        elif f == "kwh":
-            money = over * energy_price
-        elif f == demand_field:
-            money = over * demand_price
-        else:
-            money = 0.0
-        money = round(money, 2)
+        money = _money(f, max(0.0, b - upper_of[f]), cause, p, tariff)
         diff = b - e
-        text = _explain(cause, details, p, tariff, billed, expected, interval_minutes)
         findings.append(Finding(
             meter=bill.meter, period_start=bill.period_start, period_end=bill.period_end, field=f,
             billed=float(b), expected=float(e), difference=float(diff),
             relative_difference=float(diff / e) if e else None, tolerance=float(allowed),
-            severity=_severity(cause, money, diff, allowed, tol), cause=cause, explanation=text, money=money,
+            severity=_severity(cause, money, diff, allowed, tol), cause=cause,
+            explanation=_explain(cause, details, p, tariff, billed, expected, interval_minutes), money=money,
         ))
+    return findings
+
+
+def _disputable(findings: list[Finding], billed: dict, demand_field: str | None) -> float:
+    """Each currency unit once: the total's excess when the bill shows a total, otherwise the
+    reactive charge, energy and demand findings' money (separate charges)."""
     by_field = {x.field: x for x in findings}
     if "total" in by_field or _finite(billed["total"]):
-        disputable = by_field["total"].money if "total" in by_field else 0.0
-    else:
-        parts = ["reactive_charge", "kwh"] + ([demand_field] if demand_field else [])
-        disputable = sum(by_field[f].money for f in parts if f in by_field)
-    ordered = tuple(c for c in CAUSES if c in details)
-    return BillCheck(bill, expected, coverage, est_share, True, tuple(findings), ordered,
-                     round(float(disputable), 2), tuple(warnings), details)
+        return by_field["total"].money if "total" in by_field else 0.0
+    parts = ["reactive_charge", "kwh"] + ([demand_field] if demand_field else [])
+    return sum(by_field[f].money for f in parts if f in by_field)
 
 
 def _explain(cause, details, p, tariff, billed, expected, interval_minutes) -> str:

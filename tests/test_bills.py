@@ -55,7 +55,7 @@ def test_expected_figures_match_the_hand_worked_month_and_a_correct_bill_has_no_
 
 
 def test_pf_threshold_of_a_tan_phi_limit():
-    # tan phi 0.4 <-> cos phi 0.928 (domain.md section 3, common practice)
+    # tan phi 0.4 <-> cos phi 0.928 (PF = 1 / sqrt(1 + tan^2 phi), IEEE Std 1459-2010 sinusoidal definitions; common practice)
     assert_allclose(pf_threshold(T()), 1 / math.sqrt(1 + 0.4**2))
     assert_allclose(pf_threshold(T()), 0.928, atol=5e-4)
     assert pf_threshold(tariff([])) is None
