@@ -12,7 +12,6 @@ warning; the check audits overlapping bills separately.
 from __future__ import annotations
 
 import hashlib
-import html
 from importlib import resources
 from pathlib import Path
 
@@ -241,68 +240,38 @@ def _summary_rows(d: dict) -> list[dict]:
 def dispute_summary(check_dict: dict, fmt: str = "text") -> str:
     """A summary of a bill check for a billing query to the utility, as plain text or HTML.
 
-    Every value from the check (meter, tariff, explanations) is escaped in the HTML form.
+    Rendered from the templates ``documents/billing_query.txt`` and ``.html`` (the report's
+    plain Jinja environment); every value from the check (meter, tariff, explanations) is
+    escaped in the HTML form.
     """
+    from auditor.presentation import document_environment
+
     if fmt not in ("text", "html"):
         raise UsageError(f"summary format must be 'text' or 'html', not {fmt!r}")
-    d = check_dict
+    name = "documents/billing_query." + ("txt" if fmt == "text" else "html")
+    return document_environment().get_template(name).render(**_query_context(check_dict))
+
+
+def _query_context(d: dict) -> dict:
+    """What the billing-query templates show, with every number already formatted."""
     cur = d.get("currency", "")
-    rows = _summary_rows(d)
-    disputed = [b for b in d["bills"] if b.get("disputable")]
+    tol = d["tolerances"]
     intro = (f"Meter {d.get('meter')} ({d.get('site') or 'site not named'}), tariff {d.get('tariff')}. "
              f"Each bill was compared with the same period computed from the meter's interval data under the "
-             f"tariff, within tolerances of {d['tolerances']['energy_percent']:g} % on energy, "
-             f"{d['tolerances']['demand_percent']:g} % on demand, {d['tolerances']['pf']:g} on power factor and "
-             f"{d['tolerances']['charge_percent']:g} % or {d['tolerances']['charge_abs']:g} {cur} on charges.")
+             f"tariff, within tolerances of {tol['energy_percent']:g} % on energy, "
+             f"{tol['demand_percent']:g} % on demand, {tol['pf']:g} on power factor and "
+             f"{tol['charge_percent']:g} % or {tol['charge_abs']:g} {cur} on charges.")
     closing = ("These figures are computed from interval data and the tariff as we understand it; they are offered "
                "for review and correction, not as a certified statement. We would be grateful for a corrected bill "
                "or an explanation of each difference.")
-    total = f"Amount in question: {_fmt(d.get('total_disputable'))} {cur}"
-    per_bill = [f"{b['period_start']} to {b['period_end']}: {_fmt(b['disputable'])} {cur}" for b in disputed]
-    if fmt == "text":
-        out = ["BILLING QUERY", "", intro, ""]
-        if not rows:
-            out.append("No difference beyond the tolerances was found.")
-        else:
-            out.append(f"{len(rows)} difference{'s' if len(rows) != 1 else ''} beyond tolerance:")
-            for r in rows:
-                out.append(f"- {r['period']}, {r['field']}: billed {r['billed']}, expected {r['expected']} "
-                           f"(difference {r['difference']}; {r['severity']}; in question {r['money']} {cur}). "
-                           f"{r['explanation']}")
-        out += ["", total + "."]
-        if per_bill:
-            out += ["By bill:"] + [f"  {x}" for x in per_bill]
-        notes = [w for w in d.get("warnings", [])]
-        if notes:
-            out += ["", "Notes on the data:"] + [f"  {w}" for w in notes]
-        out += ["", closing, ""]
-        return "\n".join(out)
-    e = html.escape
-    parts = ["<!DOCTYPE html>", "<html lang=\"en\"><head><meta charset=\"utf-8\">",
-             f"<title>Billing query {e(str(d.get('meter')))}</title>",
-             "<style>body{font-family:sans-serif;max-width:60em;margin:2em auto;line-height:1.4}"
-             "table{border-collapse:collapse;width:100%}td,th{border:1px solid #999;padding:.3em .5em;text-align:left}"
-             "td.n{text-align:right}.high{background:#f6d5d0}.medium{background:#f9ecc8}</style></head><body>",
-             "<h1>Billing query</h1>", f"<p>{e(intro)}</p>"]
-    if not rows:
-        parts.append("<p>No difference beyond the tolerances was found.</p>")
-    else:
-        parts.append("<table><thead><tr><th>Period</th><th>Field</th><th>Billed</th><th>Expected</th>"
-                     f"<th>Difference</th><th>Severity</th><th>In question ({e(cur)})</th><th>Probable cause</th>"
-                     "</tr></thead><tbody>")
-        for r in rows:
-            parts.append(f"<tr class=\"{e(r['severity'])}\"><td>{e(r['period'])}</td><td>{e(r['field'])}</td>"
-                         f"<td class=\"n\">{e(r['billed'])}</td><td class=\"n\">{e(r['expected'])}</td>"
-                         f"<td class=\"n\">{e(r['difference'])}</td><td>{e(r['severity'])}</td>"
-                         f"<td class=\"n\">{e(r['money'])}</td><td>{e(r['explanation'])}</td></tr>")
-        parts.append("</tbody></table>")
-    parts.append(f"<p><strong>{e(total)}</strong></p>")
-    if per_bill:
-        parts.append("<ul>" + "".join(f"<li>{e(x)}</li>" for x in per_bill) + "</ul>")
-    if d.get("warnings"):
-        parts.append("<h2>Notes on the data</h2><ul>" + "".join(f"<li>{e(w)}</li>" for w in d["warnings"]) + "</ul>")
-    parts.append(f"<p>{e(closing)}</p></body></html>")
-    return "\n".join(parts)
+    disputed = [b for b in d["bills"] if b.get("disputable")]
+    return {
+        "meter": str(d.get("meter")), "currency": cur, "intro": intro, "closing": closing,
+        "rows": _summary_rows(d),
+        "total": f"Amount in question: {_fmt(d.get('total_disputable'))} {cur}",
+        "per_bill": [f"{b['period_start']} to {b['period_end']}: {_fmt(b['disputable'])} {cur}" for b in disputed],
+        "notes": list(d.get("warnings", [])),
+    }
 
 
 # --------------------------------------------------------------------------------------------
