@@ -66,7 +66,8 @@ def main(argv: list[str] | None = None) -> None:
         exc.show()
         sys.exit(exc.exit_code)
     except AuditorError as exc:
-        click.echo(f"error: {exc.message}", err=True)
+        hint = f" ({exc.cli_hint})" if getattr(exc, "cli_hint", None) else ""
+        click.echo(f"error: {exc.message}{hint}", err=True)
         sys.exit(exc.exit_code)
     except KeyboardInterrupt:
         click.echo("interrupted", err=True)

@@ -1,12 +1,16 @@
 """One hierarchy of user-facing errors.
 
 Every error a user can cause by a bad file, option or tariff is an ``AuditorError``. The CLI
-turns it into a one-line message and an exit code; the web layer into a flash message. A
+turns it into a one-line message and an exit code; the web layer into a message on the page. A
 traceback reaching the user is a bug.
+
+Messages speak of the data (the meter, the file, the key, the dates), never of command-line
+options, because the dashboard shows them too. Where a command would help, ``cli_hint`` carries
+it and only the command line shows it.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 
 class AuditorError(Exception):
@@ -14,9 +18,10 @@ class AuditorError(Exception):
 
     exit_code = 1
 
-    def __init__(self, message: str):
+    def __init__(self, message: str, *, cli_hint: str | None = None):
         super().__init__(message)
         self.message = message
+        self.cli_hint = cli_hint
 
     def __str__(self) -> str:
         return self.message
@@ -92,13 +97,3 @@ class UsageError(AuditorError):
 
     exit_code = 2
 
-
-@dataclass
-class Warnings:
-    """Collects non-fatal findings to report beside a result, never silently dropped."""
-
-    items: list[str] = field(default_factory=list)
-
-    def add(self, message: str) -> None:
-        if message not in self.items:
-            self.items.append(message)

@@ -250,3 +250,17 @@ def test_quick_head_is_alembics_head(tmp_path):
     assert quick_head_revision(folder) == store.head_revision()
     (folder / "versions" / "9999_branch.py").write_text("revision = '9999'\ndown_revision = '0001'\n")
     assert quick_head_revision(folder) is None
+
+
+def test_service_errors_speak_of_the_data_and_the_cli_adds_the_command(tmp_path):
+    url = f"sqlite:///{tmp_path / 'e.sqlite3'}"
+    r = invoke("audit", "--meter", "X1", "--tariff", "millbrook_commercial_pf", db=url)
+    assert r.exit_code == 1
+    assert "no meter 'X1'; the database has no meters yet (auditor import FILE)" in r.output
+    from auditor.errors import NotFoundError
+    from auditor.services.audit import audit_meter
+    from auditor.services.database import open_database
+
+    with pytest.raises(NotFoundError) as exc:
+        audit_meter(open_database(url), "X1", "millbrook_commercial_pf")
+    assert "auditor" not in exc.value.message and "--" not in exc.value.message

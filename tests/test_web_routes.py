@@ -362,6 +362,27 @@ def test_upload_of_a_bad_file_shows_located_errors(store, tmp_path):
     assert "Rejected files" in html and "bad.csv" in html
 
 
+@pytest.mark.parametrize("body, said", [
+    (b"a,b,c\n1,2,3\n", "choose a mapping profile"),
+    (b"meter,start,kwh,kvarh_lag,kvarh_lead\nL1,2025-02-03T00:00:00,1,1,0\n", "fill in the time zone"),
+])
+def test_upload_errors_speak_of_the_page(store, tmp_path, body, said):
+    """A rejected upload names the file as uploaded, never the server's temporary folder, and
+    says what to do on the page, not which command-line option to give."""
+    from auditor.web import create_app
+
+    app = create_app({"INSTANCE_PATH": str(tmp_path / "instance")}, store=store)
+    c = app.test_client()
+    token = csrf_token(c.get("/imports").data)
+    r = c.post("/imports", data={"csrf_token": token, "file": (io.BytesIO(body), "odd.csv"),
+                                 "profile": "", "estimate_gaps": "no"}, content_type="multipart/form-data")
+    assert r.status_code == 422
+    html = r.get_data(as_text=True)
+    box = html.split('class="error-box"', 1)[1].split("</div>", 1)[0]
+    assert said in box and "odd.csv" in box
+    assert "--" not in box and "auditor-upload-" not in box and "/tmp" not in box
+
+
 def test_upload_size_limit(store, tmp_path):
     from auditor.web import create_app
 
@@ -394,6 +415,14 @@ def test_token_required_when_configured(demo_db, tmp_path):
     assert c.get("/tariffs").status_code == 200  # the cookie now carries it
 
 
+def test_login_page_beyond_loopback_says_so(demo_db, tmp_path):
+    from auditor.web import create_app
+
+    app = create_app({"INSTANCE_PATH": str(tmp_path / "i"), "AUTH_TOKEN": "correct-horse-battery",
+                      "SERVED_BEYOND_LOOPBACK": True}, store=demo_db)
+    assert "beyond this computer" in app.test_client().get("/login").get_data(as_text=True)
+
+
 def test_login_form(demo_db, tmp_path):
     from auditor.web import create_app
 
@@ -402,6 +431,8 @@ def test_login_form(demo_db, tmp_path):
     c = app.test_client()
     page = c.get("/login?next=/imports")
     assert page.status_code == 200
+    text = page.get_data(as_text=True)
+    assert "beyond this computer" not in text and "--token" not in text  # loopback, and no CLI options
     csrf = csrf_token(page.data)
     assert c.post("/login", data={"csrf_token": csrf, "token": "nope", "next": "/imports"}).status_code == 401
     r = c.post("/login", data={"csrf_token": csrf, "token": token, "next": "//evil.example/"})

@@ -25,6 +25,7 @@ csrf = CSRFProtect()
 DEFAULTS = {
     "DATABASE_URL": None,  # used when no store is passed
     "AUTH_TOKEN": None,  # when set, every request needs it (cookie after ?token= or the login form)
+    "SERVED_BEYOND_LOOPBACK": False,  # set by the server when it listens beyond loopback (login wording)
     "DEFAULT_TARIFF": "harrowgate_industrial_tou",
     "TARIFF_DIRS": None,  # default: <instance>/tariffs
     "MAX_CONTENT_LENGTH": 50 * 1024 * 1024,  # upload limit, bytes
@@ -84,6 +85,7 @@ def create_app(config: dict | None = None, store=None) -> Flask:
 
     from auditor.presentation import register_filters
     from auditor.web import security
+    from auditor.web.helpers import page_message
 
     register_filters(app.jinja_env.filters)
     security.init_app(app)
@@ -101,15 +103,16 @@ def create_app(config: dict | None = None, store=None) -> Flask:
 
     @app.errorhandler(NotFoundError)
     def _not_found(exc):
-        return render_template("error.html", title="Not found", message=exc.message), 404
+        return render_template("error.html", title="Not found", message=page_message(exc.message)), 404
 
     @app.errorhandler(UsageError)
     def _usage(exc):
-        return render_template("error.html", title="Cannot do that", message=exc.message), 400
+        return render_template("error.html", title="Cannot do that", message=page_message(exc.message)), 400
 
     @app.errorhandler(AuditorError)
     def _auditor(exc):
-        return render_template("error.html", title="Problem with the input", message=exc.message), 422
+        return render_template("error.html", title="Problem with the input",
+                               message=page_message(exc.message)), 422
 
     @app.errorhandler(404)
     def _404(exc):
@@ -120,8 +123,8 @@ def create_app(config: dict | None = None, store=None) -> Flask:
     def _413(exc):
         mb = app.config["MAX_CONTENT_LENGTH"] / 1024 / 1024
         return render_template("error.html", title="File too large",
-                               message=f"Uploads are limited to {mb:g} MB. Import larger files with "
-                                       "`auditor import FILE` on the command line."), 413
+                               message=f"Uploads are limited to {mb:g} MB. Larger files can be imported on "
+                                       "the server itself, from the command line."), 413
 
     @app.errorhandler(500)
     def _500(exc):

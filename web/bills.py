@@ -16,7 +16,7 @@ from wtforms.validators import DataRequired, NumberRange, Optional
 from auditor.errors import AuditorError
 from auditor.services.bills import add_bill, check_bills, dispute_summary, import_bills, list_bills
 from auditor.services.meters import list_meters
-from auditor.web.helpers import chosen_tariff, store
+from auditor.web.helpers import chosen_tariff, page_message, store
 
 bp = Blueprint("bills", __name__)
 
@@ -101,7 +101,7 @@ def upload():
         up.file.data.save(path)
         res = import_bills(store(), path)
     except AuditorError as exc:
-        return _page(meter, upload=up, status=400, error=exc.message)
+        return _page(meter, upload=up, status=400, error=page_message(exc.message, str(path), name))
     finally:
         shutil.rmtree(folder, ignore_errors=True)
     flash(f"{name}: {res['message']}", "ok")

@@ -12,7 +12,7 @@ from werkzeug.utils import secure_filename
 from auditor.services.import_views import import_overview, quality_overview
 from auditor.services.ingest import ImportOptions, import_files
 from auditor.web.forms import UploadForm, choices
-from auditor.web.helpers import store
+from auditor.web.helpers import page_message, store
 
 bp = Blueprint("data", __name__)
 
@@ -63,6 +63,10 @@ def upload():
     finally:
         shutil.rmtree(folder, ignore_errors=True)
     outcome["short_name"] = name
+    outcome["path"] = name  # the page never shows the server's temporary folder
+    outcome["message"] = page_message(outcome.get("message") or "", str(path), name)
+    for item in outcome.get("errors", []) + outcome.get("warnings", []):
+        item["message"] = page_message(item["message"], str(path), name)
     if outcome["status"] == "rejected":
         return _page(_form(), 422, outcome=outcome)
     flash(f"{name}: {outcome['status']} — {outcome['message']}", "ok")

@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import logging
+import re
 import threading
 
 from flask import Flask, current_app, request
@@ -74,3 +75,23 @@ def tariff_for_scenario(saved: dict) -> tuple[str, Tariff]:
             return c.name, portfolio.load_named_tariff(c.name, tariff_dirs())
     raise NotFoundError(f"scenario {saved.get('name')!r} was computed under tariff {saved.get('tariff')!r}, "
                         "which the dashboard does not have; put its TOML file in the instance folder's tariffs/")
+
+
+#: Command-line wording that may reach the page inside a message from below (the importer's
+#: messages speak to both), and what the page calls the same thing.
+_PAGE_WORDS = (
+    (re.compile(r"(?:give|use) --profile"), "choose a mapping profile"),
+    (re.compile(r"give --timezone"), "fill in the time zone"),
+    (re.compile(r"\(--estimate-gaps\)"), "(estimate gaps)"),
+    (re.compile(r"auditor import FILE"), "upload a meter export on the Imports page"),
+)
+
+
+def page_message(text: str, temp_path: str | None = None, shown_name: str | None = None) -> str:
+    """A message as the page should say it: the upload's own name instead of the server's
+    temporary path, and the form's words instead of command-line options."""
+    if temp_path and shown_name:
+        text = text.replace(str(temp_path), shown_name)
+    for pattern, words in _PAGE_WORDS:
+        text = pattern.sub(words, text)
+    return text

@@ -38,7 +38,8 @@ def make_server(store, host: str = "127.0.0.1", port: int = 8050, token: str | N
     from auditor.web import create_app
 
     check_binding(host, token)
-    cfg = {"AUTH_TOKEN": token, "WARM_CACHE": True, **(config or {})}
+    cfg = {"AUTH_TOKEN": token, "WARM_CACHE": True, "SERVED_BEYOND_LOOPBACK": not is_loopback(host),
+           **(config or {})}
     app = create_app(cfg, store=store)
     try:
         return create_server(app, host=host, port=port, threads=threads, ident="pf-auditor",

@@ -200,7 +200,8 @@ def check_bills(store: Store, meter: str, tariff: str | Path | Tariff, tolerance
     t = resolve_tariff(tariff)
     records = _records(store, meter)
     if not records:
-        raise UsageError(f"meter {meter} has no bills (auditor bills import FILE)")
+        raise UsageError(f"meter {meter} has no bills stored; import its bills first",
+                         cli_hint="auditor bills import FILE")
     data = load_meter(store, meter)
     rec = check(records, data.frame, t, tz=data.timezone, interval_minutes=data.interval_minutes,
                 tolerances=tolerances)

@@ -31,8 +31,8 @@ def get_meter(session: Session, external_id: str) -> Meter:
     meter = session.scalar(select(Meter).where(Meter.external_id == external_id))
     if meter is None:
         known = session.scalars(select(Meter.external_id).order_by(Meter.external_id).limit(20)).all()
-        hint = f"; known meters: {', '.join(known)}" if known else "; the database has no meters yet (auditor import FILE)"
-        raise NotFoundError(f"no meter {external_id!r}{hint}")
+        hint = f"; known meters: {', '.join(known)}" if known else "; the database has no meters yet"
+        raise NotFoundError(f"no meter {external_id!r}{hint}", cli_hint=None if known else "auditor import FILE")
     return meter
 
 
