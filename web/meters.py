@@ -11,7 +11,7 @@ from auditor.errors import UsageError
 from auditor.services import report as rp
 from auditor.services.cache import cached_audit
 from auditor.services.correction import list_scenarios
-from auditor.services.meter_charts import meter_profile
+from auditor.services.meter_charts import meter_chart_data
 from auditor.services.portfolio import tariff_threshold_pf
 from auditor.web.helpers import chosen_tariff, store, tariff_choices, tariff_for_scenario
 
@@ -39,7 +39,7 @@ def meter(meter: str):
     s = store()
     ma = cached_audit(s, meter, tariff)
     audit = ma.to_dict()
-    profile = meter_profile(s, meter, target)
+    profile = meter_chart_data(s, meter, target)
     thresholds = tariff_threshold_pf(tariff)
     cols, rows = rp.period_rows(audit, rp.period_columns(audit, list(ma.result.charge_keys)))
     figs = [("pf", charts.pf_by_period(audit, thresholds)),

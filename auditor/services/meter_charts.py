@@ -22,14 +22,14 @@ from auditor.services.cache import chart_cache, data_version
 from auditor.services.meters import load_meter
 from auditor.store import Store
 
-__all__ = ["MeterProfile", "SCATTER_MAX_POINTS", "meter_profile", "target_line_kvar"]
+__all__ = ["MeterChartData", "SCATTER_MAX_POINTS", "meter_chart_data", "target_line_kvar"]
 
 #: The P–Q scatter is thinned to at most this many points (a meter-year has 35,040).
 SCATTER_MAX_POINTS = 4000
 
 
 @dataclass(frozen=True, eq=False)
-class MeterProfile:
+class MeterChartData:
     """Interval-level chart data of one meter, already reduced for a browser.
 
     Attributes
@@ -74,7 +74,7 @@ class MeterProfile:
     target_pf: float
 
 
-def _profile(store: Store, meter: str, target_pf: float) -> MeterProfile:
+def _chart_data(store: Store, meter: str, target_pf: float) -> MeterChartData:
     data = load_meter(store, meter)
     f = data.frame
     if f.empty:
@@ -101,7 +101,7 @@ def _profile(store: Store, meter: str, target_pf: float) -> MeterProfile:
     step = max(1, math.ceil(len(kw) / SCATTER_MAX_POINTS))
     sizing = size_required(f, minutes, target_pf, 0.95)
     curve = sizing.duration_curve(101)
-    return MeterProfile(
+    return MeterChartData(
         meter=meter, timezone=data.timezone, days=days, slot_minutes=minutes, pf_matrix=matrix,
         leading_matrix=leading,
         scatter_kw=kw[::step], scatter_kvar=kvar[::step], n_intervals=len(kw),
@@ -111,10 +111,10 @@ def _profile(store: Store, meter: str, target_pf: float) -> MeterProfile:
     )
 
 
-def meter_profile(store: Store, meter: str, target_pf: float = 0.95) -> MeterProfile:
+def meter_chart_data(store: Store, meter: str, target_pf: float = 0.95) -> MeterChartData:
     """Heat map, P–Q sample and duration curve of one meter (cached per data version)."""
     key = (store.url, meter, round(float(target_pf), 4), data_version(store, meter))
-    return chart_cache.get_or_make(key, lambda: _profile(store, meter, target_pf))
+    return chart_cache.get_or_make(key, lambda: _chart_data(store, meter, target_pf))
 
 
 def target_line_kvar(kw_max: float, target_pf: float) -> list[float]:

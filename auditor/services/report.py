@@ -125,7 +125,7 @@ class ReportData:
     charge_keys: tuple[str, ...]
     reactive_keys: tuple[str, ...]
     thresholds: list[dict]
-    profile: object | None = None  # meter_charts.MeterProfile (heat map in the HTML report)
+    profile: object | None = None  # meter_charts.MeterChartData (heat map in the HTML report)
     scenario_name: str | None = None
     scenario: dict | None = None  # a saved SizeCase.to_dict()
     generated_at: str = field(default_factory=lambda: datetime.now(UTC).isoformat(timespec="seconds"))
@@ -145,7 +145,7 @@ def build_report(store: Store, meter: str, tariff: str | Path | Tariff, scenario
     name); otherwise the report would set two different bills side by side.
     """
     from auditor.services.cache import cached_audit
-    from auditor.services.meter_charts import meter_profile
+    from auditor.services.meter_charts import meter_chart_data
     from auditor.services.portfolio import tariff_threshold_pf
 
     t = resolve_tariff(tariff)
@@ -164,7 +164,7 @@ def build_report(store: Store, meter: str, tariff: str | Path | Tariff, scenario
         meter=ma.data.meter, site=ma.data.site, timezone=ma.data.timezone, tariff=t, audit=d,
         charge_keys=tuple(ma.result.charge_keys), reactive_keys=tuple(ma.result.reactive_keys),
         thresholds=tariff_threshold_pf(t),
-        profile=meter_profile(store, meter, target) if with_profile else None,
+        profile=meter_chart_data(store, meter, target) if with_profile else None,
         scenario_name=saved["name"] if saved else None, scenario=saved["result"] if saved else None,
     )
 
