@@ -381,6 +381,8 @@ def test_upload_errors_speak_of_the_page(store, tmp_path, body, said):
     box = html.split('class="error-box"', 1)[1].split("</div>", 1)[0]
     assert said in box and "odd.csv" in box
     assert "--" not in box and "auditor-upload-" not in box and "/tmp" not in box
+    listed = c.get("/imports").get_data(as_text=True)  # the rejected file in the list, later
+    assert "odd.csv" in listed and said in listed and "auditor-upload-" not in listed and " --" not in listed
 
 
 def test_upload_size_limit(store, tmp_path):

@@ -15,6 +15,7 @@ from auditor.web.forms import UploadForm, choices
 from auditor.web.helpers import page_message, store
 
 bp = Blueprint("data", __name__)
+UPLOAD_PREFIX = "auditor-upload-"
 
 
 def _profiles() -> dict[str, Path]:
@@ -33,6 +34,10 @@ def _page(form: UploadForm, status: int = 200, outcome: dict | None = None):
     batches = import_overview(s)
     for b in batches:
         b["short_name"] = Path(b["file_name"]).name
+        if UPLOAD_PREFIX in b["file_name"]:  # uploaded here: the server's temporary folder means nothing
+            b["file_name"] = b["short_name"]
+        for e in b["errors"]:
+            e["message"] = page_message(str(e.get("message") or ""))
     return render_template("imports.html", form=form, batches=batches,
                            rejected=[b for b in batches if b["status"] == "rejected"],
                            quality=quality_overview(s), outcome=outcome), status
@@ -50,7 +55,7 @@ def upload():
         return _page(form, 400)
     upload = form.file.data
     name = secure_filename(upload.filename or "") or "upload.csv"
-    folder = Path(tempfile.mkdtemp(prefix="auditor-upload-"))
+    folder = Path(tempfile.mkdtemp(prefix=UPLOAD_PREFIX))
     try:
         path = folder / name
         upload.save(path)
