@@ -31,7 +31,7 @@ import numpy as np
 import pandas as pd
 
 from auditor.quantities import energy_pf, round_pf
-from auditor.tariffs.spec import (
+from auditor.tariffs.model import (
     Band,
     Calendar,
     EnergyCharge,
