@@ -30,6 +30,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from auditor.errors import InputError
 from auditor.quantities import energy_pf, round_pf
 from auditor.tariffs.model import (
     Band,
@@ -329,6 +330,19 @@ def _billing_pf(tariff: Tariff, basis: str, q: PeriodQuantities) -> np.ndarray:
 
 
 def compute_charges(tariff: Tariff, q: PeriodQuantities) -> Charges:
+    """Apply every clause of ``tariff`` to the period quantities (see :func:`_compute`).
+
+    Raises
+    ------
+    auditor.errors.InputError
+        When a charge is not a finite amount (figures beyond any meter; prices are bounded by
+        the loader, so finite readings always give finite charges).
+    """
+    with np.errstate(over="ignore"):
+        return _compute(tariff, q)
+
+
+def _compute(tariff: Tariff, q: PeriodQuantities) -> Charges:
     """Apply every clause of ``tariff`` to the period quantities.
 
     Order: energy, demand (PF adjustment, then ratchet), fixed, then each reactive mechanism in
@@ -395,6 +409,10 @@ def compute_charges(tariff: Tariff, q: PeriodQuantities) -> Charges:
         amounts[k] = reactive[k]
     reactive_total = sum((amounts[k] for k in keys), zeros)
     total = amounts["energy"] + amounts["demand"] + amounts["fixed"] + reactive_total
+    if not np.isfinite(total).all():
+        bad = next(k for k, a in amounts.items() if not np.isfinite(a).all())
+        raise InputError(None, f"charge {bad!r} is not a finite amount: the interval figures are too large "
+                               "for this tariff's prices (check the readings and the meter multiplier)")
     return Charges(
         amounts=amounts,
         reactive_keys=keys,

@@ -57,7 +57,7 @@ from auditor.tariffs.model import (
     Tariff,
     Window,
 )
-from auditor.tariffs.toml_lines import locate_key
+from auditor.tariffs.toml_lines import deepest_nesting, locate_key
 
 __all__ = ["load_tariff", "tariff_from_dict"]
 
@@ -74,6 +74,23 @@ KNOWN_KEYS = frozenset("""
     ratchet_percent ratchet_periods reactive rebate_above_pf rebate_percent_per_hundredth
     subdivision tan_phi_limit threshold_pf windows
 """.split())
+
+
+# Plausible ranges (documented in DEVELOPERS.md, "Ranges"). Wide enough for every currency in
+# use (a kWh costs thousands in some), narrow enough that no finite meter figure times a price
+# overflows a float, so totals stay finite.
+MAX_PRICE_PER_UNIT = 1e6  # per kWh or kvarh
+MAX_PRICE_PER_DEMAND = 1e8  # per kW, kVA or kvar of demand
+MAX_FIXED = 1e10  # per billing period
+MAX_TAN_PHI = 10.0  # tan phi 10 <-> PF 0.0995: any real limit is far below
+MAX_PERCENT = 1000.0  # caps on surcharges and rebates, in percent
+MAX_NESTING = 16  # arrays / inline tables inside each other; a tariff needs 2
+
+PRICE_UNIT = dict(lo=0, hi=MAX_PRICE_PER_UNIT, what=f"a price of at least 0 and at most {MAX_PRICE_PER_UNIT:g}")
+PRICE_DEMAND = dict(lo=0, hi=MAX_PRICE_PER_DEMAND, what=f"a price of at least 0 and at most {MAX_PRICE_PER_DEMAND:g}")
+TAN_PHI = dict(lo=0, hi=MAX_TAN_PHI, what=f"a tan phi limit of at least 0 and at most {MAX_TAN_PHI:g}")
+PERCENT = dict(lo=0, hi=MAX_PERCENT, what=f"a percentage of at least 0 and at most {MAX_PERCENT:g}")
+PERCENT_PER_STEP = dict(lo=0, hi=100, what="a percentage of at least 0 and at most 100")
 
 
 def _closest(word: str, candidates) -> str | None:
@@ -245,7 +262,7 @@ def _window(v: _V, *, with_price: bool, hours_only: bool = False) -> Window:
         v.fail(v.key("months"), f"must be a list of month numbers 1-12, got {_repr(months_raw)}")
     holidays = v.string("holidays", default="as_sunday", choices=HOLIDAY_RULES)
     name = None if hours_only else v.string("name")
-    price = v.number("price_per_kwh", required=True, lo=0, what="a price of at least 0") if with_price else None
+    price = v.number("price_per_kwh", required=True, **PRICE_UNIT) if with_price else None
     return Window(
         start_hour=hours[0], end_hour=hours[1], days=days, months=months, holidays=holidays, name=name,
         price_per_kwh=price,
@@ -270,24 +287,23 @@ def _mechanism(v: _V, tariff_basis: str) -> Mechanism:
     label = v.string("label", what="a non-empty text (the charge's name on the bill)")
     if label is not None and label in BASE_CHARGES:
         v.fail(v.key("label"), f"must not be one of {', '.join(BASE_CHARGES)} (those name the base charges)")
-    price = dict(lo=0, what="a price of at least 0")
     if kind == "kvarh_excess":
         m = KvarhExcess(
-            tan_phi_limit=v.number("tan_phi_limit", required=True, lo=0, what="a tan phi limit of at least 0"),
-            price_per_kvarh=v.number("price_per_kvarh", required=True, **price),
+            tan_phi_limit=v.number("tan_phi_limit", required=True, **TAN_PHI),
+            price_per_kvarh=v.number("price_per_kvarh", required=True, **PRICE_UNIT),
             kvarh=_kvarh(v, tariff_basis),
             windows=_windows(v, "windows", with_price=False),
             label=label,
         )
     elif kind == "kvarh_banded":
-        tan_phi = v.number("tan_phi_limit", required=True, lo=0, what="a tan phi limit of at least 0")
+        tan_phi = v.number("tan_phi_limit", required=True, **TAN_PHI)
         bands = []
         for i, t in enumerate(v.tables("bands", required=True, what="[[reactive.bands]] tables with min_pf and price_per_kvarh")):
             b = _V(t, f"{v.key('bands')}[{i}]", v.source)
             bands.append(
                 Band(
                     min_pf=b.number("min_pf", required=True, lo=0, hi=1, what="a power factor from 0 to 1"),
-                    price_per_kvarh=b.number("price_per_kvarh", required=True, **price),
+                    price_per_kvarh=b.number("price_per_kvarh", required=True, **PRICE_UNIT),
                 )
             )
             b.done()
@@ -327,7 +343,7 @@ def _mechanism(v: _V, tariff_basis: str) -> Mechanism:
         ):
             v.fail(v.key("applies_to"), f"must be a non-empty list of distinct charges from {list(BASE_CHARGES)}, got {_repr(applies) if not isinstance(applies, list) else applies}")
         rebate_pf = v.number("rebate_above_pf", lo=threshold, hi=1, what=f"a power factor from threshold_pf ({threshold}) to 1")
-        rebate_pct = v.number("rebate_percent_per_hundredth", lo=0, what="a percentage of at least 0")
+        rebate_pct = v.number("rebate_percent_per_hundredth", **PERCENT_PER_STEP)
         if (rebate_pf is None) != (rebate_pct is None):
             missing = "rebate_percent_per_hundredth" if rebate_pct is None else "rebate_above_pf"
             v.fail(v.key(missing), "is required when the other rebate key is given (rebate_above_pf and rebate_percent_per_hundredth go together)")
@@ -336,27 +352,28 @@ def _mechanism(v: _V, tariff_basis: str) -> Mechanism:
             v.fail(v.key("max_rebate_percent"), "only applies with rebate_above_pf")
         m = PfPercent(
             threshold_pf=threshold,
-            percent_per_hundredth=v.number("percent_per_hundredth", required=True, lo=0, what="a percentage of at least 0"),
+            percent_per_hundredth=v.number("percent_per_hundredth", required=True, **PERCENT_PER_STEP),
             applies_to=tuple(applies),
             rebate_above_pf=rebate_pf,
             rebate_percent_per_hundredth=rebate_pct or 0.0,
-            max_surcharge_percent=v.number("max_surcharge_percent", lo=0, what="a percentage of at least 0"),
+            max_surcharge_percent=v.number("max_surcharge_percent", **PERCENT),
             max_rebate_percent=max_rebate,
             kvarh=_kvarh(v, tariff_basis),
             label=label,
         )
     elif kind == "kvar_demand":
         m = KvarDemand(
-            allowance_ratio=v.number("allowance_ratio", required=True, lo=0, what="a ratio of at least 0 (kvar allowed per kW of peak)"),
-            price_per_kvar=v.number("price_per_kvar", required=True, **price),
+            allowance_ratio=v.number("allowance_ratio", required=True, lo=0, hi=MAX_TAN_PHI,
+                                     what=f"a ratio of at least 0 and at most {MAX_TAN_PHI:g} (kvar allowed per kW of peak)"),
+            price_per_kvar=v.number("price_per_kvar", required=True, **PRICE_DEMAND),
             label=label,
         )
     else:  # leading_kvarh
         window = _window(v, with_price=False, hours_only=True)
         m = LeadingKvarh(
-            price_per_kvarh=v.number("price_per_kvarh", required=True, **price),
+            price_per_kvarh=v.number("price_per_kvarh", required=True, **PRICE_UNIT),
             window=window,
-            tan_phi_limit=v.number("tan_phi_limit", default=0.0, lo=0, what="a tan phi allowance of at least 0"),
+            tan_phi_limit=v.number("tan_phi_limit", default=0.0, **TAN_PHI),
             label=label,
         )
     v.done(f" for kind {kind!r}")
@@ -396,7 +413,7 @@ def tariff_from_dict(d: Mapping[str, Any], source: str | None = None) -> Tariff:
 
     e = _V(top.raw("energy", True, "an [energy] table with price_per_kwh"), "energy", source)
     energy = EnergyCharge(
-        price_per_kwh=e.number("price_per_kwh", required=True, lo=0, what="a price of at least 0"),
+        price_per_kwh=e.number("price_per_kwh", required=True, **PRICE_UNIT),
         windows=_windows(e, "windows", with_price=True),
     )
     e.done()
@@ -406,7 +423,8 @@ def tariff_from_dict(d: Mapping[str, Any], source: str | None = None) -> Tariff:
         dm = _V(top.raw("demand"), "demand", source)
         demand = DemandCharge(
             basis=dm.string("basis", default="kw", choices=("kw", "kva")),
-            price_per_kw=dm.number("price_per_kw", required=True, lo=0, what="a price of at least 0 per kW (per kVA when basis = \"kva\")"),
+            price_per_kw=dm.number("price_per_kw", required=True, lo=0, hi=MAX_PRICE_PER_DEMAND,
+                                   what=f"a price of at least 0 and at most {MAX_PRICE_PER_DEMAND:g} per kW (per kVA when basis = \"kva\")"),
             ratchet_percent=dm.number("ratchet_percent", lo=0, hi=100, lo_open=True, what="a percentage greater than 0 and at most 100"),
             ratchet_periods=dm.integer("ratchet_periods", default=11, lo=1, hi=36, what="a whole number of previous periods from 1 to 36"),
         )
@@ -417,7 +435,8 @@ def tariff_from_dict(d: Mapping[str, Any], source: str | None = None) -> Tariff:
     fixed = 0.0
     if top.has("fixed"):
         fx = _V(top.raw("fixed"), "fixed", source)
-        fixed = fx.number("price_per_period", required=True, lo=0, what="a charge of at least 0 per billing period")
+        fixed = fx.number("price_per_period", required=True, lo=0, hi=MAX_FIXED,
+                          what=f"a charge of at least 0 and at most {MAX_FIXED:g} per billing period")
         fx.done()
 
     reactive = []
@@ -492,8 +511,14 @@ def load_tariff(path: str | Path) -> Tariff:
         raise TariffError("(file)", "no such tariff file", str(p)) from None
     except (OSError, UnicodeDecodeError) as exc:
         raise TariffError("(file)", f"cannot be read as UTF-8 text: {exc}", str(p)) from None
+    deep = deepest_nesting(text, MAX_NESTING)
+    if deep is not None:
+        raise TariffError("(syntax)", f"arrays or inline tables nested more than {MAX_NESTING} deep "
+                          "(a tariff needs at most 2)", str(p), line=deep)
     try:
         data = tomllib.loads(text)
+    except RecursionError:  # pragma: no cover - the nesting check above comes first
+        raise TariffError("(syntax)", "nested too deeply to read", str(p)) from None
     except tomllib.TOMLDecodeError as exc:
         m = _LINE.search(str(exc))
         where = f"line {m.group(1)}, column {m.group(2)}" if m else "unknown position"
