@@ -34,12 +34,15 @@ from auditor.quantities import (
 )
 from auditor.tariffs.engine import (
     Charges,
+    IntervalPlan,
+    IntervalQuantities,
     PeriodQuantities,
     WindowSums,
     compute_charges,
     energy_window_index,
     local_calendar,
     mechanism_windows,
+    plan_intervals,
     window_mask,
 )
 from auditor.tariffs.spec import Tariff
@@ -194,6 +197,7 @@ class PreparedAudit:
     history_demand: np.ndarray
     warnings: tuple[str, ...]
     _local_index: pd.DatetimeIndex = field(repr=False, default=None)
+    interval_plan: IntervalPlan | None = field(repr=False, default=None)  # per-band / per-interval clauses
 
     # ---------------------------------------------------------------------------------------
     def _check(self, values, name: str) -> np.ndarray:
@@ -229,6 +233,8 @@ class PreparedAudit:
             wd = segment_sum(self.window_masks * lead, b)
         for row in self.window_rows:
             windowed.append(None if row is None else WindowSums(self.window_kwh[row], wl[row], wd[row]))
+        plan = self.interval_plan
+        intervals = IntervalQuantities(self.kwh, lag, lead, self.kw, kva, b, plan) if plan and plan.needed else None
         q = PeriodQuantities(
             kwh=self.period_kwh,
             kvarh_lag=sums[0],
@@ -240,6 +246,7 @@ class PreparedAudit:
             energy_kwh=self.energy_kwh,
             windowed=tuple(windowed),
             history_demand=self.history_demand,
+            intervals=intervals,
         )
         return q, {"kva": kva, "pf_at_peak_sense": np.where(has, sense, "")}
 
@@ -443,6 +450,7 @@ def prepare_audit(
             rows.append(None)
     window_masks = np.vstack(masks) if masks else np.zeros((0, len(index)))
     window_kwh = segment_sum(window_masks * kwh, bounds) if masks else np.zeros((0, n))
+    interval_plan = plan_intervals(tariff, cal, bounds, interval_minutes, kwh)
 
     # Partial: the period reaches beyond the data, or a billing cycle was cut by start/end.
     p_start = local_bounds_utc([p.start for p in ps], tz)
@@ -509,6 +517,7 @@ def prepare_audit(
         history_demand=history,
         warnings=tuple(warnings),
         _local_index=local_index,
+        interval_plan=interval_plan,
     )
 
 

@@ -9,13 +9,20 @@ bill; the error names the closest known key ("did you mean tan_phi_limit?").
 File layout (every key; ``?`` marks optional ones)::
 
     name = "..."                 currency = "EUR"          description? = "..."
-    pf_rounding? = 2 | "none"    kvarh_basis? = "lag" | "net" | "lag_plus_lead"
+    pf_rounding? = 2 | "none" | { step, mode? }            kvarh_basis? = "lag" | "net" | ...
     [calendar]?   country = "DE"   subdivision? = "BY"      (public holidays, `holidays` library)
     [energy]      price_per_kwh = 0.10                      (outside every window)
       [[energy.windows]]?  name?, days?, hours, months?, holidays?, price_per_kwh
     [demand]?     basis? = "kw" | "kva"   price_per_kw   ratchet_percent?   ratchet_periods? = 11
+                  rounding? = { step, mode? }
+      [[demand.windows]]?  name?, days?, hours, months?, holidays?, price_per_kw, excess_over?
     [fixed]?      price_per_period
-    [[reactive]]* kind = one of MECHANISMS, label?, then the kind's own keys
+    [[reactive]]* kind = one of MECHANISMS, label?, then the kind's own keys; shared shapes:
+                  per? = "period" | "window" | "interval", block_minutes?, excess_rounding?,
+                  [[reactive.windows]]? (name, days, hours "HH:MM" or whole hours, months,
+                  holidays, kvarh for per-interval clauses), [[reactive.tiers]]?, [[reactive.slopes]]?
+
+A rounding table is ``{ step = 0.01, mode = "up" | "down" | "half_up" | "half_down" }``.
 
 Defaults, documented once here: ``pf_rounding = 2`` (PF rounded half up to two decimals wherever
 a tariff compares a PF with a limit or divides by it; figures are reported unrounded);
@@ -40,12 +47,15 @@ from auditor.tariffs.model import (
     BASE_CHARGES,
     DAY_GROUPS,
     DAY_NAMES,
+    EVALUATIONS,
     HOLIDAY_RULES,
     KVARH_BASES,
     MECHANISMS,
+    ROUNDING_MODES,
     Band,
     Calendar,
     DemandCharge,
+    DemandWindow,
     EnergyCharge,
     KvarDemand,
     KvarhBanded,
@@ -54,7 +64,10 @@ from auditor.tariffs.model import (
     Mechanism,
     PfDemandAdjust,
     PfPercent,
+    Rounding,
+    Slope,
     Tariff,
+    Tier,
     Window,
 )
 from auditor.tariffs.toml_lines import deepest_nesting, locate_key
@@ -67,12 +80,14 @@ __all__ = ["load_tariff", "tariff_from_dict"]
 #: a key is close to it is reported as that key misspelt. ``tests/test_tariff_facts.py`` checks
 #: that every key the validator reads is listed.
 KNOWN_KEYS = frozenset("""
-    allowance_ratio applies_to bands base_pf basis calendar country credit currency days demand
-    description energy fixed holidays hours kind kvarh kvarh_basis label max_credit_percent
-    max_rebate_percent max_surcharge_percent min_pf months name percent_per_hundredth pf
-    pf_rounding price_per_kvar price_per_kvarh price_per_kw price_per_kwh price_per_period
-    ratchet_percent ratchet_periods reactive rebate_above_pf rebate_percent_per_hundredth
-    subdivision tan_phi_limit threshold_pf windows
+    above_tan_phi allowance_lookback_periods allowance_ratio applies_to apply_below_pf bands base_pf
+    basis below_pf block_minutes calendar country credit currency days demand description
+    difference_rounding energy excess_over excess_rounding fixed holidays hours kind kvarh
+    kvarh_basis label max_credit_percent max_increase_percent max_rebate_percent
+    max_surcharge_percent min_pf mode months name per percent_per_hundredth pf pf_rounding
+    price_per_kvar price_per_kvarh price_per_kw price_per_kwh price_per_period ratchet_percent
+    ratchet_periods reactive rebate_above_pf rebate_percent_per_hundredth reference_pf rounding
+    slopes step subdivision tan_phi_limit threshold_pf tiers windows
 """.split())
 
 
@@ -93,9 +108,9 @@ PERCENT = dict(lo=0, hi=MAX_PERCENT, what=f"a percentage of at least 0 and at mo
 PERCENT_PER_STEP = dict(lo=0, hi=100, what="a percentage of at least 0 and at most 100")
 
 
-def _closest(word: str, candidates) -> str | None:
-    """The candidate closest to a misspelt ``word`` (difflib ratio at least 0.75), or None."""
-    found = difflib.get_close_matches(word, sorted(candidates), n=1, cutoff=0.75)
+def _closest(word: str, candidates, cutoff: float = 0.75) -> str | None:
+    """The candidate closest to a misspelt ``word`` (difflib ratio at least ``cutoff``), or None."""
+    found = difflib.get_close_matches(word, sorted(candidates), n=1, cutoff=cutoff)
     return found[0] if found else None
 
 
@@ -165,7 +180,7 @@ class _V:
         if not isinstance(v, str) or not v.strip():
             self.fail(self.key(k), f"must be {what if choices is None else _choices(choices)}, got {_repr(v)}")
         if choices is not None and v not in choices:
-            near = _closest(v, choices)
+            near = _closest(v, choices, cutoff=0.6)
             hint = f" (did you mean {near!r}?)" if near else ""
             self.fail(self.key(k), f"must be {_choices(choices)}, got {_repr(v)}{hint}")
         return v
@@ -221,9 +236,40 @@ def _choices(choices) -> str:
 
 
 PF_WHAT = "a power factor greater than 0 and at most 1"
+PF = dict(lo=0, hi=1, lo_open=True, what=PF_WHAT)
+BLOCKS = (5, 10, 15, 30, 60)
+HOURS_WHAT = ('[start, end] in local time: whole hours 0-24 or "HH:MM" text (end exclusive, '
+              "start > end wraps past midnight)")
 
 
-def _window(v: _V, *, with_price: bool, hours_only: bool = False) -> Window:
+def _rounding(v: _V, k: str, unit_hint: str) -> Rounding | None:
+    """A rounding table ``{ step = 1, mode = "half_down" }`` (mode default "half_up")."""
+    raw = v.raw(k)
+    if raw is None:
+        return None
+    r = _V(raw, v.key(k), v.source)
+    step = r.number("step", required=True, lo=0, hi=1e6, lo_open=True,
+                    what=f"a positive step to round to ({unit_hint})")
+    mode = r.string("mode", default="half_up", choices=ROUNDING_MODES)
+    r.done()
+    return Rounding(step, mode)
+
+
+def _clock_minutes(v: _V, h, *, end: bool) -> int | None:
+    """Minutes after local midnight of an hours item (an int hour or "HH:MM"), or None."""
+    if isinstance(h, int) and not isinstance(h, bool):
+        return h * 60 if (0 <= h <= 23 or (end and h == 24)) else None
+    if isinstance(h, str):
+        m = re.fullmatch(r"(\d{1,2}):(\d{2})", h.strip())
+        if m:
+            hh, mm = int(m.group(1)), int(m.group(2))
+            total = hh * 60 + mm
+            if mm < 60 and (total < 1440 or (end and total == 1440)):
+                return total
+    return None
+
+
+def _window(v: _V, *, with_price: bool, hours_only: bool = False, with_kvarh: bool = False) -> Window:
     days_raw = v.raw("days")
     if days_raw is None:
         days = DAY_GROUPS["all"]
@@ -236,18 +282,17 @@ def _window(v: _V, *, with_price: bool, hours_only: bool = False) -> Window:
             v.key("days"),
             f'must be "all", "weekdays", "weekend" or a list of day names {list(DAY_NAMES)}, got {_repr(days_raw)}',
         )
-    hours = v.raw("hours", True, "[start_hour, end_hour] in local time, 0-24")
-    if (
-        not isinstance(hours, list)
-        or len(hours) != 2
-        or not all(isinstance(h, int) and not isinstance(h, bool) for h in hours)
-        or not (0 <= hours[0] <= 23 and 1 <= hours[1] <= 24)
-        or hours[0] == hours[1]
-    ):
+    hours = v.raw("hours", True, HOURS_WHAT)
+    span = None
+    if isinstance(hours, list) and len(hours) == 2:
+        start, end = _clock_minutes(v, hours[0], end=False), _clock_minutes(v, hours[1], end=True)
+        if start is not None and end is not None and start != end and end > 0:
+            span = (start, end)
+    if span is None:
         v.fail(
             v.key("hours"),
-            f"must be [start_hour, end_hour] with start 0-23 and end 1-24 (end exclusive, "
-            f"start > end wraps past midnight), got {_repr(hours) if not isinstance(hours, list) else hours}",
+            "must be [start_hour, end_hour]: whole hours with start 0-23 and end 1-24, or \"HH:MM\" text "
+            f"(end exclusive, start > end wraps past midnight), got {_repr(hours) if not isinstance(hours, list) else hours}",
         )
     months_raw = None if hours_only else v.raw("months")
     if months_raw is None:
@@ -263,17 +308,18 @@ def _window(v: _V, *, with_price: bool, hours_only: bool = False) -> Window:
     holidays = v.string("holidays", default="as_sunday", choices=HOLIDAY_RULES)
     name = None if hours_only else v.string("name")
     price = v.number("price_per_kwh", required=True, **PRICE_UNIT) if with_price else None
+    kvarh = v.string("kvarh", choices=("lag", "lead")) if with_kvarh else None
     return Window(
-        start_hour=hours[0], end_hour=hours[1], days=days, months=months, holidays=holidays, name=name,
-        price_per_kwh=price,
+        start_minute=span[0], end_minute=span[1], days=days, months=months, holidays=holidays, name=name,
+        price_per_kwh=price, kvarh=kvarh,
     )
 
 
-def _windows(parent: _V, k: str, *, with_price: bool) -> tuple[Window, ...]:
+def _windows(parent: _V, k: str, *, with_price: bool, with_kvarh: bool = False) -> tuple[Window, ...]:
     out = []
     for i, t in enumerate(parent.tables(k)):
         w = _V(t, f"{parent.key(k)}[{i}]", parent.source)
-        out.append(_window(w, with_price=with_price))
+        out.append(_window(w, with_price=with_price, with_kvarh=with_kvarh))
         w.done()
     return tuple(out)
 
@@ -282,19 +328,93 @@ def _kvarh(v: _V, default: str) -> str:
     return v.string("kvarh", default=default, choices=KVARH_BASES)
 
 
+def _per(v: _V, choices=EVALUATIONS) -> str:
+    return v.string("per", default="period", choices=choices)
+
+
+def _block_minutes(v: _V, per: str) -> int | None:
+    blocks = v.integer("block_minutes", what=f"a block length in minutes, one of {', '.join(map(str, BLOCKS))}")
+    if blocks is not None:
+        if blocks not in BLOCKS:
+            v.fail(v.key("block_minutes"), f"must be a block length in minutes, one of {', '.join(map(str, BLOCKS))}, got {blocks}")
+        if per != "interval":
+            v.fail(v.key("block_minutes"), 'only applies with per = "interval"')
+    return blocks
+
+
+def _check_per_window(v: _V, per: str, windows) -> None:
+    if per == "window" and not windows:
+        v.fail(v.key("per"), 'per = "window" needs [[reactive.windows]] (each named window group is a time band)')
+
+
+def _tiers(v: _V, first: float) -> tuple[Tier, ...]:
+    out, last = [], first
+    for i, t in enumerate(v.tables("tiers", what="[[reactive.tiers]] tables with above_tan_phi and price_per_kvarh")):
+        tv = _V(t, f"{v.key('tiers')}[{i}]", v.source)
+        above = tv.number("above_tan_phi", required=True, **TAN_PHI)
+        if above <= last:
+            tv.fail(tv.key("above_tan_phi"), f"must be above the previous limit ({last:g}): tiers go up in order")
+        out.append(Tier(above, tv.number("price_per_kvarh", required=True, **PRICE_UNIT)))
+        tv.done()
+        last = above
+    return tuple(out)
+
+
+def _slopes(v: _V, threshold: float) -> tuple[Slope, ...]:
+    out, last = [], threshold
+    for i, t in enumerate(v.tables("slopes", what="[[reactive.slopes]] tables with below_pf and percent_per_hundredth")):
+        sv = _V(t, f"{v.key('slopes')}[{i}]", v.source)
+        below = sv.number("below_pf", required=True, **PF)
+        if below >= last:
+            sv.fail(sv.key("below_pf"), f"must be below the previous threshold ({last:g}): slopes go down in order")
+        out.append(Slope(below, sv.number("percent_per_hundredth", required=True, **PERCENT_PER_STEP)))
+        sv.done()
+        last = below
+    return tuple(out)
+
+
 def _mechanism(v: _V, tariff_basis: str) -> Mechanism:
     kind = v.string("kind", required=True, choices=MECHANISMS)
     label = v.string("label", what="a non-empty text (the charge's name on the bill)")
     if label is not None and label in BASE_CHARGES:
         v.fail(v.key("label"), f"must not be one of {', '.join(BASE_CHARGES)} (those name the base charges)")
     if kind == "kvarh_excess":
-        m = KvarhExcess(
-            tan_phi_limit=v.number("tan_phi_limit", required=True, **TAN_PHI),
-            price_per_kvarh=v.number("price_per_kvarh", required=True, **PRICE_UNIT),
-            kvarh=_kvarh(v, tariff_basis),
-            windows=_windows(v, "windows", with_price=False),
-            label=label,
-        )
+        per = _per(v)
+        windows = _windows(v, "windows", with_price=False, with_kvarh=True)
+        _check_per_window(v, per, windows)
+        for j, w in enumerate(windows):
+            if w.kvarh is not None and per != "interval":
+                v.fail(f"{v.key('windows')}[{j}].kvarh", 'only applies with per = "interval"')
+        if v.has("reference_pf"):  # the excess valued as the active energy it stands for
+            for k in ("tan_phi_limit", "price_per_kvarh", "tiers"):
+                if v.has(k):
+                    v.fail(v.key(k), "does not combine with reference_pf (give either tan_phi_limit and "
+                                     "price_per_kvarh, or reference_pf and price_per_kwh)")
+            ref = v.number("reference_pf", required=True, **PF)
+            m = KvarhExcess(
+                tan_phi_limit=math.sqrt(max(0.0, 1.0 / ref**2 - 1.0)),
+                price_per_kvarh=0.0,
+                kvarh=_kvarh(v, tariff_basis),
+                windows=windows,
+                label=label,
+                per=per,
+                block_minutes=_block_minutes(v, per),
+                reference_pf=ref,
+                price_per_kwh=v.number("price_per_kwh", required=True, **PRICE_UNIT),
+            )
+        else:
+            tan_phi = v.number("tan_phi_limit", required=True, **TAN_PHI)
+            m = KvarhExcess(
+                tan_phi_limit=tan_phi,
+                price_per_kvarh=v.number("price_per_kvarh", required=True, **PRICE_UNIT),
+                kvarh=_kvarh(v, tariff_basis),
+                windows=windows,
+                label=label,
+                tiers=_tiers(v, tan_phi),
+                per=per,
+                block_minutes=_block_minutes(v, per),
+                excess_rounding=_rounding(v, "excess_rounding", "kvarh"),
+            )
     elif kind == "kvarh_banded":
         tan_phi = v.number("tan_phi_limit", required=True, **TAN_PHI)
         bands = []
@@ -314,26 +434,37 @@ def _mechanism(v: _V, tariff_basis: str) -> Mechanism:
             v.fail(v.key("bands"), "two bands have the same min_pf; each band needs its own lower PF bound")
         if min(mins) != 0:
             v.fail(v.key("bands"), "the lowest band must have min_pf = 0 so that every PF has a price")
+        per = _per(v, ("period", "window"))
+        windows = _windows(v, "windows", with_price=False)
+        _check_per_window(v, per, windows)
         m = KvarhBanded(
             tan_phi_limit=tan_phi,
             bands=tuple(sorted(bands, key=lambda b: -b.min_pf)),
             kvarh=_kvarh(v, tariff_basis),
             label=label,
+            windows=windows,
+            per=per,
+            excess_rounding=_rounding(v, "excess_rounding", "kvarh"),
         )
     elif kind == "pf_demand_adjust":
         credit = v.boolean("credit", default=False)
         m = PfDemandAdjust(
-            base_pf=v.number("base_pf", required=True, lo=0, hi=1, lo_open=True, what=PF_WHAT),
+            base_pf=v.number("base_pf", required=True, **PF),
             credit=credit,
             max_credit_percent=v.number("max_credit_percent", lo=0, hi=100, what="a percentage from 0 to 100"),
-            pf=v.string("pf", default="energy", choices=("energy", "at_peak")),
+            pf=v.string("pf", default="energy", choices=("energy", "at_peak", "peak_kva")),
             kvarh=_kvarh(v, tariff_basis),
             label=label,
+            apply_below_pf=v.number("apply_below_pf", **PF),
+            max_increase_percent=v.number("max_increase_percent", **PERCENT),
         )
         if m.max_credit_percent is not None and not credit:
             v.fail(v.key("max_credit_percent"), "only applies with credit = true")
+        if m.apply_below_pf is not None and credit:
+            v.fail(v.key("apply_below_pf"), "does not combine with credit = true (a trigger below the base PF leaves "
+                                            "no PF at which to credit)")
     elif kind == "pf_percent":
-        threshold = v.number("threshold_pf", required=True, lo=0, hi=1, lo_open=True, what=PF_WHAT)
+        threshold = v.number("threshold_pf", required=True, **PF)
         applies = v.raw("applies_to", True, f"a list of charges from {list(BASE_CHARGES)}")
         if (
             not isinstance(applies, list)
@@ -360,6 +491,8 @@ def _mechanism(v: _V, tariff_basis: str) -> Mechanism:
             max_rebate_percent=max_rebate,
             kvarh=_kvarh(v, tariff_basis),
             label=label,
+            slopes=_slopes(v, threshold),
+            difference_rounding=_rounding(v, "difference_rounding", "of PF, e.g. 0.01"),
         )
     elif kind == "kvar_demand":
         m = KvarDemand(
@@ -367,17 +500,53 @@ def _mechanism(v: _V, tariff_basis: str) -> Mechanism:
                                      what=f"a ratio of at least 0 and at most {MAX_TAN_PHI:g} (kvar allowed per kW of peak)"),
             price_per_kvar=v.number("price_per_kvar", required=True, **PRICE_DEMAND),
             label=label,
+            excess_rounding=_rounding(v, "excess_rounding", "kvar"),
+            allowance_lookback_periods=v.integer(
+                "allowance_lookback_periods", lo=1, hi=36,
+                what="a whole number of previous periods from 1 to 36 (the allowance is a share of the highest kW "
+                     "of this and those periods)"),
         )
     else:  # leading_kvarh
-        window = _window(v, with_price=False, hours_only=True)
+        listed = v.has("windows")
+        if listed and v.has("hours"):
+            v.fail(v.key("hours"), "give either hours (one window) or [[reactive.windows]] (several), not both")
+        windows = _windows(v, "windows", with_price=False) if listed else (_window(v, with_price=False, hours_only=True),)
+        if not windows:
+            v.fail(v.key("windows"), "needs at least one window")
+        per = _per(v, ("period", "interval"))
         m = LeadingKvarh(
             price_per_kvarh=v.number("price_per_kvarh", required=True, **PRICE_UNIT),
-            window=window,
+            windows=windows,
             tan_phi_limit=v.number("tan_phi_limit", default=0.0, **TAN_PHI),
             label=label,
+            per=per,
+            block_minutes=_block_minutes(v, per),
+            excess_rounding=_rounding(v, "excess_rounding", "kvarh"),
         )
     v.done(f" for kind {kind!r}")
     return m
+
+
+def _demand_windows(dm: _V) -> tuple[DemandWindow, ...]:
+    out = []
+    for i, t in enumerate(dm.tables("windows")):
+        w = _V(t, f"demand.windows[{i}]", dm.source)
+        window = _window(w, with_price=False)
+        out.append(DemandWindow(
+            window=window,
+            price_per_kw=w.number("price_per_kw", required=True, **PRICE_DEMAND),
+            excess_over=w.string("excess_over", what="the name of another demand window"),
+        ))
+        w.done()
+    names = [d.name for d in out]
+    for i, d in enumerate(out):
+        if d.excess_over is not None:
+            if d.excess_over not in names or d.excess_over == d.name:
+                known = ", ".join(repr(n) for n in names if n and n != d.name) or "none"
+                dm.fail(f"demand.windows[{i}].excess_over", f"must name another demand window (named: {known}), got {d.excess_over!r}")
+            if d.name is None:
+                dm.fail(f"demand.windows[{i}].name", "is required with excess_over (name each window)")
+    return tuple(out)
 
 
 def tariff_from_dict(d: Mapping[str, Any], source: str | None = None) -> Tariff:
@@ -396,13 +565,17 @@ def tariff_from_dict(d: Mapping[str, Any], source: str | None = None) -> Tariff:
     description = top.string("description")
     rounding_raw = top.raw("pf_rounding")
     if rounding_raw is None:
-        pf_rounding: int | None = 2
+        pf_rounding: int | Rounding | None = 2
     elif rounding_raw == "none":
         pf_rounding = None
     elif isinstance(rounding_raw, int) and not isinstance(rounding_raw, bool) and 0 <= rounding_raw <= 6:
         pf_rounding = int(rounding_raw)
+    elif isinstance(rounding_raw, Mapping):
+        pf_rounding = _rounding(top, "pf_rounding", "of PF, e.g. 0.01")
+        if pf_rounding.step > 0.1:
+            top.fail("pf_rounding.step", f"must be at most 0.1 (a PF step), got {pf_rounding.step:g}")
     else:
-        top.fail("pf_rounding", f'must be a number of decimals 0-6 or "none", got {_repr(rounding_raw)}')
+        top.fail("pf_rounding", f'must be a number of decimals 0-6, "none", or a table {{ step = 0.01, mode = "down" }}, got {_repr(rounding_raw)}')
     kvarh_basis = top.string("kvarh_basis", default="lag", choices=KVARH_BASES)
 
     calendar = None
@@ -427,6 +600,8 @@ def tariff_from_dict(d: Mapping[str, Any], source: str | None = None) -> Tariff:
                                    what=f"a price of at least 0 and at most {MAX_PRICE_PER_DEMAND:g} per kW (per kVA when basis = \"kva\")"),
             ratchet_percent=dm.number("ratchet_percent", lo=0, hi=100, lo_open=True, what="a percentage greater than 0 and at most 100"),
             ratchet_periods=dm.integer("ratchet_periods", default=11, lo=1, hi=36, what="a whole number of previous periods from 1 to 36"),
+            rounding=_rounding(dm, "rounding", "kW or kVA"),
+            windows=_demand_windows(dm),
         )
         if dm.has("ratchet_periods") and demand.ratchet_percent is None:
             dm.fail("demand.ratchet_periods", "only applies with ratchet_percent")
@@ -469,6 +644,9 @@ def tariff_from_dict(d: Mapping[str, Any], source: str | None = None) -> Tariff:
                     'pf_demand_adjust needs demand.basis = "kw" (a kVA demand already charges for low PF)',
                     source,
                 )
+        if isinstance(m, KvarDemand) and m.allowance_lookback_periods and demand is not None and demand.basis != "kw":
+            raise TariffError(f"reactive[{i}].allowance_lookback_periods",
+                              'needs demand.basis = "kw" (the look-back uses the kW demand of earlier periods)', source)
         if isinstance(m, PfPercent) and "demand" in m.applies_to and demand is None:
             raise TariffError(f"reactive[{i}].applies_to", '"demand" is listed but the tariff has no [demand] table', source)
     return Tariff(

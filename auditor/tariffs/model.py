@@ -6,8 +6,9 @@ Every reactive clause answers, without the caller knowing its kind:
 * ``threshold_pf`` -- the power factor at or above which the clause charges nothing (None when
   no PF keeps it at zero, e.g. a charge on leading energy);
 * ``pf_measure`` -- which PF that threshold is compared with: ``"period"`` (the energy PF of the
-  billing period), ``"peak"`` (the PF at the kW peak) or ``"interval"`` (every metered
-  interval's PF: a clause on peak kvar charges nothing when each interval is at or above it);
+  billing period), ``"peak"`` (the PF at the kW peak, or peak kW over peak kVA) or
+  ``"interval"`` (every metered interval's PF: a clause on peak kvar, or one worked out
+  interval by interval, charges nothing when each interval is at or above it);
 * ``charges_lagging`` / ``charges_leading`` -- which reactive energy adds to its charge;
 * ``windows`` -- the time-of-use windows it counts energy in (empty: the whole period).
 
@@ -27,6 +28,10 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
+import numpy as np
+
+from auditor.quantities import round_pf
+
 __all__ = [
     "BASE_CHARGES",
     "Band",
@@ -34,7 +39,9 @@ __all__ = [
     "DAY_GROUPS",
     "DAY_NAMES",
     "DemandCharge",
+    "DemandWindow",
     "EnergyCharge",
+    "EVALUATIONS",
     "HOLIDAY_RULES",
     "KVARH_BASES",
     "KvarDemand",
@@ -45,17 +52,30 @@ __all__ = [
     "Mechanism",
     "PfDemandAdjust",
     "PfPercent",
+    "RATCHET_BASES",
+    "ROUNDING_MODES",
+    "Rounding",
+    "Slope",
     "Tariff",
+    "Tier",
     "Window",
     "pf_of_tan_phi",
 ]
 
 DAY_NAMES = ("mon", "tue", "wed", "thu", "fri", "sat", "sun")
 DAY_GROUPS = {"all": tuple(range(7)), "weekdays": tuple(range(5)), "weekend": (5, 6)}
-KVARH_BASES = ("lag", "net", "lag_plus_lead")
+#: Which reactive energy a clause counts: lagging, lag - lead, lag + lead, or the larger of
+#: lagging and leading (in each interval when the clause is worked out interval by interval).
+KVARH_BASES = ("lag", "net", "lag_plus_lead", "max_lag_lead")
 HOLIDAY_RULES = ("as_sunday", "as_weekday")
 BASE_CHARGES = ("energy", "demand", "fixed")
 MECHANISMS = ("kvarh_excess", "kvarh_banded", "pf_demand_adjust", "pf_percent", "kvar_demand", "leading_kvarh")
+ROUNDING_MODES = ("up", "down", "half_up", "half_down")
+#: How a clause is worked out: over the whole billing period, separately in each named time
+#: band (window group), or interval by interval (or block by block) and then summed.
+EVALUATIONS = ("period", "window", "interval")
+#: What a demand ratchet looks back at: measured demand, or the PF-adjusted demand.
+RATCHET_BASES = ("measured", "billing")
 
 
 def pf_of_tan_phi(tan_phi: float) -> float:
@@ -66,29 +86,91 @@ def pf_of_tan_phi(tan_phi: float) -> float:
 def _basis_senses(basis: str) -> tuple[bool, bool]:
     """(counts lagging, counts leading) of a kvarh basis. ``net`` subtracts leading energy, so
     leading energy lowers rather than raises the charge."""
-    return True, basis == "lag_plus_lead"
+    return True, basis in ("lag_plus_lead", "max_lag_lead")
+
+
+def _num(x: float) -> str:
+    return f"{x:g}"
+
+
+# --------------------------------------------------------------------------------------------
+# Rounding
+# --------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class Rounding:
+    """Round a quantity to a multiple of ``step`` as a tariff says: ``up`` (each part of a step
+    counts as a whole one: "or fraction thereof"), ``down`` (parts discarded), ``half_up``
+    (0.5 goes up, the schoolbook rule) or ``half_down`` (0.5 discarded).
+
+    A relative tolerance of 1e-9 of a step absorbs binary representation error, so 0.845 (stored
+    as 0.84499999...) rounds half up to 0.85 and 2.0000000001 steps do not round up to 3.
+    """
+
+    step: float
+    mode: str = "half_up"
+
+    def apply(self, x):
+        x = np.asarray(x, dtype=float)
+        q = x / self.step
+        eps = 1e-9
+        if self.mode == "up":
+            r = np.ceil(q - eps)
+        elif self.mode == "down":
+            r = np.floor(q + eps)
+        elif self.mode == "half_up":
+            r = np.floor(q + 0.5 + eps)
+        else:  # half_down
+            r = np.ceil(q - 0.5 - eps)
+        # Multiply back and drop the float noise of the step (0.1 x 3 = 0.30000000000000004).
+        decimals = max(0, -math.floor(math.log10(self.step)) + 6)
+        return np.round(r * self.step, decimals)
+
+    def describe(self, unit: str = "") -> str:
+        u = f" {unit}" if unit else ""
+        if self.mode == "up":
+            return f"rounded up to a whole {_num(self.step)}{u} (a part counts as a whole)"
+        if self.mode == "down":
+            return f"rounded down to a whole {_num(self.step)}{u} (parts discarded)"
+        half = "halves up" if self.mode == "half_up" else "halves discarded"
+        return f"rounded to the nearest {_num(self.step)}{u}, {half}"
 
 
 # --------------------------------------------------------------------------------------------
 # Calendar and windows
 # --------------------------------------------------------------------------------------------
+def _clock(minute: int) -> str:
+    return f"{minute // 60:02d}:{minute % 60:02d}"
+
+
 @dataclass(frozen=True)
 class Window:
-    """A time-of-use window in local time.
+    """A time-of-use window in local time, at minute resolution.
 
-    ``start_hour`` inclusive, ``end_hour`` exclusive (0-24); ``start_hour > end_hour`` wraps past
-    midnight (22 to 6 is a night window; each hour belongs to the calendar day it starts on).
-    ``holidays = "as_sunday"`` bills a public holiday like a Sunday; ``"as_weekday"`` ignores
-    holidays.
+    ``start_minute`` inclusive, ``end_minute`` exclusive (minutes after local midnight, 0-1440);
+    a start later than the end wraps past midnight (22:00 to 06:00 is a night window; each
+    interval belongs to the calendar day it starts on). An interval is inside when its local
+    start is. ``holidays = "as_sunday"`` bills a public holiday like a Sunday; ``"as_weekday"``
+    ignores holidays. ``kvarh`` (``"lag"`` or ``"lead"``) may be set on the windows of a
+    ``kvarh_excess`` clause worked out interval by interval: inside that window the clause counts
+    that reactive energy instead of its own basis (inductive by day, capacitive at night).
     """
 
-    start_hour: int
-    end_hour: int
+    start_minute: int
+    end_minute: int
     days: tuple[int, ...] = DAY_GROUPS["all"]
     months: tuple[int, ...] = tuple(range(1, 13))
     holidays: str = "as_sunday"
     name: str | None = None
     price_per_kwh: float | None = None
+    kvarh: str | None = None
+
+    @property
+    def start_hour(self) -> float:
+        return self.start_minute / 60
+
+    @property
+    def end_hour(self) -> float:
+        return self.end_minute / 60
 
     def describe(self) -> str:
         if self.days == DAY_GROUPS["all"]:
@@ -99,10 +181,10 @@ class Window:
             d = "Saturday and Sunday"
         else:
             d = ", ".join(DAY_NAMES[i].capitalize() for i in self.days)
-        text = f"{d} {self.start_hour:02d}:00-{self.end_hour:02d}:00 local time"
+        text = f"{d} {_clock(self.start_minute)}-{_clock(self.end_minute)} local time"
         if self.months != tuple(range(1, 13)):
             text += " in months " + ", ".join(str(m) for m in self.months)
-        if self.holidays == "as_sunday":
+        if self.holidays == "as_sunday" and self.days != DAY_GROUPS["all"]:
             text += " (public holidays count as Sundays)"
         return text
 
@@ -111,6 +193,15 @@ class Window:
 class Calendar:
     country: str
     subdivision: str | None = None
+
+
+def window_groups(windows: tuple[Window, ...]) -> tuple[tuple[str, tuple[Window, ...]], ...]:
+    """Windows grouped into time bands for ``per = "window"``: windows of the same name form one
+    band; an unnamed window is a band of its own. In file order of first appearance."""
+    out: dict[str, list[Window]] = {}
+    for i, w in enumerate(windows):
+        out.setdefault(w.name if w.name else f"window {i + 1}", []).append(w)
+    return tuple((k, tuple(v)) for k, v in out.items())
 
 
 # --------------------------------------------------------------------------------------------
@@ -123,11 +214,35 @@ class EnergyCharge:
 
 
 @dataclass(frozen=True)
+class DemandWindow:
+    """A demand charge on the peak inside a time window: ``price_per_kw x peak`` or, with
+    ``excess_over``, ``price_per_kw x max(0, peak - the peak of the window so named)``."""
+
+    window: Window
+    price_per_kw: float
+    excess_over: str | None = None
+
+    @property
+    def name(self) -> str | None:
+        return self.window.name
+
+
+@dataclass(frozen=True)
 class DemandCharge:
+    """Demand: measured peak (kW, or kVA from net kvar), rounded as ``rounding`` says, then the
+    PF adjustment and the ratchet; plus charges on the peaks inside ``windows``.
+
+    ``ratchet_on`` says what the ratchet looks back at: ``"measured"`` (the default: the measured
+    demand of previous periods) or ``"billing"`` (their PF-adjusted demand, before their own
+    ratchet)."""
+
     basis: str  # "kw" or "kva"
     price_per_kw: float  # per unit of billing demand (kW, or kVA when basis == "kva")
     ratchet_percent: float | None = None
     ratchet_periods: int = 11
+    rounding: Rounding | None = None
+    windows: tuple[DemandWindow, ...] = ()
+    ratchet_on: str = "measured"
 
 
 # --------------------------------------------------------------------------------------------
@@ -149,7 +264,9 @@ class _Clause:
 
     @property
     def pf_measure(self) -> str | None:
-        return "period" if self.threshold_pf is not None else None  # type: ignore[attr-defined]
+        if self.threshold_pf is None:  # type: ignore[attr-defined]
+            return None
+        return "interval" if getattr(self, "per", "period") == "interval" else "period"
 
     @property
     def charges_lagging(self) -> bool:
@@ -160,24 +277,70 @@ class _Clause:
         return _basis_senses(getattr(self, "kvarh", "lag"))[1]
 
 
-
 _NO_WINDOWS: tuple[Window, ...] = ()
 
 
 @dataclass(frozen=True)
+class Tier:
+    """From ``above_tan_phi x kWh`` up to the next tier, excess kvarh costs ``price_per_kvarh``."""
+
+    above_tan_phi: float
+    price_per_kvarh: float
+
+
+@dataclass(frozen=True)
 class KvarhExcess(_Clause):
-    """price x max(0, kvarh - tan_phi_limit x kWh) per period, inside ``windows`` if given."""
+    """price x max(0, kvarh - tan_phi_limit x kWh), inside ``windows`` if given.
+
+    ``tiers`` price the excess above higher ratios differently (marginal tiers: the kvarh
+    between ``tan_phi_limit`` and the first tier's ratio at ``price_per_kvarh``, and so on).
+    ``per`` works the excess out over the period, in each named window group separately
+    (``"window"``), or interval by interval (``"interval"``, in blocks of ``block_minutes``
+    when given) and sums it; ``excess_rounding`` rounds each period's chargeable kvarh.
+
+    With ``reference_pf`` (and ``price_per_kwh``) the excess is valued as the active energy it
+    stands for: ``max(0, kWh x (reference_pf / PF - 1))`` in each interval or block, priced per
+    kWh (``tan_phi_limit`` is then the tan phi of ``reference_pf``, ``price_per_kvarh`` 0).
+    """
 
     tan_phi_limit: float
     price_per_kvarh: float
     kvarh: str = "lag"
     windows: tuple[Window, ...] = ()
     label: str | None = None
+    tiers: tuple[Tier, ...] = ()
+    per: str = "period"
+    block_minutes: int | None = None
+    excess_rounding: Rounding | None = None
+    reference_pf: float | None = None
+    price_per_kwh: float | None = None
     kind: str = field(default="kvarh_excess", init=False)
 
     @property
     def threshold_pf(self) -> float:
-        return pf_of_tan_phi(self.tan_phi_limit)
+        return self.reference_pf if self.reference_pf is not None else pf_of_tan_phi(self.tan_phi_limit)
+
+    @property
+    def limits(self) -> tuple[float, ...]:
+        return (self.tan_phi_limit,) + tuple(t.above_tan_phi for t in self.tiers)
+
+    @property
+    def prices(self) -> tuple[float, ...]:
+        return (self.price_per_kvarh,) + tuple(t.price_per_kvarh for t in self.tiers)
+
+    @property
+    def charges_lagging(self) -> bool:
+        own = [w.kvarh for w in self.windows if w.kvarh]
+        if own and len(own) == len(self.windows):
+            return "lag" in own
+        return super().charges_lagging or "lag" in own
+
+    @property
+    def charges_leading(self) -> bool:
+        own = [w.kvarh for w in self.windows if w.kvarh]
+        if own and len(own) == len(self.windows):
+            return "lead" in own
+        return super().charges_leading or "lead" in own
 
 
 @dataclass(frozen=True)
@@ -188,56 +351,82 @@ class Band:
 
 @dataclass(frozen=True)
 class KvarhBanded(_Clause):
-    """Excess kvarh (above tan_phi_limit x kWh) priced by the band the period's PF falls in."""
+    """Excess kvarh (above tan_phi_limit x kWh) priced by the band the PF falls in.
+
+    With ``windows`` only the energy inside them counts; with ``per = "window"`` each named
+    window group (a time band) is worked out on its own: its own excess, priced by the band of
+    its own PF. Times outside every window are exempt.
+    """
 
     tan_phi_limit: float
     bands: tuple[Band, ...]  # sorted by min_pf, highest first; the last has min_pf == 0
     kvarh: str = "lag"
     label: str | None = None
+    windows: tuple[Window, ...] = ()
+    per: str = "period"
+    excess_rounding: Rounding | None = None
     kind: str = field(default="kvarh_banded", init=False)
 
     @property
     def threshold_pf(self) -> float:
         return pf_of_tan_phi(self.tan_phi_limit)
 
-    @property
-    def windows(self) -> tuple[Window, ...]:
-        return _NO_WINDOWS
-
 
 @dataclass(frozen=True)
 class PfDemandAdjust(_Clause):
-    """Billing demand = peak kW x base_pf / PF when PF < base_pf (and above it with credit)."""
+    """Billing demand = peak kW x base_pf / PF when PF < base_pf (and above it with credit).
+
+    ``apply_below_pf`` sets a trigger apart from the ratio (billed kVA = kW / PF, i.e.
+    ``base_pf = 1``, only when PF < 0.96); ``max_increase_percent`` caps the increase at a
+    percentage of the demand. ``pf``: ``"energy"`` (the period's energy PF), ``"at_peak"`` (the
+    interval PF at the kW peak) or ``"peak_kva"`` (peak kW over peak kVA, which makes billing
+    demand the larger of peak kW and base_pf x peak kVA).
+    """
 
     base_pf: float
     credit: bool = False
     max_credit_percent: float | None = None
-    pf: str = "energy"  # "energy" (period energy PF) or "at_peak" (PF at the kW peak)
+    pf: str = "energy"
     kvarh: str = "lag"
     label: str | None = None
+    apply_below_pf: float | None = None
+    max_increase_percent: float | None = None
     kind: str = field(default="pf_demand_adjust", init=False)
 
     @property
     def threshold_pf(self) -> float:
-        return self.base_pf
+        return self.apply_below_pf if self.apply_below_pf is not None else self.base_pf
+
+    @property
+    def pf_measure(self) -> str:
+        return "period" if self.pf == "energy" else "peak"
+
+    @property
+    def charges_leading(self) -> bool:
+        # The PF at the peak and peak kVA come from net kvar: leading energy raises the PF.
+        return False if self.pf != "energy" else super().charges_leading
 
     @property
     def windows(self) -> tuple[Window, ...]:
         return _NO_WINDOWS
 
-    @property
-    def pf_measure(self) -> str:
-        return "peak" if self.pf == "at_peak" else "period"
 
-    @property
-    def charges_leading(self) -> bool:
-        # The PF at the peak comes from net kvar: leading energy raises it.
-        return False if self.pf == "at_peak" else super().charges_leading
+@dataclass(frozen=True)
+class Slope:
+    """Below ``below_pf`` each 0.01 of PF costs ``percent_per_hundredth`` % (marginal)."""
+
+    below_pf: float
+    percent_per_hundredth: float
 
 
 @dataclass(frozen=True)
 class PfPercent(_Clause):
-    """N % of the named charges per 0.01 PF below threshold_pf; optional rebate above another."""
+    """N % of the named charges per 0.01 PF below threshold_pf; optional rebate above another.
+
+    ``slopes`` add steeper rates further down (marginal: 0.5 % per 0.01 from 0.95 to 0.90, then
+    1 % per 0.01 below 0.90); ``difference_rounding`` says how the PF difference is counted
+    ("each point or fraction thereof": step 0.01, up).
+    """
 
     threshold_pf: float
     percent_per_hundredth: float
@@ -248,6 +437,8 @@ class PfPercent(_Clause):
     max_rebate_percent: float | None = None
     kvarh: str = "lag"
     label: str | None = None
+    slopes: tuple[Slope, ...] = ()
+    difference_rounding: Rounding | None = None
     kind: str = field(default="pf_percent", init=False)
 
     @property
@@ -257,11 +448,17 @@ class PfPercent(_Clause):
 
 @dataclass(frozen=True)
 class KvarDemand(_Clause):
-    """price x max(0, peak kvar - allowance_ratio x peak kW); peak kvar is lagging."""
+    """price x max(0, peak kvar - allowance_ratio x peak kW); peak kvar is lagging.
+
+    With ``allowance_lookback_periods = N`` the allowance is a share of the highest kW of this
+    period and the previous N; ``excess_rounding`` rounds the chargeable kvar.
+    """
 
     allowance_ratio: float
     price_per_kvar: float
     label: str | None = None
+    excess_rounding: Rounding | None = None
+    allowance_lookback_periods: int | None = None
     kind: str = field(default="kvar_demand", init=False)
 
     @property
@@ -273,23 +470,32 @@ class KvarDemand(_Clause):
         return "interval"
 
     @property
-    def windows(self) -> tuple[Window, ...]:
-        return _NO_WINDOWS
-
-    @property
     def charges_leading(self) -> bool:
         return False
+
+    @property
+    def windows(self) -> tuple[Window, ...]:
+        return _NO_WINDOWS
 
 
 @dataclass(frozen=True)
 class LeadingKvarh(_Clause):
-    """price x max(0, leading kvarh - tan_phi_limit x kWh) inside the window's hours."""
+    """price x max(0, leading kvarh - tan_phi_limit x kWh) inside its windows (one or several),
+    over the period or, with ``per = "interval"``, interval by interval."""
 
     price_per_kvarh: float
-    window: Window
+    windows: tuple[Window, ...]
     tan_phi_limit: float = 0.0
     label: str | None = None
+    per: str = "period"
+    block_minutes: int | None = None
+    excess_rounding: Rounding | None = None
     kind: str = field(default="leading_kvarh", init=False)
+
+    @property
+    def window(self) -> Window:
+        """The first window (a clause written with top-level ``hours`` has exactly one)."""
+        return self.windows[0]
 
     @property
     def threshold_pf(self) -> None:
@@ -302,10 +508,6 @@ class LeadingKvarh(_Clause):
     @property
     def charges_leading(self) -> bool:
         return True
-
-    @property
-    def windows(self) -> tuple[Window, ...]:
-        return (self.window,)
 
 
 Mechanism = KvarhExcess | KvarhBanded | PfDemandAdjust | PfPercent | KvarDemand | LeadingKvarh
@@ -322,7 +524,7 @@ class Tariff:
     demand: DemandCharge | None = None
     fixed_per_period: float = 0.0
     reactive: tuple[Mechanism, ...] = ()
-    pf_rounding: int | None = 2
+    pf_rounding: int | Rounding | None = 2
     kvarh_basis: str = "lag"
     calendar: Calendar | None = None
     description: str | None = None
@@ -341,3 +543,16 @@ class Tariff:
     def charge_keys(self) -> tuple[str, ...]:
         """Every charge key the engine returns, in bill order."""
         return BASE_CHARGES + self.reactive_keys
+
+    @property
+    def pf_rounder(self) -> Rounding | None:
+        """``pf_rounding`` as a :class:`Rounding` (decimals half up), or None for no rounding."""
+        if self.pf_rounding is None or isinstance(self.pf_rounding, Rounding):
+            return self.pf_rounding
+        return Rounding(10.0 ** -self.pf_rounding, "half_up")
+
+    def round_pf(self, pf):
+        """Power factors rounded as the tariff says before any comparison or division."""
+        if isinstance(self.pf_rounding, Rounding):
+            return self.pf_rounding.apply(pf)
+        return round_pf(pf, self.pf_rounding)
