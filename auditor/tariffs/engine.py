@@ -345,6 +345,9 @@ class Charges:
     total: np.ndarray
     billing_demand: np.ndarray
     billing_pf: np.ndarray  # the tariff-basis energy PF after rounding (what PF clauses compare)
+    #: The demand the ratchet of later periods looks back at (measured, or PF-adjusted with
+    #: ``ratchet_on = "billing"``); a later audit takes it as ``history_peak_kw``.
+    ratchet_basis: np.ndarray | None = None
 
 
 # --------------------------------------------------------------------------------------------
@@ -685,8 +688,9 @@ def _compute(tariff: Tariff, q: PeriodQuantities) -> Charges:
     Order: energy, demand (rounding, PF adjustment, then ratchet; plus the demand windows),
     fixed, then each reactive mechanism in file order; ``pf_percent`` is a percentage of the base
     charges it names. The ``pf_demand_adjust`` amount is the demand charge with the adjustment
-    minus the demand charge without it (both ratcheted), so ``demand`` + ``pf_demand_adjust`` is
-    what the bill shows as demand and the reactive part stands alone.
+    minus the demand charge without it, both ratcheted against the same floor (what
+    ``demand.ratchet_on`` looks back at), so ``demand`` + ``pf_demand_adjust`` is what the bill
+    shows as demand, the reactive part stands alone, and a period without PF has none.
     """
     n = len(q.kwh)
     zeros = np.zeros(n)
@@ -695,23 +699,32 @@ def _compute(tariff: Tariff, q: PeriodQuantities) -> Charges:
     plans = q.intervals.plan.clauses if q.intervals is not None else ()
 
     billing_demand = zeros
+    ratchet_basis = np.nan_to_num(np.asarray(q.peak_kw, dtype=float))
     reactive: dict[str, np.ndarray] = {}
     if tariff.demand is not None:
         d = tariff.demand
         measured = _round(np.nan_to_num(q.peak_kva if d.basis == "kva" else q.peak_kw), d.rounding)
-        plain = ratcheted_demand(measured, d.ratchet_percent, d.ratchet_periods, q.history_demand)
+        adjust = next((m for m in tariff.reactive if isinstance(m, PfDemandAdjust)), None)
+        adjusted = measured
+        if adjust is not None:
+            pf = _adjust_pf(tariff, adjust, q, np.nan_to_num(q.peak_kw))
+            adjusted = pf_adjusted_demand(measured, pf, adjust.base_pf, adjust.credit, adjust.max_credit_percent,
+                                          adjust.apply_below_pf, adjust.max_increase_percent)
+        # One floor for both: the demand of earlier periods the tariff's ratchet looks back at.
+        # A period without load or PF then has no PF adjustment of its own and pays none,
+        # whatever the floor.
+        ratchet_basis = adjusted if d.ratchet_on == "billing" else measured
+        plain = ratcheted_demand(measured, d.ratchet_percent, d.ratchet_periods, q.history_demand,
+                                 looked_back=ratchet_basis)
         billing_demand = plain
         amounts["demand"] = d.price_per_kw * plain
         if d.windows:
             amounts["demand"] = amounts["demand"] + _demand_windows(tariff, q)
-        for m in tariff.reactive:
-            if isinstance(m, PfDemandAdjust):
-                pf = _adjust_pf(tariff, m, q, np.nan_to_num(q.peak_kw))
-                adjusted = pf_adjusted_demand(measured, pf, m.base_pf, m.credit, m.max_credit_percent,
-                                              m.apply_below_pf, m.max_increase_percent)
-                with_pf = ratcheted_demand(adjusted, d.ratchet_percent, d.ratchet_periods, q.history_demand)
-                billing_demand = with_pf
-                reactive[m.key] = d.price_per_kw * (with_pf - plain)
+        if adjust is not None:
+            with_pf = ratcheted_demand(adjusted, d.ratchet_percent, d.ratchet_periods, q.history_demand,
+                                       looked_back=ratchet_basis)
+            billing_demand = with_pf
+            reactive[adjust.key] = d.price_per_kw * (with_pf - plain)
     else:
         amounts["demand"] = zeros
     amounts["fixed"] = np.full(n, float(tariff.fixed_per_period))
@@ -756,4 +769,5 @@ def _compute(tariff: Tariff, q: PeriodQuantities) -> Charges:
         total=total,
         billing_demand=billing_demand,
         billing_pf=_billing_pf(tariff, tariff.kvarh_basis, q),
+        ratchet_basis=ratchet_basis,
     )

@@ -14,7 +14,7 @@ File layout (every key; ``?`` marks optional ones)::
     [energy]      price_per_kwh = 0.10                      (outside every window)
       [[energy.windows]]?  name?, days?, hours, months?, holidays?, price_per_kwh
     [demand]?     basis? = "kw" | "kva"   price_per_kw   ratchet_percent?   ratchet_periods? = 11
-                  rounding? = { step, mode? }
+                  ratchet_on? = "measured" | "billing"   rounding? = { step, mode? }
       [[demand.windows]]?  name?, days?, hours, months?, holidays?, price_per_kw, excess_over?
     [fixed]?      price_per_period
     [[reactive]]* kind = one of MECHANISMS, label?, then the kind's own keys; shared shapes:
@@ -51,6 +51,7 @@ from auditor.tariffs.model import (
     HOLIDAY_RULES,
     KVARH_BASES,
     MECHANISMS,
+    RATCHET_BASES,
     ROUNDING_MODES,
     Band,
     Calendar,
@@ -86,7 +87,7 @@ KNOWN_KEYS = frozenset("""
     kvarh_basis label max_credit_percent max_increase_percent max_rebate_percent
     max_surcharge_percent min_pf mode months name per percent_per_hundredth pf pf_rounding
     price_per_kvar price_per_kvarh price_per_kw price_per_kwh price_per_period ratchet_percent
-    ratchet_periods reactive rebate_above_pf rebate_percent_per_hundredth reference_pf rounding
+    ratchet_on ratchet_periods reactive rebate_above_pf rebate_percent_per_hundredth reference_pf rounding
     slopes step subdivision tan_phi_limit threshold_pf tiers windows
 """.split())
 
@@ -602,9 +603,11 @@ def tariff_from_dict(d: Mapping[str, Any], source: str | None = None) -> Tariff:
             ratchet_periods=dm.integer("ratchet_periods", default=11, lo=1, hi=36, what="a whole number of previous periods from 1 to 36"),
             rounding=_rounding(dm, "rounding", "kW or kVA"),
             windows=_demand_windows(dm),
+            ratchet_on=dm.string("ratchet_on", default="measured", choices=RATCHET_BASES),
         )
-        if dm.has("ratchet_periods") and demand.ratchet_percent is None:
-            dm.fail("demand.ratchet_periods", "only applies with ratchet_percent")
+        for k in ("ratchet_periods", "ratchet_on"):
+            if dm.has(k) and demand.ratchet_percent is None:
+                dm.fail(f"demand.{k}", "only applies with ratchet_percent")
         dm.done()
 
     fixed = 0.0
