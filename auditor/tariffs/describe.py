@@ -72,7 +72,7 @@ def _kvarh_excess_text(m: KvarhExcess, c: str) -> str:
     if m.reference_pf is not None:
         basis = "the reactive energy each window names" if any(w.kvarh for w in m.windows) else _BASIS_TEXT[m.kvarh]
         return (f"{m.key}: {_money(m.price_per_kwh, c)} per kWh of kWh x ({m.reference_pf:g} / PF - 1) when the PF "
-                f"(from {basis}) is below {m.reference_pf:g}{_per_text(m)}{_where(m)}.")
+                f"(from {basis}) is below {m.reference_pf:g}{_where(m)}{_per_text(m)}.")
     first = (f"{m.key}: {_money(m.price_per_kvarh, c)} per kvarh of {_BASIS_TEXT[m.kvarh]} above "
              f"{m.tan_phi_limit:g} x kWh (tan phi {m.tan_phi_limit:g})")
     if m.tiers:
@@ -80,7 +80,7 @@ def _kvarh_excess_text(m: KvarhExcess, c: str) -> str:
         for k, t in enumerate(m.tiers):
             upper = f" up to {m.tiers[k + 1].above_tan_phi:g} x kWh" if k + 1 < len(m.tiers) else ""
             first += f", {_money(t.price_per_kvarh, c)} per kvarh above {t.above_tan_phi:g} x kWh{upper}"
-    text = first + _per_text(m) + _where(m)
+    text = first + _where(m) + _per_text(m)
     if m.excess_rounding is not None:
         text += f"; the chargeable kvarh {m.excess_rounding.describe('kvarh')}"
     return text + "."
@@ -98,7 +98,7 @@ def _bands_text(m: KvarhBanded, c: str) -> str:
             bands.append(f"{price} below PF {m.bands[i - 1].min_pf:g}")
     whose = "each band's" if m.per == "window" else "the period's"
     text = (f"{m.key}: {_BASIS_TEXT[m.kvarh]} above {m.tan_phi_limit:g} x kWh priced by {whose} PF band: "
-            + "; ".join(bands) + _per_text(m) + _where(m))
+            + "; ".join(bands) + _where(m) + _per_text(m))
     if m.per == "window":
         text += " (" + "; ".join(f"{name}: {_windows_text(ws)}" for name, ws in window_groups(m.windows)) + ")"
     if m.excess_rounding is not None:
@@ -181,7 +181,7 @@ def describe_tariff(tariff: Tariff) -> list[str]:
         if d.price_per_kw or not d.windows:
             out.append(f"Demand: {_money(d.price_per_kw, c)} per {unit} of billing demand (the period's highest interval {unit}).")
         if d.rounding is not None:
-            out.append(f"Demand is {d.rounding.describe(unit)} before it is billed.")
+            out.append(f"Demand is {d.rounding.describe(unit)}, before it is billed.")
         for w in d.windows:
             label = f"{w.name} " if w.name else ""
             over = (f" on the excess of its highest {unit} over the highest {unit} of {w.excess_over}"
