@@ -38,12 +38,15 @@ from auditor.quantities import (
 )
 from auditor.tariffs.engine import (
     Charges,
+    IntervalPlan,
+    IntervalQuantities,
     PeriodQuantities,
     WindowSums,
     compute_charges,
     energy_window_index,
     local_calendar,
     mechanism_windows,
+    plan_intervals,
     window_mask,
 )
 from auditor.tariffs.spec import Tariff
@@ -198,6 +201,7 @@ class PreparedAudit:
     history_demand: np.ndarray
     warnings: tuple[str, ...]
     _local_index: pd.DatetimeIndex = field(repr=False, default=None)
+    interval_plan: IntervalPlan | None = field(repr=False, default=None)  # per-band / per-interval clauses
 
     # ---------------------------------------------------------------------------------------
     def _check(self, values, name: str) -> np.ndarray:
@@ -220,6 +224,8 @@ class PreparedAudit:
             wd = segment_sum(self.window_masks * lead, b)
         for row in self.window_rows:
             windowed.append(None if row is None else WindowSums(self.window_kwh[row], wl[row], wd[row]))
+        plan = self.interval_plan
+        intervals = IntervalQuantities(self.kwh, lag, lead, self.kw, r.kva, b, plan) if plan and plan.needed else None
         q = PeriodQuantities(
             kwh=self.period_kwh,
             kvarh_lag=r.kvarh_lag,
@@ -231,6 +237,7 @@ class PreparedAudit:
             energy_kwh=self.energy_kwh,
             windowed=tuple(windowed),
             history_demand=self.history_demand,
+            intervals=intervals,
         )
         return q, {"kva": r.kva, "pf_at_peak_sense": r.pf_at_peak_sense}
 
@@ -372,7 +379,7 @@ def prepare_audit(
     ps, clipped = _choose_periods(frame, tz, interval_minutes, periods, billing_day, start, end)
     sel = _select_intervals(frame, ps, tz, interval_minutes)
     active = _active_figures(sel, ps, tz, interval_minutes)
-    windows = _tariff_windows(tariff, sel, tz)
+    windows = _tariff_windows(tariff, sel, tz, interval_minutes)
     partial, warnings = _coverage_and_warnings(frame, ps, clipped, tz, interval_minutes, active,
                                                outside=len(frame) - len(sel.index))
     history = _demand_history(history_peak_kw)
@@ -404,6 +411,7 @@ def prepare_audit(
         history_demand=history,
         warnings=tuple(warnings),
         _local_index=sel.local_index,
+        interval_plan=windows.plan,
     )
 
 
@@ -506,9 +514,10 @@ class _Windows:
     masks: np.ndarray  # (reactive clauses with windows, intervals) as float 0/1
     kwh: np.ndarray  # (reactive clauses with windows, periods)
     rows: tuple[int | None, ...]  # tariff.reactive position -> row in masks
+    plan: IntervalPlan | None  # per-band / per-interval clauses (None when the tariff has none)
 
 
-def _tariff_windows(tariff: Tariff, sel: _Selected, tz: str) -> _Windows:
+def _tariff_windows(tariff: Tariff, sel: _Selected, tz: str, interval_minutes: int) -> _Windows:
     """Step 5: kWh per energy window, and the local-time masks of the reactive clauses that
     count energy inside windows (:func:`auditor.tariffs.engine.mechanism_windows`)."""
     n = len(sel.bounds) - 1
@@ -529,7 +538,8 @@ def _tariff_windows(tariff: Tariff, sel: _Selected, tz: str) -> _Windows:
             rows.append(None)
     window_masks = np.vstack(masks) if masks else np.zeros((0, len(sel.index)))
     window_kwh = segment_sum(window_masks * sel.kwh, sel.bounds) if masks else np.zeros((0, n))
-    return _Windows(energy_kwh, window_masks, window_kwh, tuple(rows))
+    plan = plan_intervals(tariff, cal, sel.bounds, interval_minutes, sel.kwh)
+    return _Windows(energy_kwh, window_masks, window_kwh, tuple(rows), plan)
 
 
 def _coverage_and_warnings(frame: pd.DataFrame, ps: list[BillingPeriod], clipped: list[bool], tz: str,

@@ -104,13 +104,13 @@ from auditor.audit import AuditResult, PeriodResult, PreparedAudit, prepare_audi
 from auditor.errors import UsageError
 from auditor.quantities import (
     BillingPeriod,
-    energy_pf,
     local_bounds_utc,
     segment_bounds,
     segment_max,
 )
 from auditor.tariffs.engine import kvarh_of
-from auditor.tariffs.spec import KvarhBanded, KvarhExcess, PfDemandAdjust, PfPercent, Tariff
+from auditor.tariffs.facts import lagging_keys, pf_threshold  # noqa: F401 (lagging_keys: public name)
+from auditor.tariffs.model import Tariff
 
 __all__ = [
     "BILL_FIELDS",
@@ -529,34 +529,6 @@ def lag_plus_lead(billed: dict, expected: dict, k: int, alt: Alternatives, tol: 
         if _finite(b) and _finite(v) and tol.within(f, b, float(v)) and not (_finite(e) and tol.within(f, b, e)):
             out.add(f)
     return out
-
-
-def pf_threshold(tariff: Tariff) -> float | None:
-    """The PF at or above which none of the tariff's lagging PF clauses charges anything.
-
-    ``kvarh_excess`` / ``kvarh_banded``: cos(arctan(tan_phi_limit)) = 1 / sqrt(1 + k^2);
-    ``pf_demand_adjust``: its base PF; ``pf_percent``: its threshold. Clauses on peak kvar or on
-    leading energy have no PF threshold. None when the tariff has no such clause.
-
-    References
-    ----------
-    .. [1] IEEE Std 1459-2010, section 3.1.1 (tan phi = Q / P, PF = P / S).
-    """
-    limits = []
-    for m in tariff.reactive:
-        if isinstance(m, KvarhExcess | KvarhBanded):
-            limits.append(float(energy_pf(1.0, m.tan_phi_limit)))
-        elif isinstance(m, PfDemandAdjust):
-            limits.append(m.base_pf)
-        elif isinstance(m, PfPercent):
-            limits.append(m.threshold_pf)
-    return max(limits) if limits else None
-
-
-def lagging_keys(tariff: Tariff) -> tuple[str, ...]:
-    """Charge keys of the clauses that have a PF threshold (see :func:`pf_threshold`)."""
-    return tuple(Tariff.key_of(m) for m in tariff.reactive
-                 if isinstance(m, KvarhExcess | KvarhBanded | PfDemandAdjust | PfPercent))
 
 
 def reactive_above_threshold(billed: dict, expected: dict, period: PeriodResult, tariff: Tariff,

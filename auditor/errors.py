@@ -65,12 +65,16 @@ class InputError(AuditorError):
 
 
 class TariffError(AuditorError):
-    """A tariff file that does not validate; names the key and what is allowed."""
+    """A tariff file that does not validate; names the key, what is allowed and, for a file,
+    the line that holds the key (``detail`` is the message without file, line and key)."""
 
-    def __init__(self, key: str, message: str, file: str | None = None):
+    def __init__(self, key: str, message: str, file: str | None = None, line: int | None = None):
         self.key = key
         self.file = file
-        prefix = f"{file}: " if file else ""
+        self.line = line
+        self.detail = message
+        where = ", ".join(x for x in (file, f"line {line}" if line else None) if x)
+        prefix = f"{where}: " if where else ""
         super().__init__(f"{prefix}tariff key {key!r}: {message}")
 
 

@@ -38,6 +38,7 @@ from auditor.correction.screening import CAUTIONS, ScreeningResult, SiteElectric
 from auditor.correction.sizing import check_frame, check_pf
 from auditor.errors import UsageError
 from auditor.finance import CostInputs, FinanceResult
+from auditor.tariffs.facts import leading_keys
 
 DAYS_PER_YEAR = 365.25
 SENSITIVITY_STEPS = (-0.20, 0.20)
@@ -57,11 +58,8 @@ def _charges_sum(result) -> dict[str, float]:
 
 
 def _leading_keys(tariff) -> tuple[str, ...]:
-    keys = []
-    for mechanism in getattr(tariff, "reactive", ()):
-        if getattr(mechanism, "kind", None) == "leading_kvarh":
-            keys.append(tariff.key_of(mechanism))
-    return tuple(keys)
+    """Charge keys of the tariff's over-correction clauses (the tariffs package decides)."""
+    return leading_keys(tariff)
 
 
 def _audited_days(prepared) -> float:

@@ -101,6 +101,31 @@ def audit_meter(store: Store, meter: str, tariff: str | Path | Tariff, *, start:
 
         span = f" between {start} and {end}" if start or end else ""
         raise UsageError(f"meter {meter} has no readings{span}")
+    history = earlier_demand(store, meter, t, start, billing_day) if start else None
     result = audit(data.frame, t, tz=data.timezone, interval_minutes=data.interval_minutes,
-                   start=start, end=end, billing_day=billing_day, periods=periods)
+                   start=start, end=end, billing_day=billing_day, periods=periods, history_peak_kw=history)
     return MeterAudit(data, t, result)
+
+
+def earlier_demand(store: Store, meter: str, tariff: Tariff, start: date,
+                   billing_day: int | None = None) -> list[float] | None:
+    """The demand of the stored billing periods before ``start`` that the tariff looks back at
+    (its ratchet, a kvar allowance on earlier kW), oldest first: what ``audit --from`` passes as
+    ``history_peak_kw``. Computed by the same engine over those periods, so it is measured or
+    PF-adjusted demand as ``demand.ratchet_on`` says. None when the tariff looks back at nothing
+    or nothing is stored before ``start``."""
+    from datetime import timedelta
+
+    from auditor.audit import prepare_audit
+
+    d = tariff.demand
+    back = max([d.ratchet_periods if d is not None and d.ratchet_percent is not None else 0]
+               + [getattr(m, "allowance_lookback_periods", None) or 0 for m in tariff.reactive])
+    if not back:
+        return None
+    data = load_meter(store, meter, start - timedelta(days=31 * (back + 1)), start)
+    if data.frame.empty:
+        return None
+    prepared = prepare_audit(data.frame, tariff, tz=data.timezone, interval_minutes=data.interval_minutes,
+                             end=start, billing_day=billing_day)
+    return [float(x) for x in prepared.run_charges().ratchet_basis[-back:]]

@@ -12,18 +12,15 @@ References
 from __future__ import annotations
 
 import math
-import threading
-from collections.abc import Iterable
-from dataclasses import dataclass
 from datetime import date
-from pathlib import Path
 
-from auditor.errors import NotFoundError, TariffError, UsageError
+from auditor.errors import NotFoundError, UsageError
 from auditor.services.cache import cached_audit
 from auditor.services.correction import best_scenario, list_scenarios
 from auditor.services.meters import list_meters
 from auditor.store import Store
-from auditor.tariffs import EXAMPLES_DIR, Tariff, load_tariff
+from auditor.tariffs import Tariff, threshold_pfs
+from auditor.tariffs.catalog import TariffChoice, find_tariff, load_named_tariff, tariff_choices
 
 __all__ = ["TariffChoice", "tariff_choices", "find_tariff", "load_named_tariff", "tariff_threshold_pf",
            "portfolio_summary"]
@@ -32,84 +29,10 @@ __all__ = ["TariffChoice", "tariff_choices", "find_tariff", "load_named_tariff",
 # --------------------------------------------------------------------------------------------
 # tariffs by name
 # --------------------------------------------------------------------------------------------
-@dataclass(frozen=True)
-class TariffChoice:
-    """A tariff file the dashboard offers: its name (file stem), path and title."""
-
-    name: str
-    path: Path
-    title: str
-    error: str | None = None
-
-
-def tariff_choices(extra_dirs: Iterable[str | Path] = ()) -> list[TariffChoice]:
-    """The shipped example tariffs and the ``*.toml`` files of ``extra_dirs``, by name.
-
-    A file in ``extra_dirs`` overrides an example of the same name. A file that does not
-    validate is listed with its error rather than hidden.
-    """
-    found: dict[str, Path] = {p.stem: p for p in sorted(EXAMPLES_DIR.glob("*.toml"))}
-    for d in extra_dirs:
-        d = Path(d)
-        if d.is_dir():
-            found.update({p.stem: p for p in sorted(d.glob("*.toml"))})
-    out = []
-    for name, path in sorted(found.items()):
-        try:
-            out.append(TariffChoice(name, path, _load_cached(path).name))
-        except TariffError as exc:
-            out.append(TariffChoice(name, path, name, error=exc.message))
-    return out
-
-
-def find_tariff(name: str, extra_dirs: Iterable[str | Path] = ()) -> TariffChoice:
-    """The tariff called ``name`` (a file stem, never a path: the browser chooses by name)."""
-    for c in tariff_choices(extra_dirs):
-        if c.name == name:
-            if c.error:
-                raise TariffError("-", c.error)
-            return c
-    known = ", ".join(c.name for c in tariff_choices(extra_dirs))
-    raise NotFoundError(f"no tariff {name!r}; known tariffs: {known}")
-
-
-_tariff_cache: dict[tuple[str, float], Tariff] = {}
-_tariff_lock = threading.Lock()
-
-
-def _load_cached(path: Path) -> Tariff:
-    key = (str(path), path.stat().st_mtime)
-    with _tariff_lock:
-        if key in _tariff_cache:
-            return _tariff_cache[key]
-    t = load_tariff(path)
-    with _tariff_lock:
-        _tariff_cache[key] = t
-    return t
-
-
-def load_named_tariff(name: str, extra_dirs: Iterable[str | Path] = ()) -> Tariff:
-    return _load_cached(find_tariff(name, extra_dirs).path)
-
-
 def tariff_threshold_pf(tariff: Tariff) -> list[dict]:
-    """The power factors at which the tariff's reactive clauses start to charge.
-
-    tan φ limits are turned into PF by PF = 1 / √(1 + tan² φ) (IEEE Std 1459-2010, sinusoidal
-    definitions); clauses without a PF threshold (kVA demand, leading energy) are left out.
-    """
-    out = []
-    for m in tariff.reactive:
-        key = Tariff.key_of(m)
-        if m.kind in ("kvarh_excess", "kvarh_banded"):
-            out.append({"key": key, "pf": 1.0 / math.hypot(1.0, m.tan_phi_limit)})
-        elif m.kind == "pf_demand_adjust":
-            out.append({"key": key, "pf": m.base_pf})
-        elif m.kind == "pf_percent":
-            out.append({"key": key, "pf": m.threshold_pf})
-        elif m.kind == "kvar_demand":
-            out.append({"key": key, "pf": 1.0 / math.hypot(1.0, m.allowance_ratio)})
-    return out
+    """The power factors at which the tariff's reactive clauses start to charge (see
+    :func:`auditor.tariffs.facts.threshold_pfs`)."""
+    return threshold_pfs(tariff)
 
 
 # --------------------------------------------------------------------------------------------
