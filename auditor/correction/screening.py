@@ -23,7 +23,8 @@ The rules
     Parallel resonance of every stage, h_r = √(S_sc/Q_c) plain or 1/√(Q_c/S_sc + p) detuned
     (IEEE Std 1036), against the orders screened: within ``resonance_fail_percent`` fails,
     within ``resonance_caution_percent`` cautions. With a measured spectrum the screened orders
-    it shows absent only caution.
+    it shows absent only caution. Its value is the distance of the worst stage from the nearest
+    screened order, in percent of that order; its limit the band it falls in.
 ``voltage_rise`` (``voltage_drop`` for reactors)
     ≈ 100·Q/S_sc percent at light load (IEEE Std 1036, common practice).
 ``capacitor_duty``
@@ -586,9 +587,9 @@ def rule_resonance(bank: BankDesign, s_sc: float | None, reason: str | None, lim
         msg = ("resonance: a shunt reactor adds no parallel resonance with the supply" if bank.kind == "reactor"
                else "resonance: taking capacitance out moves the site's parallel resonance up, away "
                     "from the low orders")
-        return RuleResult("resonance", "pass", None, None, msg, "order"), (), None, None
+        return RuleResult("resonance", "pass", None, None, msg, "% from a harmonic"), (), None, None
     if s_sc is None:
-        return (RuleResult("resonance", "caution", None, None, reason, "order", checked=False),
+        return (RuleResult("resonance", "caution", None, None, reason, "% from a harmonic", checked=False),
                 (), None, None)
     by_stage = np.atleast_1d(parallel_resonance_order(s_sc, _stage_capacitor_kvar(bank, system_voltage_v),
                                                       bank.detuning_percent))
@@ -602,9 +603,9 @@ def rule_resonance(bank: BankDesign, s_sc: float | None, reason: str | None, lim
         if bank.detuned:
             msg += (f"; detuned {bank.detuning_percent:g} %, tuned to {tuning_order(bank.detuning_percent):.2f},"
                     f" the bank resonates at {by_stage.max():.2f} at most")
-        value = nearest[1] if nearest else largest
-        return (RuleResult("resonance", "pass", value, limits.resonance_caution_percent, msg, "order"),
-                tuple(float(h) for h in by_stage), largest, None)
+        value = 100.0 * nearest[0] if nearest else None
+        return (RuleResult("resonance", "pass", value, limits.resonance_caution_percent, msg,
+                           "% from a harmonic"), tuple(float(h) for h in by_stage), largest, None)
     status = max((h[0] for h in hits), key=STATUSES.index)
     worst = [h for h in hits if h[0] == status]
     worst.sort(key=lambda t: t[3])
@@ -621,7 +622,7 @@ def rule_resonance(bank: BankDesign, s_sc: float | None, reason: str | None, lim
         msg += ": close to a harmonic order — measure the site's harmonics before choosing a plain bank"
     if note:
         msg += f" ({note})"
-    return (RuleResult("resonance", status, worst[0][1], band, msg, "order"),
+    return (RuleResult("resonance", status, 100.0 * worst[0][3], band, msg, "% from a harmonic"),
             tuple(float(h) for h in by_stage), largest, near_orders[0])
 
 

@@ -170,7 +170,9 @@ def specification_rows(spec: dict, bank: BankDesign, screening: ScreeningResult)
     failed = screening.failed_rules
     if failed:
         for r in failed:
-            add("Screening", f"FAILS {r.rule.replace('_', ' ')}", _fmt(r.value, 2), r.unit, r.message)
+            limit = "" if r.limit is None else f"limit {_fmt(r.limit, 2)} {r.unit}".strip()
+            add("Screening", f"FAILS {r.rule.replace('_', ' ')}", _fmt(r.value, 2), r.unit,
+                f"{limit}; not recommended as it stands" if limit else "not recommended as it stands")
     else:
         add("Screening", "result", "passes" + (" with cautions" if screening.status == "caution" else ""),
             "", "every rule's figure and limit is listed under Screening")
