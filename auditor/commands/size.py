@@ -30,6 +30,12 @@ def _headline(d: dict) -> list[str]:
     if failing:
         lines.append("NOT RECOMMENDED — this design fails screening:")
         lines += [f"  FAIL {r['rule']}: {r['message']}" for r in failing]
+        alt = d.get("alternative")
+        if alt:
+            lines.append(f"  Nearest design that passes: {alt['label']} ({alt['why']}; saving "
+                         f"{fmt(alt['annual_savings'])}/yr, capex {fmt(alt['capex'])}, NPV {fmt(alt['npv'])})")
+        elif not o:
+            lines.append("  None of its nearest remedies (detuned, smaller steps, automatic) passes either.")
     return lines
 
 
@@ -104,6 +110,8 @@ def render_case(d: dict) -> str:
                           "ok" if c["passed_screening"] else "FAIL " + ",".join(c.get("failed_rules", []))]
                          for c in top])]
     shown = set(r["message"] for r in _failing_rules(d))
+    if d.get("alternative"):
+        shown.update(w for w in d.get("warnings", []) if "the nearest design that passes is" in w)
     if d.get("optimiser"):
         shown.add(d["optimiser"]["message"])
         shown.update(f["message"] for f in d["optimiser"]["families"])

@@ -38,6 +38,7 @@ from auditor.correction.banks import (
 from auditor.correction.harmonics import Spectrum
 from auditor.correction.remedies import ReactorCosts, existing_capacitance_kvar, reactor_sizes
 from auditor.correction.scenario import (
+    BillSummary,
     CorrectedRun,
     PreparedScenario,
     ScenarioResult,
@@ -236,7 +237,7 @@ def _evaluate(ps: PreparedScenario, designs: Sequence[BankDesign], origin: str) 
     evaluated = []
     for i, design in enumerate(designs):
         lag, lead = corrected_kvarh(lag0, lead0, outputs[i], ps.interval_minutes)
-        run = CorrectedRun(outputs[i], lag, lead, ps.prepared.run(kvarh_lag=lag, kvarh_lead=lead))
+        run = CorrectedRun(outputs[i], lag, lead, None, BillSummary.quick(ps.prepared, lag, lead))
         fig = evaluate_prepared(ps, design, run=run)
         s = fig["screening"]
         failed = [r.rule for r in s.failed_rules]
@@ -296,6 +297,29 @@ def _rating(nominal_voltage_v: float | None, detuning_percent: float) -> float |
     if detuning_percent and nominal_voltage_v:
         return detuned_capacitor_voltage(nominal_voltage_v, detuning_percent)
     return None
+
+
+def nearest_passing(ps: PreparedScenario, bank: BankDesign, figures: dict) -> dict | None:
+    """For a design asked for that fails screening: the best remedy that passes (detuned
+    version, smaller steps, an automatic bank, a higher capacitor rating), as a short dict —
+    or None when no remedy passes either."""
+    item = {"design": bank, "row": {"failed_rules": [r.rule for r in figures["screening"].failed_rules]}}
+    seen: set = {(bank.kind, bank.steps_kvar, bank.detuning_percent, bank.capacitor_rated_voltage_v)}
+    pairs = [(d, why) for d, why in remedy_designs(ps, [item]) if _dedupe([d], seen)]
+    evaluated = _evaluate(ps, [d for d, _ in pairs], "remedy")
+    why = {d.label: w for d, w in pairs}
+    passing = [e for e in evaluated if e["row"]["passed_screening"]]
+    if not passing:
+        return None
+    # the plain detuned version first when it passes, else the best NPV of what passes
+    detuned = [e for e in passing if why[e["design"].label].startswith("detuned version")]
+    best = max(detuned or passing, key=lambda e: e["row"]["npv"])
+    r = best["row"]
+    return {"label": r["label"], "why": why[r["label"]], "kind": r["kind"], "steps_kvar": r["steps_kvar"],
+            "detuning_percent": r["detuning_percent"], "capacitor_rated_voltage_v": r["capacitor_rated_voltage_v"],
+            "npv": r["npv"], "annual_savings": r["annual_savings"], "capex": r["capex"],
+            "screening_status": r["screening_status"], "remedies_tried": len(evaluated),
+            "remedies_passing": len(passing)}
 
 
 def _families(evaluated: Sequence[dict]) -> list[dict]:

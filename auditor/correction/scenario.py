@@ -49,6 +49,7 @@ from auditor.correction.sizing import check_frame, check_pf
 from auditor.correction.specification import build_specification, pf_range
 from auditor.errors import UsageError
 from auditor.finance import CostInputs, FinanceResult
+from auditor.tariffs.engine import compute_charges
 
 DAYS_PER_YEAR = 365.25
 SENSITIVITY_STEPS = (-0.20, 0.20)
@@ -92,6 +93,30 @@ def _peak_kva(result) -> float | None:
     return max(values) if values else None
 
 
+@dataclass(frozen=True)
+class BillSummary:
+    """What comparing designs needs of a tariff run: the total, each charge summed over the
+    periods (non-finite amounts left out), and the highest peak kVA."""
+
+    total: float
+    charges: dict[str, float]
+    peak_kva: float | None
+
+    @classmethod
+    def of(cls, result: AuditResult) -> BillSummary:
+        return cls(float(result.total), _charges_sum(result), _peak_kva(result))
+
+    @classmethod
+    def quick(cls, prepared, kvarh_lag: np.ndarray, kvarh_lead: np.ndarray) -> BillSummary:
+        """The same figures straight from the charge engine, without building period results
+        (the optimiser's path: the same numbers as :meth:`of` on ``prepared.run``)."""
+        q, _ = prepared.quantities(kvarh_lag, kvarh_lead)
+        ch = compute_charges(prepared.tariff, q)
+        charges = {k: float(np.sum(v[np.isfinite(v)])) for k, v in ch.amounts.items()}
+        peaks = q.peak_kva[np.isfinite(q.peak_kva)]
+        return cls(float(np.sum(ch.total)), charges, float(peaks.max()) if peaks.size else None)
+
+
 def _energy_pf(kwh: float, kvarh: float) -> float | None:
     if kwh <= 0:
         return None
@@ -108,12 +133,27 @@ def energy_price(tariff, costs: CostInputs) -> float:
 
 @dataclass(frozen=True, eq=False)
 class CorrectedRun:
-    """One bank applied to prepared intervals, and the tariff run on the corrected data."""
+    """One design applied to prepared intervals, and the tariff run on the corrected data:
+    the full audit (``result``; None on the optimiser's quick path) and its summary (``bill``)."""
 
     output_kvar: np.ndarray
     kvarh_lag: np.ndarray
     kvarh_lead: np.ndarray
-    result: AuditResult
+    result: AuditResult | None
+    bill: BillSummary | None = None
+
+    def __post_init__(self) -> None:
+        if self.bill is None:
+            if self.result is None:
+                raise ValueError("a corrected run needs its audit or its bill summary")
+            object.__setattr__(self, "bill", BillSummary.of(self.result))
+
+    def full(self, prepared) -> CorrectedRun:
+        """This run with the full audit (computed when the quick path left it out)."""
+        if self.result is not None:
+            return self
+        return CorrectedRun(self.output_kvar, self.kvarh_lag, self.kvarh_lead,
+                            prepared.run(kvarh_lag=self.kvarh_lag, kvarh_lead=self.kvarh_lead), self.bill)
 
 
 def apply_bank(prepared, bank: BankDesign, target_pf: float, interval_minutes: int, *,
@@ -155,6 +195,7 @@ class PreparedScenario:
     prepare_kwargs: dict
     prepared: object
     before: AuditResult
+    before_bill: BillSummary
     kvar_net: np.ndarray
     load_kw: float | None
     light_load_kvar: float | None
@@ -224,7 +265,7 @@ def prepare_scenario(frame: pd.DataFrame, tariff, *, tz: str, interval_minutes: 
         frame=frame, tariff=tariff, interval_minutes=interval_minutes, target_pf=target_pf,
         costs=costs, reactor_costs=reactor_costs or ReactorCosts(), site=site, limits=limits,
         leading_pf_limit=leading_pf_limit, prepare_kwargs=prepare_kwargs, prepared=prepared,
-        before=before, kvar_net=kvar_net, load_kw=load_kw,
+        before=before, before_bill=BillSummary.of(before), kvar_net=kvar_net, load_kw=load_kw,
         light_load_kvar=light_load_kvar(kvar_net, limits), leading_mask=_leading_mask(prepared, tariff),
         spectrum=spectrum, warnings=tuple(warnings), audited_days=_audited_days(prepared),
         price=energy_price(tariff, costs))
@@ -275,6 +316,7 @@ class ScenarioResult:
     optimiser: dict | None = None
     recommended: bool = True
     limits: ScreeningLimits = field(default_factory=ScreeningLimits)
+    alternative: dict | None = None
 
     @property
     def released_kva(self) -> float | None:
@@ -333,6 +375,7 @@ class ScenarioResult:
             out["candidates"] = [dict(c) for c in self.candidates]
         if self.optimiser is not None:
             out["optimiser"] = self.optimiser
+        out["alternative"] = self.alternative
         return out
 
 
@@ -368,10 +411,10 @@ def _finance_for(ps: PreparedScenario, bank: BankDesign, annual_savings: float, 
     return result, loss_kwh
 
 
-def _savings(before, after, year_factor: float) -> tuple[float, dict[str, float]]:
-    b, a = _charges_sum(before), _charges_sum(after)
+def _savings(before: BillSummary, after: BillSummary, year_factor: float) -> tuple[float, dict[str, float]]:
+    b, a = before.charges, after.charges
     by_charge = {k: (b.get(k, 0.0) - a.get(k, 0.0)) * year_factor for k in dict.fromkeys([*b, *a])}
-    return (float(before.total) - float(after.total)) * year_factor, by_charge
+    return (before.total - after.total) * year_factor, by_charge
 
 
 def _scaled_frame(frame: pd.DataFrame, factor: float) -> pd.DataFrame:
@@ -396,7 +439,7 @@ def _sensitivity(ps: PreparedScenario, bank: BankDesign, annual_savings: float,
         before = prepared.run()
         run = apply_bank(prepared, bank, ps.target_pf, ps.interval_minutes,
                          leading_pf_limit=ps.leading_pf_limit, system_voltage_v=v)
-        savings, _ = _savings(before, run.result, ps.year_factor)
+        savings, _ = _savings(BillSummary.of(before), run.bill, ps.year_factor)
         rated = float(np.mean(np.abs(run.output_kvar))) / bank.output_factor(v)
         res, _ = _finance_for(ps, bank, savings, rated)
         rows.append(row("load", change, res, savings))
@@ -413,12 +456,12 @@ def _sensitivity(ps: PreparedScenario, bank: BankDesign, annual_savings: float,
 def evaluate_prepared(ps: PreparedScenario, bank: BankDesign, run: CorrectedRun | None = None) -> dict:
     """The figures of one design on the prepared scenario (no sensitivity); a dict of the
     ScenarioResult fields, shared by :func:`run_scenario` and the optimiser."""
-    prepared, before = ps.prepared, ps.before
+    prepared, before = ps.prepared, ps.before_bill
     v = ps.site.nominal_voltage_v
     if run is None:
         run = apply_bank(prepared, bank, ps.target_pf, ps.interval_minutes,
                          leading_pf_limit=ps.leading_pf_limit, system_voltage_v=v)
-    annual_savings, by_charge = _savings(before, run.result, ps.year_factor)
+    annual_savings, by_charge = _savings(before, run.bill, ps.year_factor)
     factor = bank.output_factor(v)
     mean_output = float(np.mean(run.output_kvar)) if run.output_kvar.size else 0.0
     mean_rated = float(np.mean(np.abs(run.output_kvar))) / factor if run.output_kvar.size else 0.0
@@ -426,9 +469,9 @@ def evaluate_prepared(ps: PreparedScenario, bank: BankDesign, run: CorrectedRun 
     leading = _leading_keys(ps.tariff)
     lead_increase = None
     if leading:
-        b, a = _charges_sum(before), _charges_sum(run.result)
+        b, a = before.charges, run.bill.charges
         lead_increase = sum(a.get(k, 0.0) - b.get(k, 0.0) for k in leading)
-    saving_period = float(before.total) - float(run.result.total)
+    saving_period = before.total - run.bill.total
     gross = saving_period + max(lead_increase or 0.0, 0.0)
     kvar_after = ps.kvar_net - run.output_kvar
     op = Operation(kvar_net_before=ps.kvar_net, kvar_net_after=kvar_after, output_kvar=run.output_kvar,
@@ -448,7 +491,7 @@ def evaluate_prepared(ps: PreparedScenario, bank: BankDesign, run: CorrectedRun 
         savings_by_charge=by_charge, finance=fin, loss_kwh=loss_kwh, screening=screening,
         mean_output=mean_output, mean_rated=mean_rated, price=ps.price, pf_before=pf1, pf_after=pf2,
         pf_after_sense="leading" if net_after < 0 else "lagging",
-        line_loss=line_loss, peak_before=_peak_kva(before), peak_after=_peak_kva(run.result),
+        line_loss=line_loss, peak_before=before.peak_kva, peak_after=run.bill.peak_kva,
     )
 
 
@@ -501,12 +544,18 @@ def scan_of(ps: PreparedScenario, bank: BankDesign) -> dict | None:
 
 
 def _result(ps: PreparedScenario, bank: BankDesign, figures: dict, sens, candidates=None,
-            extra_warnings=(), optimiser: dict | None = None, recommended: bool | None = None
-            ) -> ScenarioResult:
+            extra_warnings=(), optimiser: dict | None = None, recommended: bool | None = None,
+            alternative: dict | None = None) -> ScenarioResult:
+    figures = {**figures, "run": figures["run"].full(ps.prepared)}
     after = figures["run"].result
     screening: ScreeningResult = figures["screening"]
-    warnings = tuple(extra_warnings) + tuple(w for w in _warnings(ps, after, figures, bank)
-                                             if w not in extra_warnings)
+    rest = tuple(w for w in _warnings(ps, after, figures, bank) if w not in extra_warnings)
+    if alternative is not None or (extra_warnings and optimiser is None):
+        # a design asked for: its failing rules first, then what would pass instead
+        failing = tuple(r.message for r in screening.failed_rules)
+        warnings = failing + tuple(extra_warnings) + tuple(w for w in rest if w not in failing)
+    else:
+        warnings = tuple(extra_warnings) + rest
     if recommended is None:
         recommended = screening.passed
     pf_after = pf_range(ps.prepared.kw, ps.kvar_net - figures["run"].output_kvar)
@@ -538,7 +587,7 @@ def _result(ps: PreparedScenario, bank: BankDesign, figures: dict, sens, candida
         cautions=CAUTIONS, candidates=candidates, output_kvar=figures["run"].output_kvar,
         costs=ps.costs, pf_after_sense=figures["pf_after_sense"], specification=spec,
         harmonics=harmonics, frequency_scan=scan_of(ps, bank), optimiser=optimiser,
-        recommended=recommended, limits=ps.limits,
+        recommended=recommended, limits=ps.limits, alternative=alternative,
     )
 
 
@@ -549,7 +598,7 @@ def run_scenario(frame: pd.DataFrame, tariff, *, tz: str, interval_minutes: int,
                  leading_pf_limit: float | None = None, sensitivity: bool = True,
                  limits: ScreeningLimits | None = None, spectrum: Spectrum | None = None,
                  drive_share: float | None = None,
-                 reactor_costs: ReactorCosts | None = None) -> ScenarioResult:
+                 reactor_costs: ReactorCosts | None = None, alternatives: bool = True) -> ScenarioResult:
     """Apply ``bank`` to the meter's intervals, run the tariff again and cost the case.
 
     Parameters
@@ -584,12 +633,16 @@ def run_scenario(frame: pd.DataFrame, tariff, *, tz: str, interval_minutes: int,
         Without a measurement: the share of the load on six-pulse drives, for an estimate.
     reactor_costs : ReactorCosts, optional
         Cost assumptions of reactors and of switching capacitance off.
+    alternatives : bool
+        When the design fails screening, look for the nearest design that passes (its detuned
+        version, smaller steps, an automatic bank) and offer it as ``alternative``.
 
     Returns
     -------
     ScenarioResult
         A design that fails a screening rule is computed as asked, with ``recommended``
-        False and the failing rule first among the warnings.
+        False, the failing rules first among the warnings and, when one passes, the nearest
+        design that does.
 
     References
     ----------
@@ -603,7 +656,16 @@ def run_scenario(frame: pd.DataFrame, tariff, *, tz: str, interval_minutes: int,
                           spectrum=spectrum, drive_share=drive_share, reactor_costs=reactor_costs)
     figures = evaluate_prepared(ps, bank)
     sens = _sensitivity(ps, bank, figures["annual_savings"], figures["mean_rated"]) if sensitivity else ()
-    return _result(ps, bank, figures, sens)
+    alternative, extra = None, ()
+    if not figures["screening"].passed and alternatives:
+        # imported here: the optimiser builds on this module
+        from auditor.correction.optimiser import nearest_passing
+
+        alternative = nearest_passing(ps, bank, figures)
+        extra = ((f"{bank.label} fails screening; the nearest design that passes is {alternative['label']} "
+                  f"({alternative['why']}; NPV {alternative['npv']:,.0f})",) if alternative else
+                 (f"{bank.label} fails screening and none of its nearest remedies passes",))
+    return _result(ps, bank, figures, sens, extra_warnings=extra, alternative=alternative)
 
 
 # --------------------------------------------------------------------------------------------

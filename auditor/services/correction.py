@@ -279,7 +279,7 @@ def spectrum_of(harmonics: dict | None, nominal_voltage_v: float | None) -> Spec
             harmonics["orders"], voltage_v=voltage, current_pct=harmonics.get("current_pct"),
             current_a=harmonics.get("current_a"), background_voltage_pct=harmonics.get("voltage_pct"),
             fundamental_a=harmonics.get("fundamental_a"), kw=harmonics.get("kw"), pf=harmonics.get("pf"),
-            note=f"measured: {name}")
+            note=f"from {name}")
     except UsageError as exc:
         raise InputError(name, exc.message + " (a '# fundamental_a = …' line, or '# kw = …' and "
                          "'# pf = …' lines, in the file)") from None
