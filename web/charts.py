@@ -272,6 +272,7 @@ def frequency_scan(case: dict) -> dict | None:
     return {"data": data, "layout": _layout(
         f"Frequency scan at the bus: |Z| against harmonic order ({damped}; S_sc {scan['short_circuit_kva']:,.0f} kVA)",
         "harmonic order h", "|Z| (Ω per phase, log)", shapes=shapes,
-        yaxis={"type": "log", "gridcolor": GRID, "zeroline": False, "title": {"text": "|Z| (Ω per phase, log)"}},
+        yaxis={"type": "log", "dtick": "D2", "gridcolor": GRID, "zeroline": False,
+               "title": {"text": "|Z| (Ω per phase, log)"}},
         xaxis={"range": [1, 50], "gridcolor": GRID, "zeroline": False, "dtick": 5,
                "title": {"text": "harmonic order h (dotted: orders screened or measured)"}})}

@@ -266,9 +266,17 @@ def bus_impedance(orders, *, voltage_v: float, short_circuit_kva: float, xc_ohm=
     return np.where(np.isfinite(yb), z, 0.0 + 0j)
 
 
-def parallel_resonance_from_scan(orders, z_abs) -> float:
-    """The order of the highest peak of |Z_bus| on the scan grid."""
-    return float(np.asarray(orders)[int(np.argmax(z_abs))])
+def parallel_resonance_from_scan(orders, z_abs) -> float | None:
+    """The order of the highest local peak of |Z_bus| on the scan grid (None without a peak:
+    above a detuned bank's resonance |Z| rises with the order again, which is no resonance)."""
+    z = np.asarray(z_abs, dtype=float)
+    if z.size < 3:
+        return None
+    inner = (z[1:-1] > z[:-2]) & (z[1:-1] >= z[2:])
+    peaks = np.nonzero(inner)[0] + 1
+    if peaks.size == 0:
+        return None
+    return float(np.asarray(orders)[peaks[np.argmax(z[peaks])]])
 
 
 # --------------------------------------------------------------------------------------------

@@ -444,7 +444,7 @@ def optimise(frame: pd.DataFrame, tariff, *, tz: str, interval_minutes: int,
     families = _families(evaluated)
     label = chosen["design"].label
     if status == "recommended":
-        message = (f"recommended: {label}, the best NPV of the {len(passing)} designs (of {len(evaluated)}) "
+        message = (f"{label}: the best NPV of the {len(passing)} designs (of {len(evaluated)} compared) "
                    "that pass every screening rule")
     elif status == "nearest_passing":
         message = (f"none of the {first_count} designs first compared passes screening; the nearest design "

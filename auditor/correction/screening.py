@@ -434,7 +434,7 @@ def rule_over_correction(bank: BankDesign, op: Operation, limits: ScreeningLimit
     count of leading intervals and the leading kvarh the design adds."""
     if op.kvar_net_after is None:
         return (RuleResult("over_correction", "caution", None, limits.leading_share_fail_percent,
-                           "over-correction not checked: no interval data", "%", checked=False), 0, 0.0)
+                           "not checked: no interval data", "%", checked=False), 0, 0.0)
     after = np.asarray(op.kvar_net_after, dtype=float)
     out = np.asarray(op.output_kvar, dtype=float) if op.output_kvar is not None else None
     n = max(after.size, 1)
@@ -464,7 +464,7 @@ def rule_over_correction(bank: BankDesign, op: Operation, limits: ScreeningLimit
     kvarh = float(np.sum(np.maximum(added, 0.0)) * op.interval_minutes / 60.0) if op.interval_minutes else 0.0
     share = 100.0 * count / n
     status = _grade(share, limits.leading_share_caution_percent, limits.leading_share_fail_percent)
-    text = (f"over-correction: the bank drives the site leading in {count} intervals ({share:.1f} %; "
+    text = (f"the bank drives the site leading (over-correction) in {count} intervals ({share:.1f} %; "
             f"fail above {limits.leading_share_fail_percent:g} %), adding {kvarh:,.0f} leading kvarh")
     charge = op.leading_charge_increase
     if charge:
@@ -497,18 +497,18 @@ def rule_minimum_load(bank: BankDesign, op: Operation, limits: ScreeningLimits,
     pct = f"{limits.light_load_percentile:g}th percentile"
     if bank.kind == "switch_off":
         return RuleResult("minimum_load", "pass", None, None,
-                          "minimum load: not applicable (no equipment is added)", "kvar")
+                          "not applicable (no equipment is added)", "kvar")
     light = op.light_load_kvar
     if light is None and op.kvar_net_before is not None:
         light = light_load_kvar(op.kvar_net_before, limits)
     if light is None:
         return RuleResult("minimum_load", "caution", None, None,
-                          "minimum load not checked: no interval data", "kvar", checked=False)
+                          "not checked: no interval data", "kvar", checked=False)
     smallest = min(bank.steps_kvar) * bank.output_factor(system_voltage_v)
     if bank.kind == "reactor":
         leading = max(-light, 0.0)
         status = "caution" if smallest > leading + 1e-9 else "pass"
-        msg = (f"minimum load: the smallest reactor step {smallest:,.1f} kvar "
+        msg = (f"the smallest reactor step {smallest:,.1f} kvar "
                f"{'exceeds' if status != 'pass' else 'is within'} the leading kvar at the site's most "
                f"leading intervals ({leading:,.1f} kvar, {pct})")
         if status != "pass":
@@ -518,16 +518,16 @@ def rule_minimum_load(bank: BankDesign, op: Operation, limits: ScreeningLimits,
     what = "the fixed bank" if bank.kind == "fixed" else "the smallest step"
     if smallest <= limit + 1e-9:
         return RuleResult("minimum_load", "pass", smallest, limit,
-                          f"minimum load: {what} ({smallest:,.1f} kvar) is within the lagging kvar the "
+                          f"{what} ({smallest:,.1f} kvar) is within the lagging kvar the "
                           f"site draws at light load ({limit:,.1f} kvar, {pct})", "kvar")
     if bank.kind == "fixed":
         return RuleResult("minimum_load", "fail", smallest, limit,
-                          f"minimum load: the fixed bank ({smallest:,.1f} kvar) is larger than the "
+                          f"the fixed bank ({smallest:,.1f} kvar) is larger than the "
                           f"lagging kvar the site draws at light load ({limit:,.1f} kvar, {pct}): it "
                           "drives the site leading whenever the load is light; use an automatic bank "
                           "or a fixed one no larger than that", "kvar")
     return RuleResult("minimum_load", "caution", smallest, limit,
-                      f"minimum load: the smallest step ({smallest:,.1f} kvar) is larger than the lagging "
+                      f"the smallest step ({smallest:,.1f} kvar) is larger than the lagging "
                       f"kvar at light load ({limit:,.1f} kvar, {pct}): at light load the bank stays off "
                       "and the PF is not corrected; smaller steps follow the load more closely", "kvar")
 
@@ -584,12 +584,12 @@ def rule_resonance(bank: BankDesign, s_sc: float | None, reason: str | None, lim
                    ) -> tuple[RuleResult, tuple[float, ...], float | None, int | None]:
     """Parallel resonance of every stage against the screened orders, graded."""
     if not bank.is_capacitor:
-        msg = ("resonance: a shunt reactor adds no parallel resonance with the supply" if bank.kind == "reactor"
-               else "resonance: taking capacitance out moves the site's parallel resonance up, away "
+        msg = ("a shunt reactor adds no parallel resonance with the supply" if bank.kind == "reactor"
+               else "taking capacitance out moves the site's parallel resonance up, away "
                     "from the low orders")
-        return RuleResult("resonance", "pass", None, None, msg, "% from a harmonic"), (), None, None
+        return RuleResult("resonance", "pass", None, None, msg, "% from harmonic"), (), None, None
     if s_sc is None:
-        return (RuleResult("resonance", "caution", None, None, reason, "% from a harmonic", checked=False),
+        return (RuleResult("resonance", "caution", None, None, reason, "% from harmonic", checked=False),
                 (), None, None)
     by_stage = np.atleast_1d(parallel_resonance_order(s_sc, _stage_capacitor_kvar(bank, system_voltage_v),
                                                       bank.detuning_percent))
@@ -598,14 +598,14 @@ def rule_resonance(bank: BankDesign, s_sc: float | None, reason: str | None, lim
     hits = resonance_hits(by_stage, orders, limits)
     if not hits:
         nearest = min(((abs(h - n) / n, h, n) for h in by_stage for n in orders), default=None)
-        msg = (f"resonance: every stage resonates at least ±{limits.resonance_caution_percent:g} % away from "
+        msg = (f"every stage resonates at least ±{limits.resonance_caution_percent:g} % away from "
                f"the orders screened ({', '.join(str(n) for n in sorted(orders))})")
         if bank.detuned:
             msg += (f"; detuned {bank.detuning_percent:g} %, tuned to {tuning_order(bank.detuning_percent):.2f},"
                     f" the bank resonates at {by_stage.max():.2f} at most")
         value = 100.0 * nearest[0] if nearest else None
         return (RuleResult("resonance", "pass", value, limits.resonance_caution_percent, msg,
-                           "% from a harmonic"), tuple(float(h) for h in by_stage), largest, None)
+                           "% from harmonic"), tuple(float(h) for h in by_stage), largest, None)
     status = max((h[0] for h in hits), key=STATUSES.index)
     worst = [h for h in hits if h[0] == status]
     worst.sort(key=lambda t: t[3])
@@ -622,7 +622,7 @@ def rule_resonance(bank: BankDesign, s_sc: float | None, reason: str | None, lim
         msg += ": close to a harmonic order — measure the site's harmonics before choosing a plain bank"
     if note:
         msg += f" ({note})"
-    return (RuleResult("resonance", status, 100.0 * worst[0][3], band, msg, "% from a harmonic"),
+    return (RuleResult("resonance", status, 100.0 * worst[0][3], band, msg, "% from harmonic"),
             tuple(float(h) for h in by_stage), largest, near_orders[0])
 
 
@@ -667,7 +667,7 @@ def rule_capacitor_duty(bank: BankDesign, limits: ScreeningLimits, system_voltag
     """rms and peak voltage, rms current and kvar against IEEE Std 18 limits (worst stage)."""
     if not bank.is_capacitor:
         return RuleResult("capacitor_duty", "pass", None, None,
-                          "capacitor duty: not applicable (no capacitor in this design)", "%"), None
+                          "not applicable (no capacitor in this design)", "%"), None
     if bank.capacitor_rated_voltage_v is not None and system_voltage_v is None:
         return RuleResult("capacitor_duty", "caution", None, limits.capacitor_v_rms_percent,
                           "could not check the capacitor voltage: the site's nominal_voltage_v is not known",
@@ -710,7 +710,7 @@ def rule_harmonic_distortion(bank: BankDesign, harmonics: HarmonicStudy | None, 
                           "share of drives", "%", checked=False)
     if not bank.is_capacitor:
         return RuleResult("harmonic_distortion", "pass", None, None,
-                          "harmonic distortion: not made worse by this design (no capacitance added)", "%")
+                          "not made worse by this design (no capacitance added)", "%")
     if harmonics is None or s_sc is None:
         return RuleResult("harmonic_distortion", "caution", None, None,
                           "harmonic distortion not assessed: the short-circuit power or the bus voltage "
@@ -731,7 +731,7 @@ def rule_harmonic_distortion(bank: BankDesign, harmonics: HarmonicStudy | None, 
     if breach and worse:
         return RuleResult("harmonic_distortion", "fail", thd_with if thd_with > thd_limit else ind_with,
                           thd_limit if thd_with > thd_limit else ind_limit,
-                          f"harmonic distortion: the bank pushes the bus past its limit — {base}; use a "
+                          f"the bank pushes the bus past its limit — {base}; use a "
                           "detuned bank", "%")
     with np.errstate(invalid="ignore", divide="ignore"):
         ratio = np.where(harmonics.v_without_pct[None, :] > 1e-9,
@@ -739,13 +739,13 @@ def rule_harmonic_distortion(bank: BankDesign, harmonics: HarmonicStudy | None, 
     amp = float(np.max(ratio)) if ratio.size else 1.0
     if breach:
         return RuleResult("harmonic_distortion", "caution", thd_with, thd_limit,
-                          f"harmonic distortion: the site exceeds the limit without the bank and the bank "
+                          f"the site exceeds the limit without the bank and the bank "
                           f"does not make it worse — {base}", "%")
     if amp > limits.amplification_caution:
         return RuleResult("harmonic_distortion", "caution", thd_with, thd_limit,
-                          f"harmonic distortion within limits but the bank amplifies one order {amp:.1f} "
+                          f"within limits, but the bank amplifies one order {amp:.1f} "
                           f"times — {base}", "%")
-    return RuleResult("harmonic_distortion", "pass", thd_with, thd_limit, f"harmonic distortion: {base}", "%")
+    return RuleResult("harmonic_distortion", "pass", thd_with, thd_limit, f"{base}", "%")
 
 
 # --------------------------------------------------------------------------------------------
