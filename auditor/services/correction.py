@@ -139,8 +139,6 @@ def design_of(req: ScenarioRequest) -> BankDesign | None:
     return None
 
 
-bank_of = design_of
-
 
 def split_costs(costs: dict, *, reactor_kvar: float | None = None,
                 switch_off_kvar: float | None = None) -> tuple[dict, dict]:
