@@ -249,3 +249,33 @@ def cash_flow(case: dict) -> dict:
                       "ax": 40, "ay": -40, "font": {"color": LIMIT}})
     return {"data": data, "layout": _layout("Cash flow over the life of the bank", "year", cur,
                                             annotations=notes, shapes=shapes)}
+
+
+def frequency_scan(case: dict) -> dict | None:
+    """|Z_bus| against harmonic order without the bank and with each stage (log scale), with the
+    orders screened or measured marked; None when the scenario has no scan (site data missing)."""
+    scan = case.get("frequency_scan")
+    if not scan:
+        return None
+    x = scan["orders"]
+    data = [{"type": "scatter", "mode": "lines", "name": "site without the bank", "x": x,
+             "y": scan["impedance_ohm_without"], "line": {"color": BEFORE, "width": 2.5},
+             "hovertemplate": "order %{x:.1f}: %{y:.4f} Ω<extra>without</extra>"}]
+    stages = scan.get("with") or []
+    for k, st in enumerate(stages):
+        last = k == len(stages) - 1
+        data.append({"type": "scatter", "mode": "lines", "name": f"with {st['label']}", "x": x,
+                     "y": st["impedance_ohm"],
+                     "line": {"color": AFTER if last else EXTRA[1 + k % (len(EXTRA) - 1)],
+                              "width": 2.2 if last else 1.1, "dash": None if last else "dot"},
+                     "hovertemplate": f"order %{{x:.1f}}: %{{y:.4f}} Ω<extra>{st['label']}</extra>"})
+    shapes = [{"type": "line", "x0": h, "x1": h, "yref": "paper", "y0": 0, "y1": 1,
+               "line": {"color": LIMIT, "width": 1, "dash": "dot"}} for h in scan.get("harmonic_orders", [])]
+    damped = (f"damped by {scan['load_kw']:,.0f} kW of load" if scan.get("damped") else "undamped")
+    return {"data": data, "layout": _layout(
+        f"Frequency scan at the bus: |Z| against harmonic order ({damped}; S_sc {scan['short_circuit_kva']:,.0f} kVA)",
+        "harmonic order h", "|Z| (Ω per phase, log)", shapes=shapes,
+        yaxis={"type": "log", "dtick": "D2", "gridcolor": GRID, "zeroline": False,
+               "title": {"text": "|Z| (Ω per phase, log)"}},
+        xaxis={"range": [1, 50], "gridcolor": GRID, "zeroline": False, "dtick": 5,
+               "title": {"text": "harmonic order h (dotted: orders screened or measured)"}})}

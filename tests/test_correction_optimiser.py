@@ -102,11 +102,29 @@ def test_optimiser_picks_best_passing_npv_and_matches_a_direct_run():
 
 
 def test_no_candidate_passing_is_said_not_hidden():
+    # Behaviour changed on purpose: the optimiser no longer shows a failing design as its choice.
+    # Every candidate first compared fails (voltage rise > 3 % on a weak supply); it names the
+    # rule that stopped each family and recommends the nearest remedy that passes.
     tiny = SiteElectrical(short_circuit_kva=2000, nominal_voltage_v=400)  # every bank rises > 3 %
     res = optimise(site_frame(days=20), TARIFF, tz=TZ, interval_minutes=15, site=tiny,
                    sizes=(100, 200, 300), detuning=(0.0,), sensitivity=False)
-    assert not any(c["passed_screening"] for c in res.candidates)
-    assert any("no candidate passed screening" in w for w in res.warnings)
+    first = [c for c in res.candidates if c["origin"] == "candidate"]
+    assert first and not any(c["passed_screening"] for c in first)
+    assert all("voltage_rise" in c["failed_rules"] for c in first)
+    o = res.optimiser
+    assert o["status"] == "nearest_passing" and res.recommended and res.screening.passed
+    assert res.bank.total_kvar < 100 and o["nearest_passing_from"]
+    stopped = {f["family"]: f for f in o["families"] if not f["passed"]}
+    assert stopped["fixed, plain"]["stopped_by"][0]["designs"] == 3
+    assert any(r["rule"] == "voltage_rise" for r in stopped["automatic, plain"]["stopped_by"])
+    assert any("none of the 14 designs first compared passes" in w for w in res.warnings)
+    # without remedies nothing passes: the closest design is shown, marked not recommended
+    bare = optimise(site_frame(days=20), TARIFF, tz=TZ, interval_minutes=15, site=tiny,
+                    sizes=(100, 200, 300), detuning=(0.0,), sensitivity=False, remedies=False)
+    assert bare.optimiser["status"] == "none_passes" and not bare.recommended
+    assert not bare.screening.passed and not bare.specification["recommended"]
+    assert any("no design passes screening" in w for w in bare.warnings)
+    assert bare.warnings[0].startswith("no design passes screening")
 
 
 def test_default_sizes_follow_the_need():

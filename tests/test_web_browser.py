@@ -123,7 +123,10 @@ def test_scenario_form_submits_and_shows_payback(server, page, demo_db):
     saved = get_scenario(demo_db, "browser docks 25")["result"]
     assert page.locator("#payback").inner_text() == f"{saved['simple_payback_years']:.1f} years"
     assert "Before anyone buys or installs a bank" in page.content()
-    wait_charts(page, 3)
+    # four charts since the frequency scan joined the scenario page (before/after, savings,
+    # cash flow, scan)
+    wait_charts(page, 4)
+    assert page.locator("#chart-scan .scatterlayer .trace").count() >= 2  # without and with the bank
     assert page.errors == []
 
 

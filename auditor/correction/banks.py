@@ -1,13 +1,26 @@
-"""Capacitor bank models and the step controller, applied to interval data.
+"""Correction equipment models and the step controller, applied to interval data.
 
-A bank of effective output Qc kvar running for an interval of m minutes removes Qc · m / 60
-kvarh from the net reactive energy; a net that turns negative is leading energy:
-``kvarh_lag_new = max(net, 0)``, ``kvarh_lead_new = max(-net, 0)``.
+Four kinds of design, one model (:class:`BankDesign`):
 
-Controller rule of an automatic (stepped) bank, per interval: switch in the smallest stage
+* ``fixed`` — a capacitor bank always energised;
+* ``automatic`` — a capacitor bank of switched steps;
+* ``reactor`` — a switched shunt reactor for a site that runs leading (it absorbs kvar);
+* ``switch_off`` — existing capacitance on the site taken out of service while the site runs
+  leading (a contactor on the existing capacitor, driven by a var relay or a timer).
+
+A design's *signed* output at the bus is positive for capacitive kvar (it supplies what the
+load absorbs) and negative for inductive kvar (a reactor, or capacitance switched out). Running
+for an interval of m minutes it removes output · m / 60 kvarh from the net reactive energy; a
+net that turns negative is leading energy: ``kvarh_lag_new = max(net, 0)``,
+``kvarh_lead_new = max(-net, 0)``.
+
+Controller rule of an automatic capacitor bank, per interval: switch in the smallest stage
 total that reaches the target PF without making Q_net negative (or more leading than an
 allowed leading PF); if none reaches it, the largest stage total that does not over-correct.
-Real controllers add switching delays and hysteresis that 15-minute averages cannot show.
+A reactor (and capacitance switched out) follows the mirror rule: the smallest stage that
+cancels the leading kvar without making the site lag beyond the target PF; else the largest
+stage that stays within it. Real controllers add switching delays and hysteresis that
+15-minute averages cannot show.
 
 References
 ----------
@@ -106,6 +119,25 @@ def output_factor(detuning_percent: float = 0.0, system_voltage_v: float | None 
     return factor
 
 
+#: Rated voltages capacitor units are commonly made for, V (from memory; check a maker's range).
+STANDARD_CAPACITOR_VOLTAGES_V = (230, 400, 415, 440, 460, 480, 525, 550, 600, 690, 720, 800, 1000)
+
+
+def standard_capacitor_voltage(required_v: float) -> float:
+    """The smallest standard capacitor rating at or above ``required_v``.
+
+    Low voltage: the ratings of :data:`STANDARD_CAPACITOR_VOLTAGES_V` (from memory). Above
+    1 kV, rounded up to the next 100 V (medium-voltage units are made to order; from memory).
+    """
+    required_v = float(required_v)
+    if not math.isfinite(required_v) or required_v <= 0:
+        raise UsageError(f"a capacitor voltage must be a positive number of volts, got {required_v!r}")
+    for rating in STANDARD_CAPACITOR_VOLTAGES_V:
+        if rating >= required_v - 1e-9:
+            return float(rating)
+    return float(math.ceil(required_v / 100.0 - 1e-12) * 100.0)
+
+
 def stage_totals(steps_kvar: tuple[float, ...]) -> np.ndarray:
     """Every distinct total a stepped bank can switch in (all subset sums, 0 included), sorted."""
     totals = np.zeros(1)
@@ -115,37 +147,49 @@ def stage_totals(steps_kvar: tuple[float, ...]) -> np.ndarray:
     return totals
 
 
+#: Kinds of design: capacitor banks supply kvar, the other two absorb it.
+CAPACITOR_KINDS = ("fixed", "automatic")
+ABSORBING_KINDS = ("reactor", "switch_off")
+KINDS = CAPACITOR_KINDS + ABSORBING_KINDS
+
+
 @dataclass(frozen=True)
 class BankDesign:
-    """A capacitor bank: fixed (one step, always on) or automatic (stepped, switched).
+    """A correction design: a capacitor bank (fixed or automatic), a switched shunt reactor, or
+    existing capacitance switched out while the site runs leading.
 
     Parameters
     ----------
-    kind : {"fixed", "automatic"}
+    kind : {"fixed", "automatic", "reactor", "switch_off"}
     steps_kvar : tuple of float
-        Rated kvar of each step at the capacitor's rated voltage (one item for a fixed bank).
+        Rated kvar of each step at the capacitor's rated voltage (one item for a fixed bank);
+        for a reactor its rated kvar at the system voltage; for ``switch_off`` the existing
+        capacitance taken out, kvar at the system voltage.
     detuning_percent : float
-        Series reactor, 0 for a plain bank, else one of 5.67, 7, 14.
+        Series reactor, 0 for a plain bank, else one of 5.67, 7, 14 (capacitor banks only).
     capacitor_rated_voltage_v : float or None
         Rated voltage of the capacitors; with the site's nominal voltage it scales the
         output by (U / U_rated)². None: rated at the system voltage.
     """
 
-    kind: Literal["fixed", "automatic"]
+    kind: Literal["fixed", "automatic", "reactor", "switch_off"]
     steps_kvar: tuple[float, ...]
     detuning_percent: float = 0.0
     capacitor_rated_voltage_v: float | None = None
 
     def __post_init__(self) -> None:
-        if self.kind not in ("fixed", "automatic"):
-            raise UsageError(f"bank kind must be 'fixed' or 'automatic', got {self.kind!r}")
+        if self.kind not in KINDS:
+            raise UsageError(f"design kind must be one of {', '.join(KINDS)}, got {self.kind!r}")
         steps = tuple(float(s) for s in self.steps_kvar)
         if not steps or any(not math.isfinite(s) or s <= 0 for s in steps):
             raise UsageError(f"bank steps must be positive kvar values, got {self.steps_kvar!r}")
         if len(steps) > MAX_STEPS:
             raise UsageError(f"a bank has at most {MAX_STEPS} steps, got {len(steps)}")
-        if self.kind == "fixed" and len(steps) != 1:
-            raise UsageError("a fixed bank has exactly one step (its total kvar)")
+        if self.kind in ("fixed", "switch_off") and len(steps) != 1:
+            raise UsageError(f"a {self.kind.replace('_', ' ')} design has exactly one step (its total kvar)")
+        if self.kind in ABSORBING_KINDS and (self.detuning_percent or self.capacitor_rated_voltage_v):
+            raise UsageError(f"a {self.kind.replace('_', ' ')} design takes no detuning reactor and "
+                             "no capacitor voltage")
         object.__setattr__(self, "steps_kvar", steps)
         p = float(self.detuning_percent)
         if p != 0.0 and not any(abs(p - d) < 1e-9 for d in DETUNING_PERCENTS):
@@ -173,6 +217,26 @@ class BankDesign:
         parsed = parse_steps(steps) if isinstance(steps, str) else tuple(steps)
         return cls("automatic", parsed, detuning_percent, capacitor_rated_voltage_v)
 
+    @classmethod
+    def reactor(cls, steps: float | str | tuple[float, ...]) -> BankDesign:
+        """A switched shunt reactor: one step of KVAR, or steps such as ``"2x10"``."""
+        if isinstance(steps, str):
+            parsed = parse_steps(steps)
+        elif isinstance(steps, tuple | list):
+            parsed = tuple(steps)
+        else:
+            if not isinstance(steps, int | float | np.number) or not steps > 0:
+                raise UsageError(f"reactor kvar must be > 0, got {steps!r}")
+            parsed = (float(steps),)
+        return cls("reactor", parsed)
+
+    @classmethod
+    def switch_off(cls, kvar: float) -> BankDesign:
+        """Existing capacitance of ``kvar`` taken out of service while the site runs leading."""
+        if not isinstance(kvar, int | float | np.number) or not kvar > 0:
+            raise UsageError(f"the capacitance to switch off must be > 0 kvar, got {kvar!r}")
+        return cls("switch_off", (float(kvar),))
+
     # derived figures ----------------------------------------------------------------------
     @property
     def total_kvar(self) -> float:
@@ -183,7 +247,38 @@ class BankDesign:
         return self.detuning_percent > 0
 
     @property
+    def is_capacitor(self) -> bool:
+        """A capacitor bank to buy (fixed or automatic), as opposed to a leading-site remedy."""
+        return self.kind in CAPACITOR_KINDS
+
+    @property
+    def switched(self) -> bool:
+        """Follows the load through a controller (everything but a fixed bank)."""
+        return self.kind != "fixed"
+
+    @property
+    def sign(self) -> float:
+        """+1 for capacitive output, −1 for absorbing designs (reactor, capacitance out)."""
+        return 1.0 if self.is_capacitor else -1.0
+
+    @property
+    def family(self) -> str:
+        """The family of designs the optimiser reports on: kind, and plain or detuned."""
+        if not self.is_capacitor:
+            return self.kind
+        return f"{self.kind}, {'detuned' if self.detuned else 'plain'}"
+
+    @property
     def label(self) -> str:
+        if self.kind == "switch_off":
+            return f"switch {self.total_kvar:g} kvar of existing capacitance off while leading"
+        if self.kind == "reactor":
+            if len(self.steps_kvar) == 1:
+                return f"shunt reactor {self.total_kvar:g} kvar, switched"
+            sizes = set(self.steps_kvar)
+            steps = (f"{len(self.steps_kvar)}x{self.steps_kvar[0]:.4g}" if len(sizes) == 1
+                     else ",".join(f"{s:.4g}" for s in self.steps_kvar))
+            return f"shunt reactor {steps} kvar, switched"
         if self.kind == "fixed":
             body = f"fixed {self.total_kvar:g} kvar"
         else:
@@ -195,6 +290,10 @@ class BankDesign:
         return body + (f", {self.detuning_percent:g} % detuned" if self.detuned else "")
 
     def output_factor(self, system_voltage_v: float | None = None) -> float:
+        """Effective kvar at the system voltage per kvar of rating (1 for absorbing designs,
+        which are rated at the system voltage)."""
+        if not self.is_capacitor:
+            return 1.0
         return output_factor(self.detuning_percent, system_voltage_v, self.capacitor_rated_voltage_v)
 
     def stage_totals_kvar(self) -> np.ndarray:
@@ -213,6 +312,7 @@ class BankDesign:
             ),
             "capacitor_rated_voltage_v": self.capacitor_rated_voltage_v,
             "label": self.label,
+            "family": self.family,
         }
 
 
@@ -267,24 +367,43 @@ def switch_equal_steps(needed_kvar: np.ndarray, allowed_kvar: np.ndarray,
     return k * s
 
 
+def absorbing_limits(kw: np.ndarray, kvar_net: np.ndarray,
+                     target_pf: float) -> tuple[np.ndarray, np.ndarray]:
+    """Per interval, for a reactor (or capacitance switched out): the kvar to absorb to cancel
+    the leading kvar, and the most it may absorb without the site lagging beyond the target.
+
+    needed = −Q_net (≤ 0 when the site lags, so nothing is switched); allowed =
+    P tan φ_target − Q_net.
+    """
+    target_pf = check_pf(target_pf)
+    kw = np.maximum(np.asarray(kw, dtype=float), 0.0)
+    kvar_net = np.asarray(kvar_net, dtype=float)
+    return -kvar_net, kw * tan_phi(target_pf) - kvar_net
+
+
 def bank_output_kvar(bank: BankDesign, kw: np.ndarray, kvar_net: np.ndarray, target_pf: float,
                      *, leading_pf_limit: float | None = None,
                      system_voltage_v: float | None = None) -> np.ndarray:
-    """Effective capacitive kvar the bank delivers in each interval.
+    """Signed effective kvar the design delivers in each interval (capacitive > 0).
 
-    A fixed bank is always on. An automatic bank follows :func:`switch_stages`.
+    A fixed bank is always on. An automatic bank follows :func:`switch_stages`; a reactor and
+    capacitance switched out follow the mirror rule of :func:`absorbing_limits` and come out
+    negative.
     """
     factor = bank.output_factor(system_voltage_v)
     kvar_net = np.asarray(kvar_net, dtype=float)
     if bank.kind == "fixed":
         return np.full(kvar_net.shape, bank.total_kvar * factor)
+    if not bank.is_capacitor:
+        needed, allowed = absorbing_limits(kw, kvar_net, target_pf)
+        return -switch_stages(needed, allowed, bank.stage_totals_kvar())
     needed, allowed = controller_limits(kw, kvar_net, target_pf, leading_pf_limit)
     return switch_stages(needed, allowed, bank.stage_totals_kvar() * factor)
 
 
 def corrected_kvarh(kvarh_lag: np.ndarray, kvarh_lead: np.ndarray, output_kvar: np.ndarray,
                     interval_minutes: int) -> tuple[np.ndarray, np.ndarray]:
-    """Lagging and leading kvarh per interval after the bank.
+    """Lagging and leading kvarh per interval after the design (signed output, capacitive > 0).
 
     net = lag − lead − Qc · m / 60; lag_new = max(net, 0); lead_new = max(−net, 0).
     """

@@ -136,7 +136,8 @@ def list_sites(store: Store) -> list[dict]:
 
 def load_sites_file(store: Store, path: str | Path) -> list[dict]:
     """Sites from a TOML file of ``[[site]]`` tables (name, timezone, nominal_voltage_v,
-    transformer_kva, transformer_impedance_percent, meters)."""
+    transformer_kva, transformer_impedance_percent, meters; for the correction ``screening``,
+    ``harmonics`` and ``drive_share``, and a top-level ``[screening]`` table for every site)."""
     path = Path(path)
     try:
         data = tomllib.loads(path.read_text(encoding="utf-8"))
@@ -144,18 +145,23 @@ def load_sites_file(store: Store, path: str | Path) -> list[dict]:
         raise UsageError(f"{path}: {exc.strerror}") from None
     except tomllib.TOMLDecodeError as exc:
         raise ProfileError("site", f"not valid TOML: {exc}", str(path)) from None
+    from auditor.services.correction import SITE_FILE_KEYS, site_file_settings, store_site_settings
+
+    # correction settings ([screening], harmonics, drive_share) are all read before anything is stored
+    settings = [site_file_settings(e, data.get("screening"), path, i) for i, e in enumerate(data.get("site", []))]
     out = []
     for i, entry in enumerate(data.get("site", [])):
-        extra = set(entry) - {"name", "meters", *SITE_FIELDS}
+        extra = set(entry) - {"name", "meters", *SITE_FIELDS, *SITE_FILE_KEYS}
         if extra:  # before the required keys: a misspelt "name" is reported as misspelt
             key = sorted(extra)[0]
-            allowed = ("name", "meters", *SITE_FIELDS)
+            allowed = ("name", "meters", *SITE_FIELDS, *SITE_FILE_KEYS)
             raise ProfileError(f"site[{i}].{key}", f"unknown key{closest(key, allowed)}; allowed: {', '.join(allowed)}",
                                str(path))
         if "name" not in entry:
             raise ProfileError(f"site[{i}].name", "every site needs a name", str(path))
         fields = {k: entry[k] for k in SITE_FIELDS if k in entry}
         out.append(set_site(store, entry["name"], list(entry.get("meters", [])), **fields))
+        store_site_settings(store, entry["name"], settings[i])
     return out
 
 

@@ -127,7 +127,7 @@ class ReportData:
     thresholds: list[dict]
     profile: object | None = None  # meter_charts.MeterChartData (heat map in the HTML report)
     scenario_name: str | None = None
-    scenario: dict | None = None  # a saved SizeCase.to_dict()
+    scenario: dict | None = None  # a saved MeterScenario.to_dict()
     generated_at: str = field(default_factory=lambda: datetime.now(UTC).isoformat(timespec="seconds"))
 
     @property
@@ -266,7 +266,13 @@ def render_xlsx(report: ReportData) -> bytes:
             cc = candidate_columns(cur)
             _sheet(wb, "Candidates", cc, [[c.get(r) for c in cc] for r in s["candidates"]])
         sc = s["screening"]
-        _kv_sheet(wb, "Screening", [(k, v if not isinstance(v, list | dict) else str(v)) for k, v in sc.items()]
+        if s.get("specification"):
+            spec_cols = [Column(h.capitalize(), lambda r, h=h: r[h]) for h in ("section", "label", "value", "unit", "note")]
+            _sheet(wb, "Specification", spec_cols, [[c.get(r) for c in spec_cols] for r in s["specification"]["rows"]])
+        rules = sc.get("rules") or []
+        _kv_sheet(wb, "Screening", [(k, v if not isinstance(v, list | dict) else str(v)) for k, v in sc.items()
+                                    if k != "rules"]
+                  + [(f"{r['rule']} ({r['status']})", r["message"]) for r in rules]
                   + [("warning", w) for w in s.get("warnings", [])])
         _kv_sheet(wb, "Cautions", [(str(i + 1), c) for i, c in enumerate(report.cautions)])
     buf = io.BytesIO()
@@ -285,7 +291,8 @@ def candidate_columns(cur: str) -> list[Column]:
         Column("Payback (years)", lambda c: c["simple_payback_years"], "power"),
         Column("PF after", lambda c: c["pf_after"], "pf"),
         Column("Resonance order h", lambda c: c.get("resonance_order"), "power"),
-        Column("Screening", lambda c: "passed" if c["passed_screening"] else "not passed"),
+        Column("Screening", lambda c: "passed" if c["passed_screening"] else
+               "fails " + ", ".join(c.get("failed_rules") or []) if c.get("failed_rules") else "not passed"),
     ]
 
 
@@ -306,6 +313,9 @@ def report_charts(report: ReportData) -> list[tuple[str, str]]:
         out += [("before_after", charts.before_after(report.scenario)),
                 ("savings", charts.savings_by_charge(report.scenario)),
                 ("cashflow", charts.cash_flow(report.scenario))]
+        scan = charts.frequency_scan(report.scenario)
+        if scan is not None:
+            out.append(("scan", scan))
     return [(k, charts.figure_json(f)) for k, f in out]
 
 

@@ -51,6 +51,11 @@ class Site(Base):
     nominal_voltage_v: Mapped[float | None] = mapped_column(Float)
     transformer_kva: Mapped[float | None] = mapped_column(Float)
     transformer_impedance_percent: Mapped[float | None] = mapped_column(Float)
+    # correction settings (migration 0005): screening settings over the defaults (JSON), the
+    # measured harmonic spectrum as read (JSON), the share of the load on six-pulse drives
+    screening_settings: Mapped[str | None] = mapped_column(Text)
+    harmonic_spectrum: Mapped[str | None] = mapped_column(Text)
+    drive_share: Mapped[float | None] = mapped_column(Float)
     created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
     meters: Mapped[list[Meter]] = relationship(back_populates="site")
 
