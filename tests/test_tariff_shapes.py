@@ -1,9 +1,15 @@
-"""Clause shapes without a published source at hand, each with a hand-worked month of invented
-figures (see tests/test_tariffs_published.py for the published ones): marginal tiers of excess,
+"""Clause shapes, each with a hand-worked month of invented figures: marginal tiers of excess,
 a time band worked out on its own for kvarh_excess, a trigger and a cap on the PF demand
 adjustment, rounding of kW and of PF to a step and direction, the larger of lagging and leading
-energy per interval, several windows at minute resolution on a leading-kvarh clause; then the
-validation of every new key (named-key errors) and what the clause facts say about them.
+energy per interval, daily blocks across a daylight-saving change, several windows at minute
+resolution on a leading-kvarh clause; then the validation of every new key (named-key errors)
+and what the clause facts say about them.
+
+Published clauses of these shapes are billed in tests/test_tariffs_published.py: the cap on a
+PF demand adjustment (a US public power district), marginal tiers of excess and the daily
+integration period (the Portuguese regulator's tan phi tiers) and the excess worked out per
+half-hour on the larger of import and export reactive energy (the UK distribution charge). A
+trigger apart from the ratio has no published source found yet; it is tested here only.
 
 Base month: tests.audit_helpers.june_frame (June 2025, Europe/Berlin, hourly 100 kWh / 60 kvarh,
 one hour of 250 kWh / 150 kvarh): kWh 72,150, kvarh 43,290, PF 0.857493.
@@ -153,6 +159,28 @@ def test_larger_of_lagging_and_leading_per_interval():
     assert (facts.sense, facts.pf_measure) == ("both", "interval")
 
 
+def test_daily_blocks_keep_the_25_hour_day_whole():
+    """Blocks of a local day (1440): 26 October 2025 in Berlin has 25 hours (02:00-03:00 twice),
+    100 quarter-hours. Every quarter-hour 25 kWh and no kvarh, except 225 kvarh in each quarter
+    of 01:00-02:00 (900) and 125 kvarh in each quarter of the second 02:00-03:00 (500). The day
+    as one block: 1,400 - 0.5 x 2,500 = 150. Cut where the clock goes back, it would be two
+    blocks: 00:00 to the first 03:00 (12 quarters, 300 kWh, 900 kvarh: 750) and the rest (500
+    kvarh on 2,200 kWh: nothing) = 750. Hour by hour: (900 - 50) + (500 - 50) = 1,300, the same
+    as quarter by quarter: 4 x 212.5 + 4 x 112.5."""
+    from tests.audit_helpers import interval_frame
+    f = interval_frame("2025-10-01", "2025-11-01", minutes=15, kwh=25.0, kvarh_lag=0.0)
+    local = f.index.tz_convert(TZ)
+    assert (local.day == 26).sum() == 100
+    f.loc["2025-10-25 23:00Z":"2025-10-25 23:45Z", "kvarh_lag"] = 225.0  # 01:00-02:00 summer time
+    f.loc["2025-10-26 01:00Z":"2025-10-26 01:45Z", "kvarh_lag"] = 125.0  # the second 02:00-03:00
+    m = {"kind": "kvarh_excess", "tan_phi_limit": 0.5, "price_per_kvarh": 1.0, "per": "interval"}
+    assert_allclose(one(tariff([dict(m, block_minutes=1440)]), f, minutes=15).charges["kvarh_excess"], 150.0)
+    assert_allclose(one(tariff([dict(m, block_minutes=60)]), f, minutes=15).charges["kvarh_excess"], 1300.0)
+    assert_allclose(one(tariff([m]), f, minutes=15).charges["kvarh_excess"], 1300.0)
+    assert line_of(tariff([dict(m, block_minutes=1440)]), "kvarh_excess").endswith(
+        "worked out for each local day and summed over the period.")
+
+
 def test_half_hour_blocks_from_quarter_hours():
     """15-minute data, 30-minute blocks: in one half hour 5 + 40 kvarh on 25 + 25 kWh; per
     block 45 - 0.33 x 50 = 28.5; per 15-minute interval 0 + (40 - 8.25) = 31.75."""
@@ -212,7 +240,8 @@ def test_new_keys_are_validated_by_name():
     bad(dict(KX, per="month"), "reactive[0].per", '"period", "window", "interval"')
     bad(dict(KX, per="window"), "reactive[0].per", "needs [[reactive.windows]]")
     bad(dict(KX, block_minutes=30), "reactive[0].block_minutes", 'only applies with per = "interval"')
-    bad(dict(KX, per="interval", block_minutes=45), "reactive[0].block_minutes", "one of 5, 10, 15, 30, 60")
+    bad(dict(KX, per="interval", block_minutes=45), "reactive[0].block_minutes", "one of 5, 10, 15, 30, 60, 1440")
+    bad(dict(KX, per="interval", block_minutes=720), "reactive[0].block_minutes", "got 720")
     bad(dict(KX, windows=[{"hours": [6, 22], "kvarh": "lead"}]), "reactive[0].windows[0].kvarh",
         'only applies with per = "interval"')
     bad(dict(KX, reference_pf=0.92), "reactive[0].tan_phi_limit", "does not combine with reference_pf")
@@ -226,6 +255,12 @@ def test_new_keys_are_validated_by_name():
         "below the previous threshold (0.9)")
     bad({"kind": "pf_demand_adjust", "base_pf": 0.9, "credit": True, "apply_below_pf": 0.95},
         "reactive[0].apply_below_pf", "does not combine with credit")
+    bad({"kind": "pf_demand_adjust", "base_pf": 0.9, "adjusted_rounding": {"step": 0.01, "mode": "nearest"}},
+        "reactive[0].adjusted_rounding.mode", '"up", "down", "half_up", "half_down"')
+    bad({"kind": "pf_demand_adjust", "base_pf": 0.9, "adjusted_rounding": {"step": -1}},
+        "reactive[0].adjusted_rounding.step", "positive step")
+    bad({"kind": "pf_demand_adjust", "base_pf": 0.9, "adjusted_rouding": {"step": 0.01}},
+        "reactive[0].adjusted_rouding", "did you mean 'adjusted_rounding'?")
     bad({"kind": "pf_demand_adjust", "base_pf": 0.9, "pf": "peak"}, "reactive[0].pf",
         '"energy", "at_peak", "peak_kva"', "did you mean 'at_peak'?")
     bad({"kind": "kvar_demand", "allowance_ratio": 0.5, "price_per_kvar": 1, "allowance_lookback_periods": 0},

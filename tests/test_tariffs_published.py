@@ -28,6 +28,21 @@ Sources (public pages, read for these tests):
 * USA, a public utility district's clause quoted on the electrical-contractor.net forum (2004):
   kvar above 62 % of the maximum kW of the current or previous 11 months (the district is not
   named there and no price is quoted).
+* USA, Norris Public Power District (Nebraska), irrigation newsletter on billing demand
+  adjustments for a PF below 93 % measured in the billing demand interval, the increase limited
+  to 10 %, with a worked example for the 2022 season (norrisppd.com). A cap on a PF demand
+  surcharge.
+* Portugal, the regulator's (ERSE) rules for inductive reactive energy outside the off-peak
+  hours (Despachos 7253/2010 and 10/2010): multiplying factors 0.33, 1 and 3 on the reference
+  price for tan phi from 0.3 to 0.4, from 0.4 to 0.5 and from 0.5 up, as tabulated on EDP
+  Servico Universal's 2019 medium-voltage tariff page and in its reactive-energy FAQ, which
+  also announces a daily integration period for MAT, AT and MT customers from 2012
+  (edpsu.pt); the same table in a consultant's FAQ (zeben.pt). Marginal tiers of excess.
+* United Kingdom, the common distribution charging methodology's excess reactive power charge
+  for half-hourly metered sites (from April 2010): kvarh above 33 % of kWh, in a London Power
+  Networks statement of charges (2011, a copy on pdfslide.us) and a capacitor supplier's
+  explanation (powercapacitors.co.uk); assessed in every half-hour (an energy adviser's page,
+  askomnium.co.uk). The excess worked out per half-hour.
 """
 from __future__ import annotations
 
@@ -388,3 +403,177 @@ def test_usa_district_kvar_above_62_percent_of_the_highest_kw_of_12_months():
     assert_allclose(one(frame, own).periods[1].charges["kvar_demand"], 22.50)
     assert any("above 0.62 x the highest kW of this and the previous 11 billing periods" in s
                for s in describe_tariff(t))
+
+
+# ---------------------------------------------------------------------------------------------
+# USA: billing demand at 93 % PF, the increase limited to 10 %
+# ---------------------------------------------------------------------------------------------
+CHICAGO = "America/Chicago"
+NORRIS = {
+    "name": "Norris PPD irrigation, Rate Schedule 13 (demand part)",
+    "currency": "USD",
+    "pf_rounding": 3,  # the newsletter states PFs to three decimals (.871, .846)
+    "energy": {"price_per_kwh": 0.05},  # placeholder: the example concerns the demand charge only
+    "demand": {"price_per_kw": 23.80},  # Schedule 13's annual demand charge per kW (newsletter)
+    "reactive": [{"kind": "pf_demand_adjust", "label": "pf_adjustment", "base_pf": 0.93, "pf": "at_peak",
+                  "max_increase_percent": 10, "adjusted_rounding": {"step": 0.01}}],
+}
+
+
+def norris_month(pf_at_peak: float):
+    """July 2025 in 15-minute intervals at 30 kW and PF 0.70 (the month's PF does not count), with
+    the season's 15-minute peak of 51.09 kW on 15 July at 14:00 at the given PF."""
+    f = interval_frame("2025-07-01", "2025-08-01", minutes=15, tz=CHICAGO, kwh=7.5, kvarh_lag=7.5 * tan_of(0.70))
+    return set_at(f, "2025-07-15 14:00", tz=CHICAGO, kwh=51.09 / 4, kvarh_lag=51.09 * tan_of(pf_at_peak) / 4)
+
+
+def test_usa_norris_ppd_demand_at_93_percent_pf_capped_at_10_percent():
+    """Norris Public Power District, irrigation services: when the PF measured in the billing
+    demand interval is below 93 %, billing demand = recorded demand x 0.93 / PF, the increase
+    limited to 10 %. The newsletter's example on Rate Schedule 13 (23.80 per kW): 51.09 kW at
+    PF .871 -> 54.55 kW; 51.09 x 23.80 = 1,215.94 becomes 54.55 x 23.80 = 1,298.29, an increase of
+    82.35. Unrounded the adjusted demand is 54.550746 kW (82.37 more); the example bills it to
+    the hundredth of a kW, so the clause rounds the adjusted demand to 0.01 kW (the direction is
+    not stated; half up and down agree here).
+
+    Here the month's other intervals run at PF 0.70: only the PF of the peak interval counts.
+    PF .80 at the peak: 0.93 / 0.80 = 1.1625, limited to 1.10 -> 56.199 -> 56.20 kW:
+    (56.20 - 51.09) x 23.80 = 121.618. (The newsletter's shortcut, entering .846 for any lower
+    PF, gives 51.09 x 0.93 / 0.846 = 56.16 kW, 9.93 % more: the clause says 10 %.)
+    PF .930 at the peak: nothing, although the month's PF is 0.70.
+    """
+    t = tariff_from_dict(NORRIS)
+    p = one(norris_month(0.871), t, tz=CHICAGO, minutes=15)
+    assert_allclose([p.charges["demand"], p.charges["pf_adjustment"]], [1215.942, 82.348], atol=1e-9)
+    assert_allclose(p.billing_demand, 54.55)
+    assert round(p.charges["demand"], 2) == 1215.94
+    assert round(p.charges["demand"] + p.charges["pf_adjustment"], 2) == 1298.29
+    assert_allclose(one(norris_month(0.80), t, tz=CHICAGO, minutes=15).charges["pf_adjustment"], 121.618)
+    assert one(norris_month(0.93), t, tz=CHICAGO, minutes=15).charges["pf_adjustment"] == 0.0
+    line = next(s for s in describe_tariff(t) if s.startswith("pf_adjustment:"))
+    assert line == ("pf_adjustment: when the PF at the kW peak is below 0.93, billing demand is peak kW x 0.93 / PF, "
+                    "at most 10 % above peak kW; the adjusted demand rounded to the nearest 0.01 kW, halves up.")
+
+
+# ---------------------------------------------------------------------------------------------
+# Portugal: tiers of tan phi, each priced at its own multiple of the reference price
+# ---------------------------------------------------------------------------------------------
+LISBON = "Europe/Lisbon"
+REF = 0.0300  # placeholder reference price of inductive reactive energy, EUR/kvarh
+# Daily-cycle off-peak (vazio) 22:00-08:00, from memory; inductive energy counts outside it.
+FORA_DE_VAZIO = [{"name": "fora de vazio", "hours": [8, 22]}]
+ERSE_TIERS = {"kind": "kvarh_excess", "label": "energia_reativa", "tan_phi_limit": 0.3,
+              "price_per_kvarh": round(0.33 * REF, 6),
+              "tiers": [{"above_tan_phi": 0.4, "price_per_kvarh": 1.0 * REF},
+                        {"above_tan_phi": 0.5, "price_per_kvarh": 3.0 * REF}],
+              "windows": FORA_DE_VAZIO}
+
+
+def erse(clause: dict) -> dict:
+    return {"name": "Portuguese access tariff, inductive reactive energy", "currency": "EUR",
+            "energy": {"price_per_kwh": 0.10},  # placeholder
+            "reactive": [clause]}
+
+
+def lisbon_june(fora_kvarh, vazio_kvarh: float = 40.0):
+    """June 2025, hourly: 100 kWh per hour outside the off-peak hours (08-22, 420 h), 50 kWh per
+    off-peak hour (300 h) with ``vazio_kvarh`` lagging; ``fora_kvarh`` per off-peak-free hour, or
+    a function of the local day giving it."""
+    f = interval_frame("2025-06-01", "2025-07-01", minutes=60, tz=LISBON, kwh=50.0, kvarh_lag=vazio_kvarh)
+    local = f.index.tz_convert(LISBON)
+    fora = (local.hour >= 8) & (local.hour < 22)
+    f.loc[fora, "kwh"] = 100.0
+    f.loc[fora, "kvarh_lag"] = fora_kvarh(local.day[fora]) if callable(fora_kvarh) else fora_kvarh
+    return f
+
+
+def test_portugal_erse_reactive_energy_tiers_by_tan_phi():
+    """ERSE (Despachos 7253/2010 and 10/2010): inductive reactive energy outside the off-peak
+    hours is billed by tiers of tan phi = kvarh / kWh: from 0.3 to 0.4 at 0.33 x the reference
+    price, from 0.4 to 0.5 at 1 x, from 0.5 up at 3 x. That each tier's share of the kvarh is
+    priced at its own factor (marginal tiers) is from memory of the despacho; the sources read
+    give the tiers and factors only. Before 2011 only the kvarh above 0.4 x kWh was billed, at 1 x
+    (gestorvirtualenergia.com).
+
+    June 2025 (monthly integration, as for special low-voltage customers): outside the
+    off-peak hours 420 h x 100 kWh = 42,000 kWh and 420 x 60 = 25,200 kvarh (tan phi 0.6);
+    off-peak 300 h x 50 kWh with 40 kvarh (tan phi 0.8, not counted).
+    0.3-0.4: 4,200 kvarh x 0.0099 = 41.58; 0.4-0.5: 4,200 x 0.03 = 126.00; above 0.5:
+    25,200 - 21,000 = 4,200 x 0.09 = 378.00. Total 545.58 (the whole excess 12,600 kvarh at the
+    top factor would be 1,134.00; the pre-2011 rule 4,200 + 4,200 = 8,400 x 0.03 = 252.00).
+    """
+    t = tariff_from_dict(erse(ERSE_TIERS))
+    assert_allclose(one(lisbon_june(60.0), t, tz=LISBON).charges["energia_reativa"], 545.58)
+    old = tariff_from_dict(erse({"kind": "kvarh_excess", "label": "energia_reativa", "tan_phi_limit": 0.4,
+                                 "price_per_kvarh": REF, "windows": FORA_DE_VAZIO}))
+    assert_allclose(one(lisbon_june(60.0), old, tz=LISBON).charges["energia_reativa"], 252.00)
+    line = next(s for s in describe_tariff(t) if s.startswith("energia_reativa:"))
+    assert ("0.0099 EUR per kvarh of lagging kvarh above 0.3 x kWh (tan phi 0.3) up to 0.4 x kWh, 0.03 EUR per kvarh "
+            "above 0.4 x kWh up to 0.5 x kWh, 0.09 EUR per kvarh above 0.5 x kWh counted fora de vazio every day "
+            "08:00-22:00 local time") in line
+
+
+def test_portugal_erse_daily_integration_for_medium_voltage():
+    """EDP Servico Universal's FAQ announces, from 2012, a daily integration period for MAT, AT
+    and MT customers: the tiers are worked out on each day's energy outside the off-peak hours
+    and summed (whether and when it took effect is not stated in the sources read).
+
+    June 2025, outside the off-peak hours 1,400 kWh a day; 490 kvarh a day (tan phi 0.35) on
+    1-29 June, 1,400 kvarh (tan phi 1.0) on 30 June. Daily: 29 x 0.05 x 1,400 = 2,030 kvarh plus
+    140 in the first tier on 30 June = 2,170 x 0.0099 = 21.483; 140 x 0.03 = 4.20;
+    (1.0 - 0.5) x 1,400 = 700 x 0.09 = 63.00. Total 88.683. Over the month the same energies give
+    tan phi 15,610 / 42,000 = 0.3717: 15,610 - 12,600 = 3,010 x 0.0099 = 29.799.
+    """
+    month = lisbon_june(lambda day: np.where(day == 30, 1400.0 / 14, 490.0 / 14))
+    daily = tariff_from_dict(erse(dict(ERSE_TIERS, per="interval", block_minutes=1440)))
+    assert_allclose(one(month, daily, tz=LISBON).charges["energia_reativa"], 88.683)
+    assert_allclose(one(month, tariff_from_dict(erse(ERSE_TIERS)), tz=LISBON).charges["energia_reativa"], 29.799)
+    line = next(s for s in describe_tariff(daily) if s.startswith("energia_reativa:"))
+    assert line.endswith("worked out for each local day and summed over the period.")
+
+
+# ---------------------------------------------------------------------------------------------
+# United Kingdom: the excess worked out in every half-hour, import or export reactive energy
+# ---------------------------------------------------------------------------------------------
+LONDON = "Europe/London"
+UK = {
+    "name": "Distribution use of system, half-hourly metered (excess reactive power)",
+    "currency": "GBP",
+    "energy": {"price_per_kwh": 0.03},  # placeholder unit rate
+    "reactive": [{"kind": "kvarh_excess", "label": "excess_reactive_power", "tan_phi_limit": 0.33,
+                  "price_per_kvarh": 0.0025,  # placeholder: statements publish a p/kVArh rate per tariff
+                  "kvarh": "max_lag_lead", "per": "interval", "block_minutes": 30}],
+}
+
+
+def test_uk_excess_reactive_power_each_half_hour_import_or_export():
+    """The common methodology's excess reactive power charge: in each half-hour the reactive
+    energy above 33 % of the active energy imported is chargeable, and the half-hours are
+    summed. The reactive energy of a half-hour is the larger of the reactive import and the
+    reactive export (from memory of the methodology's formula, max(RI, RE) - 0.33 x AI; the
+    sources read state the 33 % and the half-hourly assessment).
+
+    June 2025, 1,440 half-hours of 50 kWh and 10 kvarh lagging, except weekdays 09:00-17:00
+    (21 days x 16 = 336 half-hours) at 25 kvarh lagging: 25 - 16.5 = 8.5 each -> 2,856; and
+    every night 00:00-06:00 (30 x 12 = 360 half-hours) at 20 kWh with 5 kvarh lagging and
+    20 kvarh leading (capacitors left on): 20 - 6.6 = 13.4 each -> 4,824. Total 7,680 kvarh x
+    0.0025 = 19.20. Netted over the month nothing is due: kWh 744 x 50 + 336 x 50 + 360 x 20
+    = 61,200, allowance 20,196; lagging 7,440 + 8,400 + 1,800 = 17,640, leading 7,200. Counting
+    lagging energy only, half-hour by half-hour: 2,856 x 0.0025 = 7.14.
+    """
+    f = interval_frame("2025-06-01", "2025-07-01", minutes=30, tz=LONDON, kwh=50.0, kvarh_lag=10.0)
+    local = f.index.tz_convert(LONDON)
+    hour = local.hour
+    f.loc[(local.day_of_week < 5) & (hour >= 9) & (hour < 17), "kvarh_lag"] = 25.0
+    night = hour < 6
+    f.loc[night, ["kwh", "kvarh_lag", "kvarh_lead"]] = [20.0, 5.0, 20.0]
+    t = tariff_from_dict(UK)
+    assert_allclose(one(f, t, tz=LONDON, minutes=30).charges["excess_reactive_power"], 19.20)
+    clause = dict(UK["reactive"][0])
+    monthly = tariff_from_dict(dict(UK, reactive=[{k: v for k, v in clause.items() if k not in ("per", "block_minutes")}]))
+    assert one(f, monthly, tz=LONDON, minutes=30).charges["excess_reactive_power"] == 0.0
+    lag_only = tariff_from_dict(dict(UK, reactive=[dict(clause, kvarh="lag")]))
+    assert_allclose(one(f, lag_only, tz=LONDON, minutes=30).charges["excess_reactive_power"], 7.14)
+    line = next(s for s in describe_tariff(t) if s.startswith("excess_reactive_power:"))
+    assert "the larger of lagging and leading kvarh above 0.33 x kWh" in line
+    assert "each 30-minute block of local time" in line

@@ -52,7 +52,10 @@ def _per_text(m) -> str:
                 "energy and PF, other times exempt")
     if per == "interval":
         blocks = getattr(m, "block_minutes", None)
-        unit = f"each {blocks}-minute block of local time" if blocks else "each metered interval"
+        if blocks == 1440:
+            unit = "each local day"
+        else:
+            unit = f"each {blocks}-minute block of local time" if blocks else "each metered interval"
         return f", worked out for {unit} and summed over the period"
     return ""
 
@@ -115,6 +118,8 @@ def _adjust_text(m: PfDemandAdjust) -> str:
         text += f" (that is, the larger of peak kW and {m.base_pf:g} x peak kVA)"
     if m.max_increase_percent is not None:
         text += f", at most {m.max_increase_percent:g} % above peak kW"
+    if m.adjusted_rounding is not None:
+        text += f"; the adjusted demand {m.adjusted_rounding.describe('kW')}"
     if m.credit:
         text += "; above it the same ratio lowers billing demand"
         if m.max_credit_percent is not None:

@@ -23,7 +23,7 @@ Which kvarh each mechanism counts:
 How a clause is worked out (``per``): over the whole period; separately in each time band
 (``"window"``: windows of one name form a band; each band has its own excess and its own PF);
 or interval by interval (``"interval"``: the excess of each metered interval, or of each block
-of ``block_minutes`` in local time, summed over the period). The per-interval masks and blocks
+of ``block_minutes`` in local time -- 1440: each local day -- summed over the period). The per-interval masks and blocks
 depend on the calendar only and are prepared once (:func:`plan_intervals`); the sums are taken
 again on every run from the per-interval energies (:class:`IntervalQuantities`).
 
@@ -231,11 +231,14 @@ def _blocks(cal: LocalCalendar, bounds: np.ndarray, interval_minutes: int, block
     key = cal.wall_minutes[:n] // block_minutes
     wall = cal.wall_minutes[:n]
     # A block ends where the key changes, where the wall clock goes back (the repeated autumn
-    # hour) and at every period boundary.
+    # hour is a block of its own) and at every period boundary. A day block (1440) is the whole
+    # local day, 23 or 25 hours long on a daylight-saving change: only its key cuts it.
     cut = np.zeros(n, dtype=bool)
     if n:
         cut[0] = True
-        cut[1:] = (key[1:] != key[:-1]) | (wall[1:] < wall[:-1])
+        cut[1:] = key[1:] != key[:-1]
+        if block_minutes < 1440:
+            cut[1:] |= wall[1:] < wall[:-1]
         starts_of_periods = bounds[:-1][bounds[:-1] < n]
         cut[starts_of_periods] = True
     starts = np.flatnonzero(cut)
@@ -710,6 +713,9 @@ def _compute(tariff: Tariff, q: PeriodQuantities) -> Charges:
             pf = _adjust_pf(tariff, adjust, q, np.nan_to_num(q.peak_kw))
             adjusted = pf_adjusted_demand(measured, pf, adjust.base_pf, adjust.credit, adjust.max_credit_percent,
                                           adjust.apply_below_pf, adjust.max_increase_percent)
+            if adjust.adjusted_rounding is not None:
+                # Only a demand the adjustment changed is rounded as the adjusted demand.
+                adjusted = np.where(adjusted != measured, _round(adjusted, adjust.adjusted_rounding), measured)
         # One floor for both: the demand of earlier periods the tariff's ratchet looks back at.
         # A period without load or PF then has no PF adjustment of its own and pays none,
         # whatever the floor.

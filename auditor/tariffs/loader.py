@@ -81,8 +81,8 @@ __all__ = ["load_tariff", "tariff_from_dict"]
 #: a key is close to it is reported as that key misspelt. ``tests/test_tariff_facts.py`` checks
 #: that every key the validator reads is listed.
 KNOWN_KEYS = frozenset("""
-    above_tan_phi allowance_lookback_periods allowance_ratio applies_to apply_below_pf bands base_pf
-    basis below_pf block_minutes calendar country credit currency days demand description
+    above_tan_phi adjusted_rounding allowance_lookback_periods allowance_ratio applies_to
+    apply_below_pf bands base_pf basis below_pf block_minutes calendar country credit currency days demand description
     difference_rounding energy excess_over excess_rounding fixed holidays hours kind kvarh
     kvarh_basis label max_credit_percent max_increase_percent max_rebate_percent
     max_surcharge_percent min_pf mode months name per percent_per_hundredth pf pf_rounding
@@ -238,7 +238,9 @@ def _choices(choices) -> str:
 
 PF_WHAT = "a power factor greater than 0 and at most 1"
 PF = dict(lo=0, hi=1, lo_open=True, what=PF_WHAT)
-BLOCKS = (5, 10, 15, 30, 60)
+#: Block lengths in minutes for ``per = "interval"``; 1440 is a local day (a daily integration
+#: period), whatever its length on a daylight-saving change.
+BLOCKS = (5, 10, 15, 30, 60, 1440)
 HOURS_WHAT = ('[start, end] in local time: whole hours 0-24 or "HH:MM" text (end exclusive, '
               "start > end wraps past midnight)")
 
@@ -458,6 +460,7 @@ def _mechanism(v: _V, tariff_basis: str) -> Mechanism:
             label=label,
             apply_below_pf=v.number("apply_below_pf", **PF),
             max_increase_percent=v.number("max_increase_percent", **PERCENT),
+            adjusted_rounding=_rounding(v, "adjusted_rounding", "kW"),
         )
         if m.max_credit_percent is not None and not credit:
             v.fail(v.key("max_credit_percent"), "only applies with credit = true")

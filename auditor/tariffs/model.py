@@ -296,7 +296,8 @@ class KvarhExcess(_Clause):
     between ``tan_phi_limit`` and the first tier's ratio at ``price_per_kvarh``, and so on).
     ``per`` works the excess out over the period, in each named window group separately
     (``"window"``), or interval by interval (``"interval"``, in blocks of ``block_minutes``
-    when given) and sums it; ``excess_rounding`` rounds each period's chargeable kvarh.
+    of local time when given; 1440 is a local day) and sums it; ``excess_rounding`` rounds
+    each period's chargeable kvarh.
 
     With ``reference_pf`` (and ``price_per_kwh``) the excess is valued as the active energy it
     stands for: ``max(0, kWh x (reference_pf / PF - 1))`` in each interval or block, priced per
@@ -380,7 +381,8 @@ class PfDemandAdjust(_Clause):
     ``base_pf = 1``, only when PF < 0.96); ``max_increase_percent`` caps the increase at a
     percentage of the demand. ``pf``: ``"energy"`` (the period's energy PF), ``"at_peak"`` (the
     interval PF at the kW peak) or ``"peak_kva"`` (peak kW over peak kVA, which makes billing
-    demand the larger of peak kW and base_pf x peak kVA).
+    demand the larger of peak kW and base_pf x peak kVA). ``adjusted_rounding`` rounds the
+    demand the adjustment changed (a demand left as measured is rounded by ``demand.rounding``).
     """
 
     base_pf: float
@@ -391,6 +393,7 @@ class PfDemandAdjust(_Clause):
     label: str | None = None
     apply_below_pf: float | None = None
     max_increase_percent: float | None = None
+    adjusted_rounding: Rounding | None = None
     kind: str = field(default="pf_demand_adjust", init=False)
 
     @property
