@@ -124,7 +124,8 @@ def _shorten(text: str, width: int) -> str:
 
 
 def table(headers: Sequence[str], rows: Iterable[Sequence[Any]], digits: int | Sequence[int] = 2, *,
-          detail: Sequence[bool] | None = None, wide: bool = False, width: int | None = WIDTH) -> str:
+          detail: Sequence[bool] | None = None, wide: bool = False, width: int | None = WIDTH,
+          right: Sequence[bool] | None = None) -> str:
     """An aligned plain-text table; numbers right-aligned.
 
     Parameters
@@ -141,15 +142,20 @@ def table(headers: Sequence[str], rows: Iterable[Sequence[Any]], digits: int | S
         The most columns a line may take (default :data:`WIDTH`); when the table is wider,
         its longest text columns are shortened with "…", never below :data:`MIN_TEXT` or their
         heading. None: no limit.
+    right
+        Per column, True to right-align it whatever its cells (numbers already formatted as
+        text, with decimals that differ by row).
     """
     np = _numpy()
     headers = list(headers)
     raw = [list(r) for r in rows]  # rows may be a generator: read it once
     per_col = list(digits) if isinstance(digits, Sequence) else [digits] * len(headers)
+    forced = list(right) if right is not None else [False] * len(headers)
     if detail is not None and not wide:
         keep = [i for i, d in enumerate(detail) if not d]
         headers = [headers[i] for i in keep]
         per_col = [per_col[i] for i in keep]
+        forced = [forced[i] for i in keep]
         raw = [[r[i] for i in keep] for r in raw]
     cells = [[fmt(c, per_col[i]) for i, c in enumerate(row)] for row in raw]
     widths = [len(h) for h in headers]
@@ -157,7 +163,7 @@ def table(headers: Sequence[str], rows: Iterable[Sequence[Any]], digits: int | S
         for i, c in enumerate(row):
             widths[i] = max(widths[i], len(c))
     numeric = [
-        all(isinstance(r[i], int | float | np.number) or r[i] is None for r in raw) and bool(raw)
+        forced[i] or (all(isinstance(r[i], int | float | np.number) or r[i] is None for r in raw) and bool(raw))
         for i in range(len(headers))
     ]
     if width is not None and not wide:
