@@ -115,6 +115,7 @@ class PeriodResult:
             "peak_kw": _f(self.peak_kw),
             "peak_kw_at": self.peak_kw_at,
             "peak_kva": _f(self.peak_kva),
+            "peak_kva_at": self.peak_kva_at,
             "peak_kvar": _f(self.peak_kvar),
             "pf_at_peak": _f(self.pf_at_peak),
             "load_factor": _f(self.load_factor),

@@ -57,7 +57,9 @@ Causes (bill-level patterns, tested in this order; see the functions of the same
 ``demand_interval``
     the billed peak matches the demand recomputed over a longer interval (30 or 60 minutes,
     whole aligned blocks of the data's intervals).
-A finding no pattern explains has ``cause = None`` ("unexplained").
+A finding no pattern explains has ``cause = None`` ("unexplained"). :data:`CAUSE_LABELS` gives each
+cause the one name every table, page and letter shows; a bill's ``causes`` are exactly the causes
+of its findings, so the summary of a bill and its findings name the same cause.
 
 Money at stake
 --------------
@@ -115,6 +117,9 @@ from auditor.tariffs.model import Tariff
 __all__ = [
     "BILL_FIELDS",
     "CAUSES",
+    "CAUSE_LABELS",
+    "FIELD_DIGITS",
+    "cause_label",
     "Alternatives",
     "BillCheck",
     "BillRecord",
@@ -143,6 +148,20 @@ ADDITIVE_FIELDS = ENERGY_FIELDS + CHARGE_FIELDS  # sums over intervals: missing 
 CAUSES = ("estimated_data", "multiplier", "period_shift", "lag_plus_lead", "reactive_above_threshold",
           "demand_interval")
 NOT_DISPUTABLE = ("estimated_data", "period_shift")
+#: The name of each cause as tables, pages and the billing query show it (one wording everywhere).
+CAUSE_LABELS = {
+    "estimated_data": "estimated data",
+    "multiplier": "wrong meter multiplier",
+    "period_shift": "shifted bill period",
+    "lag_plus_lead": "leading kvarh counted as lagging",
+    "reactive_above_threshold": "reactive charge above the PF threshold",
+    "demand_interval": "demand over a longer interval",
+    None: "unexplained",
+}
+#: Decimals each bill field is shown with (money always to the cent).
+FIELD_DIGITS = {"kwh": 0, "kvarh": 0, "peak_kw": 2, "peak_kva": 2, "pf": 3, "reactive_charge": 2, "total": 2}
+#: Longest account or invoice number kept (the store's column width).
+NUMBER_MAX = 64
 LONGER_DEMAND_MINUTES = (15, 30, 60)
 # Floating-point slack on tolerance comparisons: a difference exactly at the tolerance is within
 # it even when binary arithmetic lands a hair above (0.85 - 0.84 = 0.010000000000000009).
@@ -170,6 +189,8 @@ class BillRecord:
     pf: float | None = None
     reactive_charge: float | None = None
     total: float | None = None
+    account: str | None = None  # the utility's account number, as printed
+    invoice: str | None = None  # the bill's invoice number, as printed
     source: str | None = None  # file name, or "manual entry"
     line: int | None = None
 
@@ -189,8 +210,8 @@ class BillRecord:
 
     def to_dict(self) -> dict:
         return {"meter": self.meter, "period_start": self.period_start.isoformat(),
-                "period_end": self.period_end.isoformat(), **self.billed(), "source": self.source,
-                "line": self.line}
+                "period_end": self.period_end.isoformat(), "account": self.account, "invoice": self.invoice,
+                **self.billed(), "source": self.source, "line": self.line}
 
 
 @dataclass(frozen=True)
@@ -261,14 +282,15 @@ class Finding:
     cause: str | None
     explanation: str
     money: float
+    expected_at: str | None = None  # peaks: local ISO time of the computed peak's interval start
 
     def to_dict(self) -> dict:
         return {"meter": self.meter, "period_start": self.period_start.isoformat(),
                 "period_end": self.period_end.isoformat(), "field": self.field, "billed": self.billed,
-                "expected": self.expected, "difference": self.difference,
+                "expected": self.expected, "expected_at": self.expected_at, "difference": self.difference,
                 "relative_difference": self.relative_difference, "tolerance": self.tolerance,
-                "severity": self.severity, "cause": self.cause, "explanation": self.explanation,
-                "money": self.money}
+                "severity": self.severity, "cause": self.cause, "cause_label": cause_label(self.cause),
+                "explanation": self.explanation, "money": self.money}
 
 
 @dataclass(frozen=True)
@@ -285,6 +307,15 @@ class BillCheck:
     disputable: float
     warnings: tuple[str, ...]
     details: dict = field(default_factory=dict)  # cause -> its evidence (ratio, days, minutes)
+    expected_at: dict = field(default_factory=dict)  # peak_kw / peak_kva -> local ISO time of the peak
+
+    def cause_labels(self) -> list[str]:
+        """The names of its findings' causes, in the order of :data:`CAUSES`, then
+        "unexplained" if a finding has no recognised cause."""
+        labels = [CAUSE_LABELS[c] for c in self.causes]
+        if any(f.cause is None for f in self.findings):
+            labels.append(CAUSE_LABELS[None])
+        return labels
 
     @property
     def status(self) -> str:
@@ -296,7 +327,8 @@ class BillCheck:
         return {**self.bill.to_dict(), "billed": self.bill.billed(), "expected": _clean(self.expected),
                 "coverage": _num(self.coverage), "estimated_share": _num(self.estimated_share),
                 "compared": self.compared, "status": self.status, "causes": list(self.causes),
-                "cause_details": self.details, "findings": len(self.findings),
+                "cause_labels": self.cause_labels(), "cause_details": self.details,
+                "expected_at": dict(self.expected_at), "findings": len(self.findings),
                 "disputable": self.disputable, "warnings": list(self.warnings)}
 
 
@@ -320,6 +352,11 @@ class Reconciliation:
         return {"tariff": self.tariff_name, "currency": self.currency, "tolerances": self.tolerances.to_dict(),
                 "bills": [c.to_dict() for c in self.checks], "findings": [f.to_dict() for f in self.findings],
                 "total_disputable": round(self.total_disputable, 2), "warnings": list(self.warnings)}
+
+
+def cause_label(cause: str | None) -> str:
+    """The name a cause is shown by (:data:`CAUSE_LABELS`); an unknown key is shown as given."""
+    return CAUSE_LABELS.get(cause, str(cause))
 
 
 def _num(x) -> float | None:
@@ -614,19 +651,22 @@ def _check_one(bill: BillRecord, p: PeriodResult, k: int, tariff: Tariff, alt: A
     """One bill against period ``k`` of the audit: coverage, fields beyond tolerance, their
     causes, the findings with their money, and what the bill makes disputable."""
     expected = expected_figures(p, tariff)
+    peaks_at = {"peak_kw": p.peak_kw_at, "peak_kva": p.peak_kva_at}
     billed = bill.billed()
     label = f"bill {bill.meter} {bill.period_start}..{bill.period_end}"
     coverage, est_share, warnings, comparable = _data_coverage(p, tol, label)
     if not comparable:
-        return BillCheck(bill, expected, coverage, est_share, False, (), (), 0.0, tuple(warnings))
+        return BillCheck(bill, expected, coverage, est_share, False, (), (), 0.0, tuple(warnings),
+                         expected_at=peaks_at)
     up_fig = expected_figures(upper, tariff) if (upper is not None and coverage < 1.0) else None
     raw, upper_of = _beyond_tolerance(billed, expected, up_fig, coverage, tol, label, warnings)
     causes, details = _probable_causes(raw, billed, expected, k, p, tariff, alt, tol, est_share)
     findings = _findings(bill, raw, upper_of, causes, details, p, tariff, billed, expected, tol, interval_minutes)
     disputable = _disputable(findings, billed, _demand_field(tariff))
-    ordered = tuple(c for c in CAUSES if c in details)
+    # the bill's causes are those its findings carry (the details may hold more evidence)
+    ordered = tuple(c for c in CAUSES if any(f.cause == c for f in findings))
     return BillCheck(bill, expected, coverage, est_share, True, tuple(findings), ordered,
-                     round(float(disputable), 2), tuple(warnings), details)
+                     round(float(disputable), 2), tuple(warnings), details, peaks_at)
 
 
 def _data_coverage(p: PeriodResult, tol: Tolerances, label: str) -> tuple[float, float, list[str], bool]:
@@ -762,6 +802,7 @@ def _findings(bill: BillRecord, raw: dict, upper_of: dict, causes: dict, details
             relative_difference=float(diff / e) if e else None, tolerance=float(allowed),
             severity=_severity(cause, money, diff, allowed, tol), cause=cause,
             explanation=_explain(cause, details, p, tariff, billed, expected, interval_minutes), money=money,
+            expected_at={"peak_kw": p.peak_kw_at, "peak_kva": p.peak_kva_at}.get(f),
         ))
     return findings
 

@@ -17,7 +17,7 @@ from datetime import date
 
 import numpy as np
 
-from auditor.render import _clean
+from auditor.render import _clean, local_time
 
 # palette of the dashboard (also in static/style.css)
 INK = "#1d2a33"
@@ -118,12 +118,21 @@ def reactive_by_period(audit: dict, reactive_keys: list[str]) -> dict:
 
 
 def peaks_by_period(audit: dict) -> dict:
+    """Peak kW, kVA and kvar by period; hovering a peak shows when it was (local time, zone
+    named)."""
     periods = audit["periods"]
     labels = [period_label(p) for p in periods]
+    tz = audit.get("timezone")
+
+    def when(key: str) -> list[str]:
+        return [local_time(p.get(key), tz) if p.get(key) else "-" for p in periods]
+
     data = [{"type": "bar", "name": "peak kW", "x": labels, "y": [p["peak_kw"] for p in periods],
-             "marker": {"color": NEUTRAL}, "hovertemplate": "%{x}: %{y:,.1f} kW<extra></extra>"},
+             "customdata": when("peak_kw_at"), "marker": {"color": NEUTRAL},
+             "hovertemplate": "%{x}: %{y:,.1f} kW at %{customdata}<extra></extra>"},
             {"type": "bar", "name": "peak kVA", "x": labels, "y": [p["peak_kva"] for p in periods],
-             "marker": {"color": BEFORE}, "hovertemplate": "%{x}: %{y:,.1f} kVA<extra></extra>"},
+             "customdata": when("peak_kva_at"), "marker": {"color": BEFORE},
+             "hovertemplate": "%{x}: %{y:,.1f} kVA at %{customdata}<extra></extra>"},
             {"type": "scatter", "mode": "lines+markers", "name": "peak kvar (lagging)", "x": labels,
              "y": [p["peak_kvar"] for p in periods], "line": {"color": LIMIT, "width": 1.5},
              "hovertemplate": "%{x}: %{y:,.1f} kvar<extra></extra>"}]

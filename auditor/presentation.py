@@ -1,6 +1,8 @@
 """Presentation shared by the dashboard and the exported documents (report, billing query).
 
-Jinja filters for numbers (thousands separators, fixed decimals, a dash for "no value") and
+Jinja filters for numbers (thousands separators, fixed decimals, a dash for "no value"), for
+instants in a site's local time with the zone named (``localtime``, from
+:func:`auditor.render.local_time`, the one formatting the command line uses too) and
 :func:`document_environment`, the plain Jinja environment (no Flask) that renders the report
 and the billing query from the dashboard's template folder. It sits below both the web layer
 and the services and imports neither.
@@ -12,6 +14,8 @@ from functools import lru_cache
 from pathlib import Path
 
 from markupsafe import Markup
+
+from auditor.render import local_time
 
 DIGITS = {"int": 0, "energy": 0, "power": 1, "pf": 3, "percent": 1, "money": 2}
 
@@ -30,9 +34,12 @@ def num(value, digits: int = 2) -> str:
 
 
 def cell(value, kind: str = "text") -> str:
-    """A table cell by column kind (see :class:`auditor.services.report.Column`)."""
+    """A table cell by column kind (see :class:`auditor.services.report.Column`; ``time`` shows an
+    ISO instant as local wall time with its zone)."""
     if kind == "text":
         return "–" if value is None else str(value)
+    if kind == "time":  # an ISO instant carrying its local offset
+        return localtime(value)
     return num(value, DIGITS.get(kind, 2))
 
 
@@ -64,8 +71,20 @@ def sortkey(value) -> str:
     return repr(x) if math.isfinite(x) else ""
 
 
+def localtime(value, tz: str | None = None, zone: bool = True) -> str:
+    """An instant (ISO text, datetime or epoch seconds) in ``tz``: ``2025-01-14 10:15 CET``;
+    ``–`` for no value or a text that is not a time."""
+    if value is None or value == "":
+        return "–"
+    try:
+        return local_time(value, tz, zone=zone)
+    except (ValueError, TypeError, KeyError):
+        return str(value)
+
+
 def register_filters(filters: dict) -> None:
-    filters.update(num=num, cell=cell, pct=pct, years=years, jsonblock=jsonblock, sortkey=sortkey)
+    filters.update(num=num, cell=cell, pct=pct, years=years, jsonblock=jsonblock, sortkey=sortkey,
+                   localtime=localtime)
 
 
 def web_folder() -> Path:

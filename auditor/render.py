@@ -1,5 +1,10 @@
 """Terminal rendering shared by the commands: a plain aligned table and JSON from one dict.
 
+Tables fit :data:`WIDTH` (120) columns: a command gives each column a ``detail`` flag, and
+only ``--wide`` shows the detail columns; a table still too wide has its longest text cells
+shortened with "…" (numbers are never cut). Times are shown by :func:`local_time`, in the
+site's local time with the zone named (the JSON keeps UTC ISO strings).
+
 numpy is not imported here: a value can only be a numpy scalar once numpy is loaded, so the
 numpy cases are looked up in ``sys.modules`` (``auditor --help`` stays free of numpy).
 """
@@ -8,11 +13,17 @@ from __future__ import annotations
 import json
 import math
 import sys
+import textwrap
 from collections.abc import Iterable, Sequence
-from datetime import date, datetime
+from datetime import UTC, date, datetime
 from typing import Any
 
 import click
+
+#: Terminal columns a table fits in unless ``--wide`` is given.
+WIDTH = 120
+#: Text columns are never shortened below this many characters.
+MIN_TEXT = 10
 
 
 class _NoNumpy:
@@ -71,23 +82,115 @@ def fmt(value: Any, digits: int = 2) -> str:
     return str(value)
 
 
-def table(headers: Sequence[str], rows: Iterable[Sequence[Any]], digits: int = 2) -> str:
-    """An aligned plain-text table; numbers right-aligned."""
+def local_time(value: Any, tz: str | None = None, *, zone: bool = True, seconds: bool = False) -> str:
+    """An instant as local wall time: ``2025-01-14 10:15 CET``.
+
+    ``value`` is an ISO 8601 text (with a UTC offset or ``Z``), an aware or naive (taken as
+    UTC) ``datetime``, or UTC epoch seconds; ``tz`` the IANA zone to show it in (default: the
+    offset the value carries). ``zone`` appends the zone's abbreviation for that instant (CET /
+    CEST, GMT / BST; the numeric offset where a zone has no abbreviation), so a time in the
+    repeated autumn hour stays unambiguous. None or an empty text gives ``-``.
+    """
+    if value is None or value == "":
+        return "-"
+    if isinstance(value, datetime):
+        dt = value
+    elif isinstance(value, int | float) and not isinstance(value, bool):
+        dt = datetime.fromtimestamp(float(value), UTC)
+    else:
+        text = str(value).strip()
+        dt = datetime.fromisoformat(text[:-1] + "+00:00" if text.endswith("Z") else text)
+    if dt.tzinfo is None:
+        dt = dt.replace(tzinfo=UTC)
+    if tz:
+        from zoneinfo import ZoneInfo
+
+        dt = dt.astimezone(ZoneInfo(tz))
+    out = dt.strftime("%Y-%m-%d %H:%M:%S" if seconds else "%Y-%m-%d %H:%M")
+    if zone:
+        out += " " + (dt.tzname() or dt.strftime("%z"))
+    return out
+
+
+def wrap(text: str, indent: str = "", width: int = WIDTH) -> str:
+    """A line of prose (a warning, an explanation) wrapped to ``width`` columns, continuation
+    lines indented under the first line's text."""
+    return textwrap.fill(text, width=width, initial_indent=indent, subsequent_indent=indent + "  ",
+                         break_long_words=False, break_on_hyphens=False)
+
+
+def _shorten(text: str, width: int) -> str:
+    return text if len(text) <= width else text[: max(1, width - 1)] + "…"
+
+
+def table(headers: Sequence[str], rows: Iterable[Sequence[Any]], digits: int | Sequence[int] = 2, *,
+          detail: Sequence[bool] | None = None, wide: bool = False, width: int | None = WIDTH,
+          right: Sequence[bool] | None = None) -> str:
+    """An aligned plain-text table; numbers right-aligned.
+
+    Parameters
+    ----------
+    headers, rows
+        Column headings and rows of cells (numbers, texts, None for "-").
+    digits
+        Decimals of the number cells: one for all columns, or one per column.
+    detail
+        Per column, True for a detail column: left out unless ``wide``.
+    wide
+        Show the detail columns and never shorten a cell.
+    width
+        The most columns a line may take (default :data:`WIDTH`); when the table is wider,
+        its longest text columns are shortened with "…", never below :data:`MIN_TEXT` or their
+        heading. None: no limit.
+    right
+        Per column, True to right-align it whatever its cells (numbers already formatted as
+        text, with decimals that differ by row).
+    """
     np = _numpy()
+    headers = list(headers)
     raw = [list(r) for r in rows]  # rows may be a generator: read it once
-    cells = [[fmt(c, digits) for c in row] for row in raw]
+    per_col = list(digits) if isinstance(digits, Sequence) else [digits] * len(headers)
+    forced = list(right) if right is not None else [False] * len(headers)
+    if detail is not None and not wide:
+        keep = [i for i, d in enumerate(detail) if not d]
+        headers = [headers[i] for i in keep]
+        per_col = [per_col[i] for i in keep]
+        forced = [forced[i] for i in keep]
+        raw = [[r[i] for i in keep] for r in raw]
+    cells = [[fmt(c, per_col[i]) for i, c in enumerate(row)] for row in raw]
     widths = [len(h) for h in headers]
     for row in cells:
         for i, c in enumerate(row):
             widths[i] = max(widths[i], len(c))
     numeric = [
-        all(isinstance(r[i], int | float | np.number) or r[i] is None for r in raw) and raw
+        forced[i] or (all(isinstance(r[i], int | float | np.number) or r[i] is None for r in raw) and bool(raw))
         for i in range(len(headers))
     ]
+    if width is not None and not wide:
+        widths = _fit(widths, headers, numeric, width)
+        cells = [[c if numeric[i] else _shorten(c, widths[i]) for i, c in enumerate(row)] for row in cells]
+
     def line(values: Sequence[str]) -> str:
         return "  ".join(
             v.rjust(widths[i]) if numeric[i] else v.ljust(widths[i]) for i, v in enumerate(values)
         ).rstrip()
-    out = [line(list(headers)), "  ".join("-" * w for w in widths)]
+    out = [line(headers), "  ".join("-" * w for w in widths)]
     out.extend(line(r) for r in cells)
     return "\n".join(out)
+
+
+def _fit(widths: list[int], headers: Sequence[str], numeric: Sequence[bool], width: int) -> list[int]:
+    """Column widths shortened, widest text column first, until the table fits ``width``."""
+    widths = list(widths)
+    floor = [max(MIN_TEXT, len(h)) for h in headers]
+    while sum(widths) + 2 * (len(widths) - 1) > width:
+        text = [i for i in range(len(widths)) if not numeric[i] and widths[i] > floor[i]]
+        if not text:
+            break
+        i = max(text, key=lambda k: widths[k])
+        over = sum(widths) + 2 * (len(widths) - 1) - width
+        others = [widths[k] for k in text if k != i]
+        # cut the widest down to the next widest (or as far as needed), whichever is less
+        target = max(floor[i], widths[i] - over, max(others, default=0))
+        widths[i] = target if target < widths[i] else widths[i] - 1
+    return widths

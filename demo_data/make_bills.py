@@ -18,7 +18,8 @@ Two errors are planted, of different kinds:
    charging every lagging kvarh in the window, although the period's PF is above the threshold
    (0.928) at which the clause charges nothing.
 
-Every other bill is correct (rounded as a bill prints it). Run::
+Every other bill is correct (rounded as a bill prints it). Each bill carries the (invented)
+utility's account number of the meter and an invoice number. Run::
 
     python demo_data/make_bills.py      # rewrites bills_demo.csv beside this script
 """
@@ -34,8 +35,9 @@ import pandas as pd
 
 HERE = Path(__file__).resolve().parent
 OUT = HERE / "bills_demo.csv"
-COLUMNS = ["meter", "period_start", "period_end", "kwh", "kvarh", "peak_kw", "peak_kva", "pf",
-           "reactive_charge", "total"]
+FIGURES = ["kwh", "kvarh", "peak_kw", "peak_kva", "pf", "reactive_charge", "total"]
+COLUMNS = ["meter", "period_start", "period_end", *FIGURES, "account", "invoice"]
+ACCOUNTS = {"KQ-MAIN": "HG-300418-01", "KQ-DOCKS": "HG-300418-02", "AR-01": "HG-512207-01"}
 
 KESTREL_READS = ["2025-01-06", "2025-02-04", "2025-03-05", "2025-04-03", "2025-05-06", "2025-06-04",
                  "2025-07-03", "2025-08-05", "2025-09-03", "2025-10-06", "2025-11-04", "2025-12-03"]
@@ -77,8 +79,14 @@ def rows_of(meter: str, result, tariff) -> list[dict]:
         rows.append({"meter": meter, "period_start": p.start.isoformat(), "period_end": p.end.isoformat(),
                      "kwh": round(e["kwh"]), "kvarh": round(e["kvarh"]), "peak_kw": round(e["peak_kw"], 1),
                      "peak_kva": round(e["peak_kva"], 1), "pf": round(e["pf"], 2),
-                     "reactive_charge": round(e["reactive_charge"], 2), "total": round(e["total"], 2)})
+                     "reactive_charge": round(e["reactive_charge"], 2), "total": round(e["total"], 2),
+                     "account": ACCOUNTS[meter], "invoice": invoice_number(meter, p.end)})
     return rows
+
+
+def invoice_number(meter: str, issued: date) -> str:
+    """The invented utility's invoice number: year and month of issue, then the account's serial."""
+    return f"HGI-{issued:%y%m}-{ACCOUNTS[meter][3:9]}{ACCOUNTS[meter][-1]}"
 
 
 def bills_for(meter: str, frame: pd.DataFrame, tariff, *, tz: str, interval_minutes: int) -> list[dict]:
@@ -119,7 +127,7 @@ def build(store) -> pd.DataFrame:
         d = load_meter(store, meter)
         rows += bills_for(meter, d.frame, tariff, tz=d.timezone, interval_minutes=d.interval_minutes)
     df = pd.DataFrame(rows, columns=COLUMNS)
-    assert np.isfinite(df[COLUMNS[3:]].to_numpy(float)).all()
+    assert np.isfinite(df[FIGURES].to_numpy(float)).all()
     return df
 
 

@@ -21,7 +21,7 @@ from tests.audit_helpers import TZ, interval_frame, june_frame, tariff
 
 PERIOD_KEYS = {
     "start", "end", "kwh", "kvarh_lag", "kvarh_lead", "pf", "tan_phi", "peak_kw", "peak_kw_at",
-    "peak_kva", "peak_kvar", "pf_at_peak", "load_factor", "coverage", "estimated_intervals",
+    "peak_kva", "peak_kva_at", "peak_kvar", "pf_at_peak", "load_factor", "coverage", "estimated_intervals",
     "charges", "reactive_total", "total",
 }
 

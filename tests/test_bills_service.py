@@ -175,7 +175,13 @@ def test_demo_finds_the_two_planted_errors_and_the_file_is_reproducible(tmp_path
     assert_allclose(checks["KQ-MAIN"]["bills"][7]["cause_details"]["multiplier"], 1.25, rtol=1e-3)
     # the bills over the gaps in the demo data are compared with a warning, not a finding
     assert any("2025-10-06" in w and "missing" in w for w in checks["KQ-MAIN"]["warnings"])
-    assert "multiplier" in out["text"] and "reactive_above_threshold" in out["text"]
+    # the summary names each cause as the findings do
+    assert "wrong meter multiplier" in out["text"] and "reactive charge above the PF threshold" in out["text"]
+    assert [f["cause_label"] for f in checks["AR-01"]["findings"]] == ["reactive charge above the PF threshold"] * 2
+    assert checks["AR-01"]["bills"][5]["cause_labels"] == ["reactive charge above the PF threshold"]
+    # the numbers the utility printed travel with each bill
+    assert checks["KQ-MAIN"]["bills"][7]["account"] == "HG-300418-01"
+    assert checks["KQ-MAIN"]["bills"][7]["invoice"] == "HGI-2509-3004181"
     again = demo_bill_check(store)
     assert again["data"]["import"]["status"] == "unchanged"
     rebuilt = tmp_path / "bills.csv"

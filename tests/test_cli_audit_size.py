@@ -12,7 +12,7 @@ from auditor.services.demo import load_demo
 from auditor.store import open_store
 
 PERIOD_KEYS = {"start", "end", "kwh", "kvarh_lag", "kvarh_lead", "pf", "tan_phi", "peak_kw", "peak_kw_at",
-               "peak_kva", "peak_kvar", "pf_at_peak", "load_factor", "coverage", "estimated_intervals", "charges",
+               "peak_kva", "peak_kva_at", "peak_kvar", "pf_at_peak", "load_factor", "coverage", "estimated_intervals", "charges",
                "reactive_total", "total"}
 
 

@@ -100,7 +100,7 @@ def test_meter_page_charts_render(server, page):
 
 def test_portfolio_sorts(server, page):
     page.goto(f"{server}/", wait_until="networkidle")
-    meters = page.locator("#portfolio tbody tr td:nth-child(2)")
+    meters = page.locator("#portfolio tbody tr td:nth-child(1)")
     first = meters.all_inner_texts()
     assert first[0] == "KQ-MAIN"  # worst PF first
     page.locator("#portfolio th", has_text="Latest PF").click()  # ascending (already so)

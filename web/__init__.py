@@ -27,7 +27,8 @@ DEFAULTS = {
     "AUTH_TOKEN": None,  # when set, every request needs it (cookie after ?token= or the login form)
     "SERVED_BEYOND_LOOPBACK": False,  # set by the server when it listens beyond loopback (login wording)
     "DEFAULT_TARIFF": "harrowgate_industrial_tou",
-    "TARIFF_DIRS": None,  # default: <instance>/tariffs
+    "TARIFF_DIRS": None,  # default: <instance>/tariffs (the first is where the Tariffs page keeps tariffs)
+    "TARIFF_FILES": [],  # tariff files given to the server (auditor serve --tariff FILE), by path
     "MAX_CONTENT_LENGTH": 50 * 1024 * 1024,  # upload limit, bytes
     "WTF_CSRF_TIME_LIMIT": None,  # tokens live as long as the session
     "SESSION_COOKIE_HTTPONLY": True,
@@ -50,6 +51,13 @@ def _secret_key(instance: Path) -> str:
     return key
 
 
+def instance_folder(config: dict | None = None) -> Path:
+    """The instance folder: ``config["INSTANCE_PATH"]`` or ``<user data dir>/pf-auditor/web``.
+    It holds the secret key and the dashboard's own tariffs (``tariffs/*.toml``)."""
+    given = (config or {}).get("INSTANCE_PATH")
+    return Path(given or Path(platformdirs.user_data_dir(APP_DIR_NAME)) / "web").resolve()
+
+
 def create_app(config: dict | None = None, store=None) -> Flask:
     """Build the dashboard.
 
@@ -58,13 +66,14 @@ def create_app(config: dict | None = None, store=None) -> Flask:
     config : dict, optional
         Overrides of :data:`DEFAULTS` and Flask settings; ``INSTANCE_PATH`` chooses the
         instance folder (default: ``<user data dir>/pf-auditor/web``) that holds the secret key
-        and extra tariffs (``tariffs/*.toml``).
+        and extra tariffs (``tariffs/*.toml``); ``TARIFF_FILES`` adds tariff files by path (a
+        file's name is its stem; it wins over a tariff of the same name).
     store : auditor.store.Store, optional
         The database; default ``open_store(config["DATABASE_URL"])``.
     """
     config = dict(config or {})
-    instance = Path(config.pop("INSTANCE_PATH", None)
-                    or Path(platformdirs.user_data_dir(APP_DIR_NAME)) / "web").resolve()
+    instance = instance_folder(config)
+    config.pop("INSTANCE_PATH", None)
     instance.mkdir(parents=True, exist_ok=True)
     app = Flask(__name__, instance_path=str(instance), instance_relative_config=True)
     app.config.update(DEFAULTS)

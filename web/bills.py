@@ -10,29 +10,43 @@ from flask import Blueprint, Response, flash, redirect, render_template, request
 from flask_wtf import FlaskForm
 from flask_wtf.file import FileField, FileRequired
 from werkzeug.utils import secure_filename
-from wtforms import DateField, FloatField, SelectField
-from wtforms.validators import DataRequired, NumberRange, Optional
+from wtforms import DateField, FloatField, SelectField, StringField
+from wtforms.validators import DataRequired, Length, NumberRange, Optional
 
+from auditor.bills import FIELD_DIGITS, NUMBER_MAX
 from auditor.errors import AuditorError
-from auditor.services.bills import add_bill, check_bills, dispute_summary, import_bills, list_bills
+from auditor.services.bills import (
+    FIELD_NAMES,
+    add_bill,
+    check_bills,
+    dispute_summary,
+    import_bills,
+    list_bills,
+)
 from auditor.services.meters import list_meters
-from auditor.web.helpers import chosen_tariff, page_message, store
+from auditor.web.helpers import chosen_tariff, page_message, store, tariff_choices
 
 bp = Blueprint("bills", __name__)
 
-FIELD_LABELS = (("kwh", "kWh"), ("kvarh", "kvarh"), ("peak_kw", "peak kW"), ("peak_kva", "peak kVA"),
-                ("pf", "PF"), ("reactive_charge", "reactive"), ("total", "total"))
+FIELD_LABELS = (("kwh", "kWh"), ("kvarh", "kvarh"), ("peak_kw", "Peak (kW)"), ("peak_kva", "Peak (kVA)"),
+                ("pf", "PF (0–1)"), ("reactive_charge", "Reactive charge"), ("total", "Total"))
+#: Columns of the bills table that wait behind "All columns".
+DETAIL_FIELDS = ("kvarh", "peak_kva")
 
 
 class BillForm(FlaskForm):
     meter = SelectField("Meter", validators=[DataRequired()])
     period_start = DateField("Period start", validators=[DataRequired()])
     period_end = DateField("Period end (exclusive)", validators=[DataRequired()])
-    kwh = FloatField("kWh", validators=[Optional(), NumberRange(min=0)])
-    kvarh = FloatField("kvarh", validators=[Optional(), NumberRange(min=0)])
-    peak_kw = FloatField("Peak kW", validators=[Optional(), NumberRange(min=0)])
-    peak_kva = FloatField("Peak kVA", validators=[Optional(), NumberRange(min=0)])
-    pf = FloatField("PF", validators=[Optional(), NumberRange(min=0.0001, max=1)])
+    account = StringField("Account number", validators=[Optional(), Length(max=NUMBER_MAX)],
+                          description="As printed on the bill.")
+    invoice = StringField("Invoice number", validators=[Optional(), Length(max=NUMBER_MAX)])
+    kwh = FloatField("Energy (kWh)", validators=[Optional(), NumberRange(min=0)])
+    kvarh = FloatField("Reactive energy (kvarh)", validators=[Optional(), NumberRange(min=0)])
+    peak_kw = FloatField("Peak demand (kW)", validators=[Optional(), NumberRange(min=0)])
+    peak_kva = FloatField("Peak demand (kVA)", validators=[Optional(), NumberRange(min=0)])
+    pf = FloatField("Power factor (fraction, 0–1)", validators=[Optional(), NumberRange(min=0.0001, max=1)],
+                    description="e.g. 0.92, not 92")
     reactive_charge = FloatField("Reactive charge", validators=[Optional()])
     total = FloatField("Total", validators=[Optional()])
 
@@ -65,8 +79,9 @@ def _page(meter: str | None, form=None, upload=None, status: int = 200, error: s
         except AuditorError as exc:
             error = error or exc.message
     return render_template("bills/index.html", title="Bills", meters=meters, meter=meter, check=check,
-                           tariff_name=tariff_name, form=form or f, upload=upload or u, error=error,
-                           field_labels=FIELD_LABELS), status
+                           tariff_name=tariff_name, tariffs=tariff_choices(), form=form or f, upload=upload or u,
+                           error=error, field_labels=FIELD_LABELS, detail_fields=DETAIL_FIELDS, digits=FIELD_DIGITS,
+                           field_names=FIELD_NAMES), status
 
 
 @bp.get("/bills")
@@ -80,6 +95,7 @@ def add():
     if not form.validate():
         return _page(form.meter.data, form=form, status=400)
     fields = {k: getattr(form, k).data for k, _ in FIELD_LABELS}
+    fields.update(account=(form.account.data or "").strip() or None, invoice=(form.invoice.data or "").strip() or None)
     try:
         res = add_bill(store(), form.meter.data, form.period_start.data, form.period_end.data, **fields)
     except AuditorError as exc:

@@ -38,9 +38,14 @@ def _page(form: UploadForm, status: int = 200, outcome: dict | None = None):
             b["file_name"] = b["short_name"]
         for e in b["errors"]:
             e["message"] = page_message(str(e.get("message") or ""))
+    quality = quality_overview(s)
+    zones = sorted({q["timezone"] for q in quality})
+    # a batch belongs to no one site: its times are shown in the sites' zone when they share
+    # one, else in UTC (named either way)
     return render_template("imports.html", form=form, batches=batches,
                            rejected=[b for b in batches if b["status"] == "rejected"],
-                           quality=quality_overview(s), outcome=outcome), status
+                           quality=quality, outcome=outcome, batch_zone=zones[0] if len(zones) == 1 else "UTC",
+                           several_zones=len(zones) > 1), status
 
 
 @bp.get("/imports")

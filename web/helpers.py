@@ -4,6 +4,7 @@ from __future__ import annotations
 import logging
 import re
 import threading
+from pathlib import Path
 
 from flask import Flask, current_app, request
 
@@ -19,7 +20,16 @@ def store():
 
 
 def tariff_dirs() -> list[str]:
-    return list(current_app.config["TARIFF_DIRS"] or [])
+    """Where the dashboard's tariffs come from, beside the shipped examples: its tariff folders,
+    then the tariff files given to the server (a later entry wins over an earlier name)."""
+    return [*(current_app.config["TARIFF_DIRS"] or []), *(current_app.config.get("TARIFF_FILES") or [])]
+
+
+def own_tariff_dir() -> Path:
+    """The folder the Tariffs page keeps uploaded and edited tariffs in (the instance folder's
+    ``tariffs/``, or the first of ``TARIFF_DIRS``)."""
+    dirs = current_app.config["TARIFF_DIRS"] or [str(Path(current_app.instance_path) / "tariffs")]
+    return Path(dirs[0])
 
 
 def tariff_choices() -> list[portfolio.TariffChoice]:
@@ -60,8 +70,6 @@ def warm_cache(app: Flask) -> None:
 def tariff_for_scenario(saved: dict) -> tuple[str, Tariff]:
     """The dashboard's tariff a saved scenario was computed under: by the name its request
     gave (a file stem or path), else by the tariff's title."""
-    from pathlib import Path
-
     from auditor.errors import NotFoundError
 
     asked = str(saved.get("request", {}).get("tariff") or "")

@@ -13,6 +13,7 @@ from auditor.services.cache import cached_audit
 from auditor.services.correction import list_scenarios
 from auditor.services.meter_charts import meter_chart_data
 from auditor.services.portfolio import tariff_threshold_pf
+from auditor.web import tables
 from auditor.web.helpers import chosen_tariff, store, tariff_choices, tariff_for_scenario
 
 bp = Blueprint("meters", __name__)
@@ -41,7 +42,8 @@ def meter(meter: str):
     audit = ma.to_dict()
     profile = meter_chart_data(s, meter, target)
     thresholds = tariff_threshold_pf(tariff)
-    cols, rows = rp.period_rows(audit, rp.period_columns(audit, list(ma.result.charge_keys)))
+    cols = tables.audit_columns(audit, list(ma.result.charge_keys))
+    rows = tables.rows_of(cols, audit["periods"])
     figs = [("pf", charts.pf_by_period(audit, thresholds)),
             ("reactive", charts.reactive_by_period(audit, list(ma.result.reactive_keys))),
             ("peaks", charts.peaks_by_period(audit)),

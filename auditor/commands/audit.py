@@ -10,25 +10,57 @@ from auditor.commands.options import (
     json_option,
     meter_option,
     tariff_option,
+    wide_option,
 )
-from auditor.render import echo_json, fmt, table
+from auditor.render import echo_json, fmt, local_time, table, wrap
 
 
-def audit_table(periods: list[dict], currency: str) -> str:
+def period_text(p: dict) -> str:
+    """``2025-03`` for a calendar month, else ``2025-03-05→2025-04-03`` (end exclusive)."""
+    s, e = p["start"], p["end"]
+    y, m, d = (int(x) for x in s.split("-"))
+    nxt = f"{y + (m == 12):04d}-{m % 12 + 1:02d}-01"
+    return s[:7] if d == 1 and e == nxt else f"{s}→{e}"
+
+
+def audit_table(periods: list[dict], currency: str, tz: str | None = None, wide: bool = False) -> str:
+    """The audit by period: headline columns (energy, PF, the kW peak and its local time,
+    reactive and total charges, coverage); ``wide`` adds the lagging and leading kvarh, tan φ,
+    the kVA peak and its time, peak kvar, PF at the peak, load factor, estimated intervals and
+    each charge of the tariff. Money in ``currency``, times in ``tz``."""
     keys: list[str] = []
     for p in periods:
         for k in p["charges"]:
             if k not in keys:
                 keys.append(k)
-    headers = ["period", "kWh", "kvarh lag", "kvarh lead", "PF", "peak kW", "peak kVA", "cover %",
-               *[f"{k} {currency}" for k in keys], f"reactive {currency}", f"total {currency}"]
+    cols = [  # (heading, digits, detail)
+        ("period", 0, False), ("kWh", 0, False), ("kvarh lag", 0, True), ("kvarh lead", 0, True),
+        ("PF", 3, False), ("tan φ", 3, True), ("peak kW", 1, False), ("peak kW at", 0, False),
+        ("peak kVA", 1, True), ("peak kVA at", 0, True), ("peak kvar", 1, True), ("PF at peak", 3, True),
+        ("load factor %", 1, True), ("estimated", 0, True),
+        *[(k, 2, True) for k in keys],
+        (f"reactive {currency}", 2, False), (f"total {currency}", 2, False), ("cover %", 1, False),
+    ]
     rows = []
     for p in periods:
-        rows.append([f"{p['start']}→{p['end']}", p["kwh"], p["kvarh_lag"], p["kvarh_lead"],
-                     None if p["pf"] is None else round(p["pf"], 3), p["peak_kw"], p["peak_kva"],
-                     None if p["coverage"] is None else 100 * p["coverage"],
-                     *[p["charges"].get(k, 0.0) for k in keys], p["reactive_total"], p["total"]])
-    return table(headers, rows, digits=2)
+        rows.append([period_text(p), p["kwh"], p["kvarh_lag"], p["kvarh_lead"], p["pf"], p["tan_phi"],
+                     p["peak_kw"], local_time(p.get("peak_kw_at"), tz), p["peak_kva"],
+                     local_time(p.get("peak_kva_at"), tz), p["peak_kvar"], p["pf_at_peak"],
+                     None if p["load_factor"] is None else 100 * p["load_factor"], p["estimated_intervals"],
+                     *[p["charges"].get(k, 0.0) for k in keys], p["reactive_total"], p["total"],
+                     None if p["coverage"] is None else 100 * p["coverage"]])
+    return table([c[0] for c in cols], rows, [c[1] for c in cols], detail=[c[2] for c in cols], wide=wide)
+
+
+def charge_totals(periods: list[dict], currency: str) -> str:
+    """Each charge of the tariff summed over the periods, one line (the table shows them by
+    period only with ``--wide``)."""
+    sums: dict[str, float] = {}
+    for p in periods:
+        for k, v in p["charges"].items():
+            sums[k] = sums.get(k, 0.0) + (v or 0.0)
+    return wrap("Charges over these periods (" + currency + "): "
+                + ", ".join(f"{k} {fmt(v)}" for k, v in sums.items()))
 
 
 @click.command("audit")
@@ -39,9 +71,10 @@ def audit_table(periods: list[dict], currency: str) -> str:
               help="Day of month billing periods start (default: calendar months).")
 @click.option("--periods", "periods_file", type=click.Path(dir_okay=False), metavar="FILE",
               help="CSV of billing periods (header start,end; local dates, end exclusive).")
+@wide_option
 @json_option
 @pass_ctx
-def audit_cmd(ctx: Context, meter, tariff, start, end, billing_day, periods_file, json_out):
+def audit_cmd(ctx: Context, meter, tariff, start, end, billing_day, periods_file, wide, json_out):
     """Energy, demand and every reactive charge per billing period."""
     from auditor.services.audit import audit_meter, read_periods_file
 
@@ -55,13 +88,17 @@ def audit_cmd(ctx: Context, meter, tariff, start, end, billing_day, periods_file
     if json_out:
         echo_json(d)
         return 0
-    click.echo(f"Meter {d['meter']} ({d['site']}, {d['timezone']}) under tariff {d['tariff']!r}")
-    click.echo(audit_table(d["periods"], d["currency"]))
+    click.echo(wrap(f"Meter {d['meter']} ({d['site']}) under tariff {d['tariff']!r}; times are local, "
+                    f"{d['timezone']}"))
+    click.echo(audit_table(d["periods"], d["currency"], d["timezone"], wide=wide))
     t = d["totals"]
-    click.echo(f"\nTotal {fmt(t.get('total'))} {d['currency']}, of which reactive / power factor "
-               f"{fmt(t.get('reactive_total'))} {d['currency']}; energy PF {fmt(t.get('pf'), 3)}")
+    click.echo()
+    if not wide and d["periods"]:
+        click.echo(charge_totals(d["periods"], d["currency"]))
+    click.echo(wrap(f"Total {fmt(t.get('total'))} {d['currency']}, of which reactive / power factor "
+                    f"{fmt(t.get('reactive_total'))} {d['currency']}; energy PF {fmt(t.get('pf'), 3)}"))
     for w in d["warnings"]:
-        click.echo(f"warning: {w}")
+        click.echo(wrap(f"warning: {w}"))
     return 0
 
 

@@ -6,10 +6,20 @@ from pathlib import Path
 import click
 
 from auditor.commands.context import Context, pass_ctx
-from auditor.commands.options import NounGroup, json_option, meter_option, tariff_option
-from auditor.render import echo_json, fmt, table
+from auditor.commands.options import (
+    NounGroup,
+    json_option,
+    meter_option,
+    tariff_option,
+    wide_option,
+)
+from auditor.render import echo_json, fmt, local_time, table, wrap
 
-_FIELDS = ("kwh", "kvarh", "peak_kw", "peak_kva", "pf", "reactive_charge", "total")
+#: The bill figures as the tables name them, with their decimals (money to the cent); the same
+#: decimals as ``auditor.bills.FIELD_DIGITS`` (kept here so that ``--help`` loads no numpy).
+FIELD_HEADS = {"kwh": ("kWh", 0), "kvarh": ("kvarh", 0), "peak_kw": ("peak kW", 2), "peak_kva": ("peak kVA", 2),
+               "pf": ("PF", 3), "reactive_charge": ("reactive", 2), "total": ("total", 2)}
+_FIELDS = tuple(FIELD_HEADS)
 
 
 @click.group("bills", cls=NounGroup)
@@ -24,7 +34,8 @@ def bills_group():
 @json_option
 @pass_ctx
 def import_cmd(ctx: Context, file: Path, profile: Path | None, json_out: bool):
-    """Import a bills CSV (meter,period_start,period_end,kwh,kvarh,peak_kw,peak_kva,pf,reactive_charge,total)."""
+    """Import a bills CSV (meter,period_start,period_end,kwh,kvarh,peak_kw,peak_kva,pf,reactive_charge,total,
+    account,invoice)."""
     from auditor.services.bills import import_bills
 
     res = import_bills(ctx.store, file, profile)
@@ -37,12 +48,25 @@ def import_cmd(ctx: Context, file: Path, profile: Path | None, json_out: bool):
     return 0
 
 
+def bills_table(rows: list[dict], wide: bool = False) -> str:
+    """Stored bills: meter, account and invoice numbers, period, the billed figures; ``wide``
+    adds kvarh, peak kVA and the source file and line."""
+    detail_fields = ("kvarh", "peak_kva")
+    headers = ["meter", "account", "invoice", "from", "to", *[FIELD_HEADS[f][0] for f in _FIELDS], "source"]
+    digits = [0, 0, 0, 0, 0, *[FIELD_HEADS[f][1] for f in _FIELDS], 0]
+    detail = [False] * 5 + [f in detail_fields for f in _FIELDS] + [True]
+    body = [[r["meter"], r.get("account") or "-", r.get("invoice") or "-", r["period_start"], r["period_end"],
+             *[r[f] for f in _FIELDS], f"{r['source']}" + (f":{r['line']}" if r["line"] else "")] for r in rows]
+    return table(headers, body, digits, detail=detail, wide=wide)
+
+
 @bills_group.command("list")
 @meter_option("Only this meter's bills.", required=False)
+@wide_option
 @json_option
 @pass_ctx
-def list_cmd(ctx: Context, meter: str | None, json_out: bool):
-    """The stored bills."""
+def list_cmd(ctx: Context, meter: str | None, wide: bool, json_out: bool):
+    """The stored bills (money in the tariff's currency, to the cent)."""
     from auditor.services.bills import list_bills
 
     rows = list_bills(ctx.store, meter)
@@ -52,9 +76,7 @@ def list_cmd(ctx: Context, meter: str | None, json_out: bool):
     if not rows:
         click.echo("no bills stored (auditor bills import FILE)")
         return 0
-    click.echo(table(["meter", "from", "to", "kWh", "kvarh", "peak kW", "peak kVA", "PF", "reactive", "total", "source"],
-                     [[r["meter"], r["period_start"], r["period_end"], *[r[f] for f in _FIELDS],
-                       f"{r['source']}" + (f":{r['line']}" if r["line"] else "")] for r in rows]))
+    click.echo(bills_table(rows, wide))
     return 0
 
 
@@ -84,28 +106,53 @@ def _tolerances(kw: dict):
                            charge_abs=kw.get("tolerance_charge_abs"))
 
 
-def check_text(d: dict) -> str:
+def _figure(field: str, value) -> str:
+    return fmt(value, FIELD_HEADS.get(field, ("", 2))[1])
+
+
+def check_text(d: dict, wide: bool = False) -> str:
+    """The bill check as text: one row per bill (its causes by the same names as the findings),
+    then the findings (a peak with the local time of the computed peak), each cause explained.
+    ``wide`` adds the account, the number of findings, the severity, the tolerance and the
+    period ends."""
     cur = d["currency"]
-    out = [f"Bills of meter {d['meter']} ({d['site']}) against tariff {d['tariff']!r}"]
-    out.append(table(["from", "to", "status", "coverage %", "findings", "causes", f"in question {cur}"],
-                     [[b["period_start"], b["period_end"], b["status"],
-                       None if b["coverage"] is None else 100 * b["coverage"], b["findings"],
-                       ", ".join(b["causes"]) or "-", b["disputable"]] for b in d["bills"]]))
+    tz = d.get("timezone")
+    accounts = sorted({b["account"] for b in d["bills"] if b.get("account")})
+    out = [wrap(f"Bills of meter {d['meter']} ({d['site']})"
+                + (f", account {', '.join(accounts)}" if accounts else "")
+                + f" against tariff {d['tariff']!r}; money in {cur}" + (f", times local ({tz})" if tz else ""))]
+    out.append(table(["from", "to", "account", "invoice", "status", "coverage %", "findings", "causes",
+                      f"in question {cur}"],
+                     [[b["period_start"], b["period_end"], b.get("account") or "-", b.get("invoice") or "-",
+                       b["status"].replace("_", " "), None if b["coverage"] is None else 100 * b["coverage"],
+                       b["findings"], ", ".join(b.get("cause_labels") or []) or "-", b["disputable"]]
+                      for b in d["bills"]],
+                     [0, 0, 0, 0, 0, 1, 0, 0, 2], detail=[False, False, True, False, False, False, True, False, False],
+                     wide=wide))
     if d["findings"]:
+        peaks = any(f.get("expected_at") for f in d["findings"])
         out.append("")
-        out.append(table(["from", "field", "billed", "expected", "difference", "severity", "cause", f"money {cur}"],
-                         [[f["period_start"], f["field"], f["billed"], f["expected"], f["difference"], f["severity"],
-                           f["cause"] or "unexplained", f["money"]] for f in d["findings"]], digits=3))
+        out.append(table(["from", "to", "field", "billed", "expected", "computed peak at", "difference",
+                          "tolerance", "severity", "cause", f"money {cur}"],
+                         [[f["period_start"], f["period_end"], f["field"], _figure(f["field"], f["billed"]),
+                           _figure(f["field"], f["expected"]), local_time(f["expected_at"], tz) if f.get("expected_at")
+                           else "", _figure(f["field"], f["difference"]), _figure(f["field"], f["tolerance"]),
+                           f["severity"], f.get("cause_label") or f["cause"] or "unexplained", f["money"]]
+                          for f in d["findings"]],
+                         [0] * 10 + [2], detail=[False, True, False, False, False, not peaks, False, True, True, False,
+                                                 False],
+                         right=[False, False, False, True, True, False, True, True, False, False, True], wide=wide))
         seen = set()
         for f in d["findings"]:
             key = (f["period_start"], f["cause"])
             if key not in seen:
                 seen.add(key)
-                out.append(f"  {f['period_start']}: {f['explanation']}")
+                label = f.get("cause_label") or f["cause"] or "unexplained"
+                out.append(wrap(f"{f['period_start']}, {label}: {f['explanation']}", "  "))
     else:
         out.append("\nNo difference beyond tolerance.")
     out.append(f"\nTotal in question: {fmt(d['total_disputable'])} {cur}")
-    out += [f"warning: {w}" for w in d["warnings"]]
+    out += [wrap(f"warning: {w}") for w in d["warnings"]]
     return "\n".join(out)
 
 
@@ -113,9 +160,10 @@ def check_text(d: dict) -> str:
 @meter_option()
 @tariff_option()
 @_tolerance_options
+@wide_option
 @json_option
 @pass_ctx
-def check_cmd(ctx: Context, meter: str, tariff: str, json_out: bool, **kw):
+def check_cmd(ctx: Context, meter: str, tariff: str, wide: bool, json_out: bool, **kw):
     """Compare every bill of a meter with the same period computed from its data and the tariff.
 
     Exits 0 even when there are findings.
@@ -126,7 +174,7 @@ def check_cmd(ctx: Context, meter: str, tariff: str, json_out: bool, **kw):
     if json_out:
         echo_json(d)
     else:
-        click.echo(check_text(d))
+        click.echo(check_text(d, wide))
     return 0
 
 

@@ -4,7 +4,7 @@ from __future__ import annotations
 import click
 
 from auditor.commands.context import Context, pass_ctx
-from auditor.commands.meters import SPAN_HEADERS
+from auditor.commands.meters import meters_table
 from auditor.commands.options import json_option
 from auditor.render import echo_json, table
 
@@ -39,9 +39,7 @@ def demo_cmd(ctx: Context, no_serve: bool, port: int, json_out: bool):
     for f in summary["files"]:
         click.echo(f"  {f['status']:<9} {f['path'].split('/')[-1]}  {f['message']}")
     click.echo("")
-    click.echo(table(["meter", "site", *SPAN_HEADERS, "intervals", "coverage %"],
-                     [[m["meter"], m["site"], m["first"], m["last"], m["intervals"], 100 * (m["coverage"] or 0)]
-                      for m in summary["meters"]]))
+    click.echo(meters_table(summary["meters"]))
     click.echo(f"\nAudit under the tariff {demo.DEMO_TARIFF!r} (an invented utility):")
     rows = []
     for meter, a in audits.items():

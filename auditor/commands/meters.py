@@ -4,8 +4,8 @@ from __future__ import annotations
 import click
 
 from auditor.commands.context import Context, pass_ctx
-from auditor.commands.options import NounGroup, json_option, timezone_option
-from auditor.render import echo_json, table
+from auditor.commands.options import NounGroup, json_option, timezone_option, wide_option
+from auditor.render import echo_json, local_time, table
 
 #: Column headings of the data span: both ends are instants, the end exclusive (the end of the
 #: last interval), as in the JSON keys ``first`` and ``last``.
@@ -17,10 +17,22 @@ def meters_group():
     """Meters: list them (the default) and set their CT × VT multiplier."""
 
 
+def meters_table(meters: list[dict], wide: bool = False) -> str:
+    """Meters with their data span in each site's local time (zone named on every time);
+    ``wide`` adds the time zone, interval length, multiplier and interval count."""
+    headers = ["meter", "site", "timezone", *SPAN_HEADERS, "minutes", "multiplier", "intervals", "coverage %"]
+    detail = [False, False, True, False, False, True, True, False, False]
+    rows = [[m["meter"], m["site"], m["timezone"], local_time(m["first"], m["timezone"]),
+             local_time(m["last"], m["timezone"]), m.get("interval_minutes"), m.get("multiplier"),
+             m["intervals"], None if m["coverage"] is None else 100 * m["coverage"]] for m in meters]
+    return table(headers, rows, [0, 0, 0, 0, 0, 0, 3, 0, 2], detail=detail, wide=wide)
+
+
 @meters_group.command("list")
+@wide_option
 @json_option
 @pass_ctx
-def meters_list(ctx: Context, json_out: bool):
+def meters_list(ctx: Context, wide: bool, json_out: bool):
     """List meters with their data span (from the first interval's start until the last
     interval's end) and coverage."""
     from auditor.services.meters import list_meters
@@ -32,9 +44,7 @@ def meters_list(ctx: Context, json_out: bool):
     if not meters:
         click.echo("no meters yet: auditor import FILE")
         return 0
-    click.echo(table(["meter", "site", "timezone", *SPAN_HEADERS, "intervals", "coverage %"],
-                     [[m["meter"], m["site"], m["timezone"], m["first"] or "-", m["last"] or "-",
-                       m["intervals"], None if m["coverage"] is None else 100 * m["coverage"]] for m in meters]))
+    click.echo(meters_table(meters, wide))
     return 0
 
 

@@ -10,6 +10,11 @@ def json_option(f):
                         help="Machine-readable output (the same data as the table).")(f)
 
 
+def wide_option(f):
+    return click.option("--wide", "wide", is_flag=True,
+                        help="Every column (the default fits 120 characters: the headline columns).")(f)
+
+
 def _check_timezone(ctx: click.Context, param: click.Parameter, value: str | None) -> str | None:
     """A bad time zone is a usage error (exit 2), caught before any file is read."""
     if value is None:

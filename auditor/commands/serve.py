@@ -3,10 +3,12 @@ from __future__ import annotations
 
 import ipaddress
 import socket
+from pathlib import Path
 
 import click
 
 from auditor.commands.context import Context, pass_ctx
+from auditor.commands.options import tariff_option
 from auditor.errors import UsageError
 
 TOKEN_ENV = "AUDITOR_TOKEN"
@@ -28,6 +30,38 @@ def check_binding(host: str, token: str | None) -> None:
                          "so that every request must carry it")
     if token is not None and len(token) < 12:
         raise UsageError("the access token must be at least 12 characters")
+
+
+def looks_like_path(value: str) -> bool:
+    """A tariff given as a file (a path, or a name ending .toml) rather than by name."""
+    return value.lower().endswith(".toml") or "/" in value or "\\" in value or Path(value).is_file()
+
+
+def tariff_config(tariff: str, instance: Path) -> dict:
+    """The dashboard settings for ``serve --tariff``: a file is checked and offered by its stem
+    (it wins over a tariff of the same name); a name must be a shipped example or one of the
+    dashboard's own tariffs. Anything else is a usage error (exit 2), never ignored."""
+    from auditor.errors import TariffError
+    from auditor.services.portfolio import tariff_choices
+
+    if looks_like_path(tariff):
+        path = Path(tariff).expanduser()
+        if not path.is_file():
+            raise UsageError(f"--tariff {tariff}: no such tariff file")
+        from auditor.tariffs import load_tariff
+
+        try:
+            load_tariff(path)
+        except TariffError as exc:
+            raise UsageError(f"--tariff: {exc.message}") from None
+        return {"TARIFF_FILES": [str(path.resolve())], "DEFAULT_TARIFF": path.stem}
+    choices = {c.name: c for c in tariff_choices([instance / "tariffs"])}
+    if tariff not in choices:
+        raise UsageError(f"--tariff {tariff}: no tariff of that name (known: {', '.join(sorted(choices))}); "
+                         "give a tariff file's path to serve your own")
+    if choices[tariff].error:
+        raise UsageError(f"--tariff {tariff}: {choices[tariff].error}")
+    return {"DEFAULT_TARIFF": tariff}
 
 
 def make_server(store, host: str = "127.0.0.1", port: int = 8050, token: str | None = None,
@@ -79,13 +113,17 @@ def serve_dashboard(store, host: str = "127.0.0.1", port: int = 8050, token: str
               help="TCP port to listen on (0: any free port).")
 @click.option("--token", metavar="TOKEN", envvar=TOKEN_ENV, show_envvar=True,
               help="Access token every request must carry (cookie after a first ?token=TOKEN or the login page).")
-@click.option("--tariff", "default_tariff", metavar="NAME",
-              help="Tariff the pages open with (a shipped example's name or one in the instance folder).")
+@tariff_option(required=False, help="Tariff the pages open with: a TOML file (offered beside the others by its "
+                                   "file name), or the name of a shipped example or of a tariff kept in the dashboard.")
 @pass_ctx
-def serve_cmd(ctx: Context, host: str, port: int, token: str | None, default_tariff: str | None):
+def serve_cmd(ctx: Context, host: str, port: int, token: str | None, tariff: str | None):
     """Serve the dashboard (waitress)."""
     check_binding(host, token)
-    config = {"DEFAULT_TARIFF": default_tariff} if default_tariff else {}
+    config = {}
+    if tariff:
+        from auditor.web import instance_folder
+
+        config = tariff_config(tariff, instance_folder())
     serve_dashboard(ctx.store, host=host, port=port, token=token or None, config=config)
     return 0
 

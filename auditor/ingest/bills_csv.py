@@ -4,14 +4,16 @@ The contract
 ------------
 A header row, then one bill per row::
 
-    meter,period_start,period_end,kwh,kvarh,peak_kw,peak_kva,pf,reactive_charge,total
+    meter,period_start,period_end,kwh,kvarh,peak_kw,peak_kva,pf,reactive_charge,total,account,invoice
 
 ``meter``, ``period_start`` and ``period_end`` are required columns; the others are optional
 (a column may be left out, a cell may be empty: the bill does not show that figure). Dates are
 ISO ``YYYY-MM-DD`` in the site's local calendar, the end exclusive (a March bill runs
 2025-03-01 to 2025-04-01). Numbers use a decimal point; energies in kWh / kvarh, demands in
 kW / kVA, ``pf`` a ratio (0, 1], charges in the tariff's currency (negative for a credit).
-``kvarh`` is the reactive energy the bill counts. An unknown or repeated column, a bad date or
+``kvarh`` is the reactive energy the bill counts. ``account`` and ``invoice`` are the utility's
+account and invoice numbers as printed (text, kept as written: leading zeros and letters stay;
+at most 64 characters, no control characters). An unknown or repeated column, a bad date or
 number, an end not after the start, or two rows for the same meter and period are errors
 naming the file, line and column; all problems of a file are collected (the first 50) before
 anything is stored. Whether the meter exists is checked where the store is known
@@ -45,13 +47,14 @@ from dataclasses import dataclass, field
 from datetime import date, datetime, timedelta
 from pathlib import Path
 
-from auditor.bills import BILL_FIELDS, BillRecord
+from auditor.bills import BILL_FIELDS, NUMBER_MAX, BillRecord
 from auditor.errors import InputError, Problem, ProfileError, UsageError
 from auditor.ingest.frame import MAX_PROBLEMS
 
 __all__ = ["BillProfile", "BillsRead", "CONTRACT_COLUMNS", "load_bill_profile", "read_bills", "validate_bill"]
 
-CONTRACT_COLUMNS = ("meter", "period_start", "period_end") + BILL_FIELDS
+NUMBER_FIELDS = ("account", "invoice")  # text as printed on the bill, optional
+CONTRACT_COLUMNS = ("meter", "period_start", "period_end") + BILL_FIELDS + NUMBER_FIELDS
 REQUIRED_COLUMNS = ("meter", "period_start", "period_end")
 QUANTITY_FIELDS = ("kwh", "kvarh", "peak_kw", "peak_kva")
 SIGNED_FIELDS = ("reactive_charge", "total")  # credits may be negative
@@ -91,11 +94,12 @@ class BillProfile:
     header_line: int = 1
     description: str = ""
     source: str | None = None
+    numbers: dict[str, str] = field(default_factory=dict)  # account / invoice -> header name
 
 
 CONTRACT = BillProfile(name="bill contract", start_column="period_start", end_column="period_end",
                        columns={f: f for f in BILL_FIELDS}, factors={f: 1.0 for f in BILL_FIELDS},
-                       meter_column="meter")
+                       meter_column="meter", numbers={f: f for f in NUMBER_FIELDS})
 
 
 @dataclass(frozen=True)
@@ -288,6 +292,14 @@ def _row_record(cells: dict[str, str], line: int, profile: BillProfile, file: st
             problems.append(Problem(f"{name} {bad}", line, col))
             continue
         values[name] = v
+    for name, col in profile.numbers.items():
+        text = (cells.get(col) or "").strip()
+        if len(text) > NUMBER_MAX:
+            problems.append(Problem(f"{name} number longer than {NUMBER_MAX} characters", line, col))
+        elif any(not ch.isprintable() for ch in text):
+            problems.append(Problem(f"{name} number holds a control character", line, col))
+        else:
+            values[name] = text or None
     if len(problems) > n_before:
         return None
     return BillRecord(meter=meter, period_start=dates["start"], period_end=dates["end"], source=Path(file).name,
@@ -298,16 +310,20 @@ def validate_bill(meter: str, period_start, period_end, source: str = "manual en
     """A bill from typed-in values, checked like a CSV row; problems name the field.
 
     Dates may be ``date`` objects or ISO texts; figures numbers, numeric texts, or None/"" (not
-    shown on the bill). Raises InputError (file ``source``, column = the field) on any problem.
+    shown on the bill); ``account`` and ``invoice`` texts. Raises InputError (file ``source``,
+    column = the field) on any problem.
     """
-    unknown = [k for k in fields if k not in BILL_FIELDS]
+    unknown = [k for k in fields if k not in BILL_FIELDS + NUMBER_FIELDS]
     if unknown:
-        raise InputError(source, [Problem("unknown bill field; fields: " + ", ".join(BILL_FIELDS), None, k)
-                                  for k in unknown])
+        raise InputError(source, [Problem("unknown bill field; fields: " + ", ".join(BILL_FIELDS + NUMBER_FIELDS),
+                                          None, k) for k in unknown])
     cells = {"meter": str(meter or "").strip()}
     for role, v in (("period_start", period_start), ("period_end", period_end)):
         cells[role] = v.isoformat() if isinstance(v, date) else str(v or "")
     for k, v in fields.items():
+        if k in NUMBER_FIELDS:
+            cells[k] = "" if v is None else str(v)
+            continue
         cells[k] = "" if v is None else (repr(float(v)) if isinstance(v, int | float) and not isinstance(v, bool) else str(v))
     problems: list[Problem] = []
     rec = _row_record(cells, None, CONTRACT, source, problems)

@@ -7,7 +7,8 @@ period, updated if any figure differs (the result lists what changed) and left a
 A bill for a meter the database does not know is an error naming its line and column (bills
 are checked against interval data, so the meter's data must be imported first). A bill whose
 period overlaps a stored bill of the same meter with other dates is kept beside it, with a
-warning; the check audits overlapping bills separately.
+warning; the check audits overlapping bills separately. The account and invoice numbers are
+stored as given; a later file or entry without them keeps the numbers already stored.
 """
 from __future__ import annotations
 
@@ -17,9 +18,9 @@ from pathlib import Path
 
 from sqlalchemy import select
 
-from auditor.bills import BILL_FIELDS, BillRecord, Tolerances, check
+from auditor.bills import BILL_FIELDS, FIELD_DIGITS, BillRecord, Tolerances, cause_label, check
 from auditor.errors import InputError, Problem, UsageError
-from auditor.ingest.bills_csv import load_bill_profile, read_bills, validate_bill
+from auditor.ingest.bills_csv import NUMBER_FIELDS, load_bill_profile, read_bills, validate_bill
 from auditor.services.audit import resolve_tariff
 from auditor.services.meters import load_meter
 from auditor.store import Store
@@ -35,7 +36,7 @@ DEMO_METERS = ("KQ-MAIN", "KQ-DOCKS", "AR-01")
 
 def _record_of(row: Bill, meter: str, file_name: str | None) -> BillRecord:
     return BillRecord(meter=meter, period_start=row.period_start, period_end=row.period_end,
-                      **{f: getattr(row, f) for f in BILL_FIELDS},
+                      **{f: getattr(row, f) for f in BILL_FIELDS + NUMBER_FIELDS},
                       source=file_name or "manual entry", line=row.source_line)
 
 
@@ -62,13 +63,15 @@ def _store_records(s, records: list[BillRecord], file_row: BillFile | None, mete
                 warnings.append(f"bill {r.meter} {r.period_start}..{r.period_end} overlaps the stored bill "
                                 f"{overlap.period_start}..{overlap.period_end}; both are kept")
             s.add(Bill(meter_id=m.id, period_start=r.period_start, period_end=r.period_end,
-                       **{f: getattr(r, f) for f in BILL_FIELDS},
+                       **{f: getattr(r, f) for f in BILL_FIELDS + NUMBER_FIELDS},
                        source_file_id=file_row.id if file_row else None, source_line=r.line,
                        created_at=now, updated_at=now))
             inserted += 1
             continue
         changes = {f: {"was": getattr(row, f), "now": getattr(r, f)} for f in BILL_FIELDS
                    if not _same(getattr(row, f), getattr(r, f))}
+        changes.update({f: {"was": getattr(row, f), "now": getattr(r, f)} for f in NUMBER_FIELDS
+                        if getattr(r, f) is not None and getattr(r, f) != getattr(row, f)})
         if not changes:
             unchanged += 1
             continue
@@ -225,16 +228,28 @@ def _fmt(x, digits: int = 2) -> str:
 
 
 def _digits(field: str) -> int:
-    return 3 if field == "pf" else (0 if field in ("kwh", "kvarh") else 2)
+    return FIELD_DIGITS.get(field, 2)
+
+
+def _bill_numbers(b: dict) -> str:
+    """``invoice 123, account 55-7`` as far as the bill gives them (empty when it gives none)."""
+    return ", ".join(f"{k} {b[k]}" for k in ("invoice", "account") if b.get(k))
 
 
 def _summary_rows(d: dict) -> list[dict]:
+    from auditor.render import local_time
+
+    bills = {(b["period_start"], b["period_end"]): b for b in d["bills"]}
     rows = []
     for f in d["findings"]:
+        bill = bills.get((f["period_start"], f["period_end"]), {})
+        at = f.get("expected_at")
         rows.append({"period": f"{f['period_start']} to {f['period_end']}", "field": FIELD_NAMES.get(f["field"], f["field"]),
+                     "invoice": bill.get("invoice") or "", "account": bill.get("account") or "",
                      "billed": _fmt(f["billed"], _digits(f["field"])), "expected": _fmt(f["expected"], _digits(f["field"])),
+                     "expected_at": local_time(at, d.get("timezone")) if at else "",
                      "difference": _fmt(f["difference"], _digits(f["field"])), "severity": f["severity"],
-                     "money": _fmt(f["money"]), "explanation": f["explanation"]})
+                     "money": _fmt(f["money"]), "cause": cause_label(f["cause"]), "explanation": f["explanation"]})
     return rows
 
 
@@ -266,11 +281,21 @@ def _query_context(d: dict) -> dict:
                "for review and correction, not as a certified statement. We would be grateful for a corrected bill "
                "or an explanation of each difference.")
     disputed = [b for b in d["bills"] if b.get("disputable")]
+    accounts = sorted({b["account"] for b in d["bills"] if b.get("account")})
+    if accounts:
+        intro = f"Account {', '.join(accounts)}. " + intro
+    if d.get("timezone"):
+        intro += f" Times are local ({d['timezone']})."
+    per_bill = []
+    for b in disputed:
+        numbers = _bill_numbers(b)
+        per_bill.append(f"{b['period_start']} to {b['period_end']}" + (f" ({numbers})" if numbers else "")
+                        + f": {_fmt(b['disputable'])} {cur}")
     return {
         "meter": str(d.get("meter")), "currency": cur, "intro": intro, "closing": closing,
         "rows": _summary_rows(d),
         "total": f"Amount in question: {_fmt(d.get('total_disputable'))} {cur}",
-        "per_bill": [f"{b['period_start']} to {b['period_end']}: {_fmt(b['disputable'])} {cur}" for b in disputed],
+        "per_bill": per_bill,
         "notes": list(d.get("warnings", [])),
     }
 
@@ -300,7 +325,7 @@ def demo_bill_check(store: Store) -> dict:
             if b["status"] != "findings":
                 continue
             fields = [f for f in c["findings"] if f["period_start"] == b["period_start"]]
-            causes = ", ".join(b["causes"]) or "unexplained"
+            causes = ", ".join(b["cause_labels"]) or "unexplained"
             lines.append(f"    {b['period_start']}..{b['period_end']}: {', '.join(f['field'] for f in fields)}"
                          f" (cause: {causes}; {b['disputable']:,.2f} {cur})")
             lines.append(f"      {fields[0]['explanation']}")

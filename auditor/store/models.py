@@ -209,6 +209,10 @@ class Bill(Base):
     pf: Mapped[float | None] = mapped_column(Float)
     reactive_charge: Mapped[float | None] = mapped_column(Float)
     total: Mapped[float | None] = mapped_column(Float)
+    # the utility's account and invoice numbers as printed (text: they may hold letters,
+    # dashes and leading zeros); None where the bill file or the entry did not give them
+    account: Mapped[str | None] = mapped_column(String(64))
+    invoice: Mapped[str | None] = mapped_column(String(64))
     source_file_id: Mapped[int | None] = mapped_column(ForeignKey("bill_file.id"))
     source_line: Mapped[int | None] = mapped_column(Integer)
     created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))

@@ -33,14 +33,17 @@ class TariffChoice:
 def tariff_choices(extra_dirs: Iterable[str | Path] = ()) -> list[TariffChoice]:
     """The shipped example tariffs and the ``*.toml`` files of ``extra_dirs``, by name.
 
-    A file in ``extra_dirs`` overrides an example of the same name. A file that does not
-    validate is listed with its error rather than hidden.
+    ``extra_dirs`` holds folders and single tariff files; a later entry overrides an earlier one
+    (and any example) of the same name. A file that does not validate is listed with its error
+    rather than hidden.
     """
     found: dict[str, Path] = {p.stem: p for p in sorted(EXAMPLES_DIR.glob("*.toml"))}
     for d in extra_dirs:
         d = Path(d)
         if d.is_dir():
             found.update({p.stem: p for p in sorted(d.glob("*.toml"))})
+        elif d.is_file():
+            found[d.stem] = d
     out = []
     for name, path in sorted(found.items()):
         try:

@@ -1,5 +1,6 @@
 // Dashboard behaviour: draw the charts from their JSON data blocks, sort tables, toggle the
-// bank fields of the scenario form. No inline scripts anywhere (the CSP forbids them).
+// bank fields of the scenario form, fit the charts to the paper when printing. No inline
+// scripts anywhere (the CSP forbids them).
 (function () {
   "use strict";
 
@@ -91,7 +92,32 @@
     });
   }
 
+  // On paper a chart drawn for the screen would run past the page: before printing, each is
+  // redrawn at most as wide as the printable width of an A4 page (186 mm ≈ 700 px), and
+  // redrawn for the screen afterwards.
+  var PRINT_WIDTH = 680;
+  function chartsForPrint(printing) {
+    if (typeof Plotly === "undefined") { return; }
+    document.querySelectorAll("[data-figure][data-drawn]").forEach(function (el) {
+      if (printing) {
+        Plotly.relayout(el, {width: Math.min(el.clientWidth || PRINT_WIDTH, PRINT_WIDTH)});
+      } else {
+        Plotly.relayout(el, {width: null, autosize: true});
+      }
+    });
+  }
+
+  function printHooks() {
+    window.addEventListener("beforeprint", function () { chartsForPrint(true); });
+    window.addEventListener("afterprint", function () { chartsForPrint(false); });
+    if (window.matchMedia) {
+      var mq = window.matchMedia("print");
+      var onChange = function (e) { chartsForPrint(e.matches); };
+      if (mq.addEventListener) { mq.addEventListener("change", onChange); } else if (mq.addListener) { mq.addListener(onChange); }
+    }
+  }
+
   document.addEventListener("DOMContentLoaded", function () {
-    drawCharts(); sortTables(); bankFields(); busyForms(); confirmForms(); autoSubmit();
+    drawCharts(); sortTables(); bankFields(); busyForms(); confirmForms(); autoSubmit(); printHooks();
   });
 })();
