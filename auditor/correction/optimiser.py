@@ -215,7 +215,7 @@ def optimise(frame: pd.DataFrame, tariff, *, tz: str, interval_minutes: int,
     if sensitivity:
         sens = _sensitivity(frame, tariff, prepare_kwargs, bank, target_pf, interval_minutes, costs,
                             site, leading_pf_limit, fig["annual_savings"], fig["mean_rated"],
-                            fig["price"], fig["year_factor"])
+                            fig["price"], fig["year_factor"], fig["loss_reduction_kwh"])
     return _result(bank, target_pf, tariff, before, fig, sens, costs, candidates=table,
                    extra_warnings=extra)
 

@@ -197,6 +197,8 @@ class ScenarioResult:
             "warnings": list(self.warnings),
             "cautions": list(self.cautions),
         }
+        out.update(f.extras())
+        out["cost_inputs"] = self.costs.to_dict()
         if self.candidates is not None:
             out["candidates"] = [dict(c) for c in self.candidates]
         return out
@@ -207,7 +209,7 @@ class ScenarioResult:
 # --------------------------------------------------------------------------------------------
 def _finance_for(bank: BankDesign, annual_savings: float, mean_rated_kvar: float,
                  price_per_kwh: float, costs: CostInputs, *, capex_scale: float = 1.0,
-                 price_scale: float = 1.0) -> tuple[FinanceResult, float]:
+                 price_scale: float = 1.0, loss_reduction_kwh: float = 0.0) -> tuple[FinanceResult, float]:
     capex_value = capex_scale * finance.capex(costs, bank.total_kvar,
                                               automatic=bank.kind == "automatic", detuned=bank.detuned)
     w_per_kvar = costs.loss_w_per_kvar_detuned if bank.detuned else costs.loss_w_per_kvar
@@ -217,6 +219,8 @@ def _finance_for(bank: BankDesign, annual_savings: float, mean_rated_kvar: float
         annual_om_value=finance.annual_om(costs, capex_value),
         annual_loss_cost=loss_kwh * price_per_kwh * price_scale,
         life_years=costs.life_years, discount_rate=costs.discount_rate, escalation=costs.escalation,
+        costs=costs, loss_reduction_value=loss_reduction_kwh * price_per_kwh * price_scale,
+        loss_reduction_kwh_value=loss_reduction_kwh,
     )
     return result, loss_kwh
 
@@ -237,7 +241,7 @@ def _scaled_frame(frame: pd.DataFrame, factor: float) -> pd.DataFrame:
 def _sensitivity(frame, tariff, prepare_kwargs: dict, bank: BankDesign, target_pf: float,
                  interval_minutes: int, costs: CostInputs, site: SiteElectrical,
                  leading_pf_limit: float | None, annual_savings: float, mean_rated_kvar: float,
-                 price: float, year_factor: float) -> tuple[dict, ...]:
+                 price: float, year_factor: float, loss_reduction_kwh: float = 0.0) -> tuple[dict, ...]:
     rows = []
 
     def row(factor: str, change: float, res: FinanceResult, savings: float) -> dict:
@@ -252,17 +256,22 @@ def _sensitivity(frame, tariff, prepare_kwargs: dict, bank: BankDesign, target_p
                          leading_pf_limit=leading_pf_limit, system_voltage_v=site.nominal_voltage_v)
         savings, _ = _savings(before, run.result, year_factor)
         rated = float(np.mean(run.output_kvar)) / bank.output_factor(site.nominal_voltage_v)
-        res, _ = _finance_for(bank, savings, rated, price, costs)
+        # I²R losses at a scaled load scale with its square
+        res, _ = _finance_for(bank, savings, rated, price, costs,
+                              loss_reduction_kwh=loss_reduction_kwh * (1.0 + change) ** 2)
         rows.append(row("load", change, res, savings))
     for change in SENSITIVITY_STEPS:
         # prices: every charge is price × quantity, so savings and loss cost scale together
         res, _ = _finance_for(bank, annual_savings, mean_rated_kvar, price, costs,
-                              price_scale=1.0 + change)
+                              price_scale=1.0 + change, loss_reduction_kwh=loss_reduction_kwh)
         rows.append(row("prices", change, res, annual_savings * (1.0 + change)))
     for change in SENSITIVITY_STEPS:
         res, _ = _finance_for(bank, annual_savings, mean_rated_kvar, price, costs,
-                              capex_scale=1.0 + change)
+                              capex_scale=1.0 + change, loss_reduction_kwh=loss_reduction_kwh)
         rows.append(row("capex", change, res, annual_savings))
+    base, _ = _finance_for(bank, annual_savings, mean_rated_kvar, price, costs,
+                           loss_reduction_kwh=loss_reduction_kwh)
+    rows.extend(finance.item_sensitivity(base, costs))
     return tuple(rows)
 
 
@@ -282,7 +291,6 @@ def evaluate_prepared(prepared, before, tariff, *, interval_minutes: int, bank: 
     factor = bank.output_factor(site.nominal_voltage_v)
     mean_output = float(np.mean(run.output_kvar)) if run.output_kvar.size else 0.0
     mean_rated = mean_output / factor
-    fin, loss_kwh = _finance_for(bank, annual_savings, mean_rated, price, costs)
     leading = _leading_keys(tariff)
     lead_increase = None
     if leading:
@@ -298,11 +306,15 @@ def evaluate_prepared(prepared, before, tariff, *, interval_minutes: int, bank: 
     net_after = float(np.sum(run.kvarh_lag - run.kvarh_lead))
     pf1, pf2 = _energy_pf(kwh, net_before), _energy_pf(kwh, net_after)
     line_loss = 1.0 - (pf1 / pf2) ** 2 if pf1 and pf2 else None
+    loss_reduction = finance.loss_reduction_kwh(kwh * year_factor, line_loss, costs.network_loss_percent)
+    fin, loss_kwh = _finance_for(bank, annual_savings, mean_rated, price, costs,
+                                 loss_reduction_kwh=loss_reduction)
     return dict(
         run=run, year_factor=year_factor, audited_days=days, annual_savings=annual_savings,
         savings_by_charge=by_charge, finance=fin, loss_kwh=loss_kwh, screening=screening,
         mean_output=mean_output, mean_rated=mean_rated, price=price, pf_before=pf1, pf_after=pf2,
         line_loss=line_loss, peak_before=_peak_kva(before), peak_after=_peak_kva(run.result),
+        loss_reduction_kwh=loss_reduction,
     )
 
 
@@ -396,7 +408,7 @@ def run_scenario(frame: pd.DataFrame, tariff, *, tz: str, interval_minutes: int,
     if sensitivity:
         sens = _sensitivity(frame, tariff, prepare_kwargs, bank, target_pf, interval_minutes, costs,
                             site, leading_pf_limit, figures["annual_savings"], figures["mean_rated"],
-                            figures["price"], figures["year_factor"])
+                            figures["price"], figures["year_factor"], figures["loss_reduction_kwh"])
     return _result(bank, target_pf, tariff, before, figures, sens, costs)
 
 
