@@ -3,6 +3,14 @@ from __future__ import annotations
 
 import click
 
+from auditor.commands.case import (
+    RATE,
+    RATE_HELP,
+    cover_of,
+    cover_options,
+    finance_costs,
+    finance_options,
+)
 from auditor.commands.context import Context, pass_ctx
 from auditor.commands.options import NounGroup
 from auditor.render import echo_json, fmt, table
@@ -61,23 +69,30 @@ def render_case(d: dict) -> str:
 @click.option("--capex-per-kvar", type=click.FloatRange(min=0), help="Installed cost per kvar.")
 @click.option("--capex-fixed", type=click.FloatRange(min=0), help="Fixed installed cost.")
 @click.option("--life-years", type=click.IntRange(1, 60), help="Economic life (default 15).")
-@click.option("--discount-rate", type=click.FloatRange(-0.5, 1.0), help="Fraction a year (0.08 = 8 %).")
-@click.option("--escalation", type=click.FloatRange(-0.5, 1.0), help="Tariff price escalation, fraction a year.")
+@click.option("--discount-rate", type=RATE, help=f"Discount rate, {RATE_HELP}; default 8%.")
+@click.option("--escalation", type=RATE, help=f"Tariff price escalation, {RATE_HELP}; default 3%.")
+@finance_options
 @click.option("--from", "start", type=click.DateTime(["%Y-%m-%d"]), metavar="YYYY-MM-DD",
               help="First local day, inclusive (default: the start of the data).")
 @click.option("--to", "end", type=click.DateTime(["%Y-%m-%d"]), metavar="YYYY-MM-DD",
               help="Last local day, exclusive (default: the end of the data).")
 @click.option("--save", "save_as", metavar="NAME", help="Save the scenario under NAME.")
+@cover_options
 @click.option("--json", "json_out", is_flag=True, help="Machine-readable output (the same data as the table).")
 @pass_ctx
 def size_cmd(ctx: Context, meter, site, mode, tariff, target_pf, fixed_kvar, steps, optimize, detuning_percent,
-             leading_pf_limit, capacitor_rated_voltage_v, capex_per_kvar, capex_fixed, life_years, discount_rate, escalation, start, end, save_as, json_out):
+             leading_pf_limit, capacitor_rated_voltage_v, capex_per_kvar, capex_fixed, life_years, discount_rate, escalation, start, end, save_as, json_out,
+             **case_kwargs):
     """Size power factor correction and cost the case."""
     from auditor.services.correction import SizeRequest, save_scenario, size_meter
 
     costs = {k: v for k, v in (("capex_per_kvar", capex_per_kvar), ("capex_fixed", capex_fixed),
                                ("life_years", life_years), ("discount_rate", discount_rate),
                                ("escalation", escalation)) if v is not None}
+    costs.update(finance_costs(case_kwargs))
+    cover = cover_of(case_kwargs)
+    if cover and not save_as:
+        raise click.UsageError("--client, --project and --author go on a saved case: add --save NAME")
     req = SizeRequest(meter=meter or "", tariff=tariff, target_pf=target_pf, fixed_kvar=fixed_kvar, steps=steps,
                       optimize=optimize, detuning_percent=float(detuning_percent), costs=costs,
                       leading_pf_limit=leading_pf_limit, capacitor_rated_voltage_v=capacitor_rated_voltage_v,
@@ -103,6 +118,10 @@ def size_cmd(ctx: Context, meter, site, mode, tariff, target_pf, fixed_kvar, ste
     d = case.to_dict()
     if save_as:
         d["saved_as"] = save_scenario(ctx.store, save_as, case)["name"]
+        if cover:
+            from auditor.services.report import set_scenario_cover
+
+            d["cover"] = set_scenario_cover(ctx.store, save_as, **cover)
     if json_out:
         echo_json(d)
     else:

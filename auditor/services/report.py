@@ -35,7 +35,7 @@ from auditor.tariffs import Tariff, describe_tariff
 
 __all__ = ["Column", "ReportData", "build_report", "build_case", "period_columns", "period_rows",
            "scenario_rows", "render_csv", "render_xlsx", "render_html", "render_pdf", "write_report",
-           "write_case", "FORMATS", "DOCUMENT_FORMATS", "PAPERS", "DISCLAIMER", "scenario_cover",
+           "write_case", "write_document", "FORMATS", "DOCUMENT_FORMATS", "PAPERS", "DISCLAIMER", "scenario_cover",
            "set_scenario_cover", "summary_rows", "assumption_rows", "recommendation"]
 
 #: Formats of the meter page's exports (kept as they were) and of the case document.
@@ -942,6 +942,12 @@ def _write(out: Path, data: bytes) -> Path:
     except OSError as exc:
         raise UsageError(f"cannot write {out} ({exc.strerror})") from None
     return out
+
+
+def write_document(report: ReportData, out: str | Path, *, paper: str = "a4") -> Path:
+    """Write an already gathered report in the format ``out``'s suffix names."""
+    out = Path(out)
+    return _write(out, render(report, format_of(out), _check_paper(paper)))
 
 
 def write_report(store: Store, meter: str, tariff: str | Path | Tariff, out: str | Path,
