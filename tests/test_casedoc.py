@@ -263,9 +263,7 @@ def test_specification_and_rules_render_when_present(demo_db, tmp_path):
     from openpyxl import load_workbook
 
     from auditor.services import report as rp
-    from auditor.services.correction import get_scenario
 
-    saved = get_scenario(demo_db, "KQ-DOCKS optimised") if False else None  # noqa: F841
     base = rp.build_case(demo_db, "demo fixed 150", with_profile=False)
     result = json.loads(json.dumps(base.scenario))
     result["screening"]["rules"] = [
@@ -318,7 +316,7 @@ def test_html_case_document_sections_and_cover(demo_db, case, tmp_path):
     html = out.read_text(encoding="utf-8")
     for sid in ("cover", "summary", "specification", "audit", "charts", "finance", "screening", "quality",
                 "cautions", "method"):
-        assert f'<section class="sheet' in html and f'id="{sid}"' in html
+        assert '<section class="sheet' in html and f'id="{sid}"' in html
     assert "J. Mbeki" in html  # the cover changed from the report command is stored
     from auditor.services.report import scenario_cover
 
