@@ -54,7 +54,7 @@ def _args(exe: str, profile: Path, out: Path, page: Path) -> list[str]:
             "--disable-sync", "--disable-default-apps", "--mute-audio", "--hide-scrollbars",
             "--proxy-server=127.0.0.1:9", "--proxy-bypass-list=<-loopback>",  # no network at all
             f"--user-data-dir={profile}", "--run-all-compositor-stages-before-draw",
-            "--virtual-time-budget=30000", "--no-pdf-header-footer", "--window-size=1280,2000",
+            "--virtual-time-budget=3000", "--no-pdf-header-footer", "--window-size=1280,2000",
             f"--print-to-pdf={out}", page.as_uri()]
     if hasattr(os, "geteuid") and os.geteuid() == 0:
         args.insert(2, "--no-sandbox")  # Chromium refuses to run its sandbox as root
