@@ -137,3 +137,45 @@ def test_printed_comparison_fits_the_page(browser, documents):
         assert page.evaluate(OVERFLOW) == []
     finally:
         page.close()
+
+
+@pytest.fixture(scope="module")
+def server(demo_db, documents, tmp_path_factory):
+    import threading
+
+    from auditor.commands.serve import make_server
+
+    srv = make_server(demo_db, "127.0.0.1", 0, config={"INSTANCE_PATH": str(tmp_path_factory.mktemp("inst")),
+                                                        "WARM_CACHE": False})
+    thread = threading.Thread(target=srv.run, daemon=True)
+    thread.start()
+    try:
+        yield f"http://127.0.0.1:{srv.effective_port}"
+    finally:
+        srv.close()
+        thread.join(timeout=10)
+
+
+def test_compare_page_draws_its_chart_and_fits_the_screen(browser, server):
+    from urllib.parse import quote
+
+    page = browser.new_page()
+    errors: list[str] = []
+    page.on("pageerror", lambda e: errors.append(str(e)))
+    try:
+        page.set_viewport_size({"width": 1280, "height": 800})
+        page.goto(f"{server}/scenarios", wait_until="networkidle")
+        page.click("#compare-link")
+        for name in (DEMO_SCENARIO, "browser docks 3x10", "browser main 4x50"):
+            page.check(f"input[name=scenario][value='{name}']")
+        page.click("#compare-form button[type=submit]")
+        page.wait_for_url("**/compare?scenario=*")
+        page.wait_for_function("document.querySelectorAll('[data-figure][data-drawn] .main-svg').length >= 1")
+        assert page.locator("#side-by-side thead th").count() == 4
+        assert page.evaluate("document.documentElement.scrollWidth") <= 1280
+        assert errors == []
+        page.goto(f"{server}/scenarios/{quote(DEMO_SCENARIO)}", wait_until="networkidle")
+        assert page.locator("#export-pdf").is_visible() and page.locator("#cover-form").is_visible()
+        assert errors == []
+    finally:
+        page.close()

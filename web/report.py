@@ -104,13 +104,13 @@ def compare():
     """Pick two to four saved scenarios and see them side by side."""
     saved = list_scenarios(store())
     names = _chosen()
-    ctx = {"saved": saved, "chosen": names, "cmp": None, "chart": None, "error": None}
+    ctx = {"saved": saved, "chosen": names, "cmp": None, "figure": None, "error": None}
     if names:
         if not 2 <= len(names) <= 4:
             ctx["error"] = f"Choose two to four scenarios to compare (you chose {len(names)})."
         else:
             cmp = cp.compare_scenarios(store(), names)
-            ctx.update(cmp=cmp, chart=charts.figure_json(charts.cumulative_cash_flows(cmp)))
+            ctx.update(cmp=cmp, figure=charts.figure_json(charts.cumulative_cash_flows(cmp)))
     return render_template("compare.html", **ctx), (400 if ctx["error"] else 200)
 
 

@@ -487,6 +487,8 @@ def screening_verdict(case: dict) -> str:
 
 def _design_words(bank: dict) -> str:
     label = bank.get("label") or bank.get("kind") or "design"
+    if "detuned" in label:
+        return label
     det = bank.get("detuning")
     if isinstance(det, dict) and det.get("reactor_percent"):
         label += f", detuned {det['reactor_percent']:g} %"
