@@ -16,6 +16,22 @@ from auditor.commands.options import NounGroup
 from auditor.render import echo_json, fmt, table
 
 
+def _finance_items(d: dict, cur: str) -> list[str]:
+    """The optional finance items of a case, one line each (apart from the tariff saving)."""
+    out = []
+    if d.get("incentive"):
+        out.append(f"Incentive {fmt(d['incentive'])} {cur} in year {d.get('incentive_year', 0)}")
+    if d.get("replacement_cost"):
+        out.append(f"Replacement of cells or contactors {fmt(d['replacement_cost'])} {cur} in year {d['replacement_year']}")
+    if d.get("tax_rate"):
+        out.append(f"Profit tax {100 * d['tax_rate']:.1f} %, straight-line depreciation over {d.get('depreciation_years')} years")
+    if d.get("loss_reduction_kwh_per_year"):
+        out.append(f"Line-loss reduction (indicative) {fmt(d['loss_reduction_kwh_per_year'], 0)} kWh a year, worth "
+                   f"{fmt(d.get('loss_reduction_value_per_year'))} {cur} a year — "
+                   + ("counted in the payback" if d.get("loss_reduction_counted") else "not counted in the payback"))
+    return out
+
+
 def render_case(d: dict) -> str:
     cur = d.get("currency") or ""
     b = d["bank"]
@@ -32,6 +48,7 @@ def render_case(d: dict) -> str:
               f"discounted payback {fmt(d.get('discounted_payback_years'), 1)} years",
               f"NPV over {d['life_years']} years at {100 * d['discount_rate']:.1f} %: {fmt(d['npv'])} {cur}; "
               f"IRR {'-' if irr is None else f'{100 * irr:.1f} %'}"]
+    lines += _finance_items(d, cur)
     s = d["screening"]
     lines += ["", "Screening: resonance order " + fmt(s.get("resonance_order"), 2)
               + f", voltage rise {fmt(s.get('voltage_rise_percent'), 2)} %, leading intervals {s.get('leading_intervals')}"
