@@ -773,7 +773,7 @@ def render_html(report: ReportData, nonce: str | None = None, paper: str = "a4")
             assumptions=assumption_rows(report), spec=specification(c), harmonics=harmonics_view(c),
             rules=screening_rules(c), verdict=screening_verdict(c),
             before_after=_split(scenario_columns(c), _pairs(c)),
-            savings=(savings_columns(cur), [[k, v] for k, v in c["savings_by_charge"].items()]),
+            savings=(savings_columns(cur), [[charge_title(k), v] for k, v in c["savings_by_charge"].items()]),
             cash_flow=_split(cash_flow_columns(cur, c), c.get("cash_flow") or []),
             sensitivity=(sensitivity_columns(cur), [[col.get(r) for col in sensitivity_columns(cur)]
                                                     for r in c.get("sensitivity") or []]),
