@@ -288,3 +288,24 @@ def frequency_scan(case: dict) -> dict | None:
                "title": {"text": "|Z| (Ω per phase, log)"}},
         xaxis={"range": [1, 50], "gridcolor": GRID, "zeroline": False, "dtick": 5,
                "title": {"text": "harmonic order h (dotted: orders screened or measured)"}})}
+# --------------------------------------------------------------------------------------------
+# scenarios side by side
+# --------------------------------------------------------------------------------------------
+def cumulative_cash_flows(comparison: dict) -> dict:
+    """The cumulative (solid) and discounted cumulative (dotted) cash flow of each compared
+    scenario on one chart (``auditor.services.compare``)."""
+    data = []
+    for i, (name, rows) in enumerate(comparison["cash_flows"].items()):
+        color = EXTRA[i % len(EXTRA)]
+        years = [r["year"] for r in rows]
+        data.append({"type": "scatter", "mode": "lines+markers", "name": f"{name}", "x": years,
+                     "y": [r["cumulative"] for r in rows], "line": {"color": color, "width": 2.5},
+                     "legendgroup": name, "hovertemplate": f"{name}, year %{{x}}: %{{y:,.0f}}<extra>cumulative</extra>"})
+        data.append({"type": "scatter", "mode": "lines", "name": f"{name}, discounted", "x": years,
+                     "y": [r["discounted_cumulative"] for r in rows],
+                     "line": {"color": color, "width": 1.5, "dash": "dot"}, "legendgroup": name,
+                     "hovertemplate": f"{name}, year %{{x}}: %{{y:,.0f}}<extra>discounted</extra>"})
+    cur = comparison.get("currency") or ""
+    shapes = [{"type": "line", "xref": "paper", "x0": 0, "x1": 1, "y0": 0, "y1": 0, "line": {"color": INK, "width": 1}}]
+    return {"data": data, "layout": _layout("Cumulative cash flow of each scenario (dotted: discounted)", "year",
+                                            cur, shapes=shapes)}

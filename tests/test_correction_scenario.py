@@ -149,7 +149,8 @@ def test_sensitivity_load_row_equals_an_independent_run():
     bank = BankDesign.automatic("4x50")
     res = run_scenario(frame, WITH_LEADING, tz=TZ, interval_minutes=15, bank=bank, site=SITE)
     rows = {(r["factor"], r["change"]): r for r in res.sensitivity}
-    assert set(rows) == {(f, c) for f in ("load", "prices", "capex") for c in (-0.2, 0.2)}
+    # the line-loss reduction is not counted by default: one row shows it counted
+    assert set(rows) == {(f, c) for f in ("load", "prices", "capex") for c in (-0.2, 0.2)} | {("loss reduction", 1.0)}
     scaled = frame.copy()
     scaled[["kwh", "kvarh_lag", "kvarh_lead"]] *= 1.2
     other = run_scenario(scaled, WITH_LEADING, tz=TZ, interval_minutes=15, bank=bank, site=SITE,

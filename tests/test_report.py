@@ -48,7 +48,9 @@ def test_csv_periods_match_the_interval_data(demo_db):
     pf = sums["kwh"] / np.hypot(sums["kwh"], sums["kvarh_lag"])
     np.testing.assert_allclose([float(r["Energy PF"]) for r in rows], pf, rtol=1e-6)
     # the charges add up to the total of each row
-    charge_cols = [k for k in rows[0] if k.endswith("(EUR)") and not k.startswith(("Reactive", "Total"))]
+    charge_cols = [k for k in rows[0] if k.endswith("(EUR)") and k not in ("Reactive charges (EUR)", "Total (EUR)")]
+    # headers are words with units, never raw keys
+    assert "Reactive daytime (EUR)" in rows[0] and not any("_" in k for k in rows[0])
     for r in rows:
         np.testing.assert_allclose(sum(float(r[k]) for k in charge_cols), float(r["Total (EUR)"]), rtol=1e-9)
 
@@ -77,8 +79,8 @@ def test_xlsx_sheets_and_values(demo_db):
 
     report = build_report(demo_db, "KQ-MAIN", DEMO_TARIFF, DEMO_SCENARIO, with_profile=False)
     wb = load_workbook(io.BytesIO(render_xlsx(report)))
-    assert wb.sheetnames[:4] == ["About", "Periods", "Data warnings", "Before-after"]
-    for name in ("Savings", "Cash flow", "Screening", "Cautions"):
+    assert wb.sheetnames[:3] == ["Summary", "Periods", "Peak times"]
+    for name in ("Before-after", "Savings", "Cash flow", "Screening", "Cautions", "Data warnings"):
         assert name in wb.sheetnames
     ws = wb["Periods"]
     header = [c.value for c in ws[1]]
@@ -88,13 +90,18 @@ def test_xlsx_sheets_and_values(demo_db):
     values = [ws.cell(row=i + 2, column=col + 1).value for i in range(len(sums))]
     np.testing.assert_allclose(values, sums["kwh"], rtol=1e-9)
     assert ws.cell(row=2, column=col + 1).number_format == "#,##0"
-    cautions = [r[1].value for r in wb["Cautions"].iter_rows()]
+    cov = header.index("Coverage (%)") + 1
+    assert ws.cell(row=2, column=cov).value == 1.0 and ws.cell(row=2, column=cov).number_format == "0.0%"
+    assert ws.freeze_panes == "B2"
+    cautions = [r[0].value for r in wb["Cautions"].iter_rows(min_row=2)]
     assert cautions == list(CAUTIONS)
-    about = {r[0].value: r[1].value for r in wb["About"].iter_rows()}
+    about = {r[0].value: r[1].value for r in wb["Summary"].iter_rows() if r[0].value}
     assert about["Scenario"] == DEMO_SCENARIO and about["Note"] == DISCLAIMER
     cf = wb["Cash flow"]
     saved = get_scenario(demo_db, DEMO_SCENARIO)["result"]
     assert cf.max_row == 1 + len(saved["cash_flow"])
+    # the case's audit is the one it was computed on: the scenario's own periods
+    assert ws.max_row == 1 + len(saved["before"])
 
 
 def test_html_report_is_self_contained(demo_db):
@@ -141,8 +148,8 @@ def test_write_report_picks_the_format_from_the_suffix(demo_db, tmp_path):
     for suffix, magic in ((".csv", b"Period,"), (".xlsx", b"PK"), (".html", b"<!doctype html>")):
         out = write_report(demo_db, "KQ-DOCKS", DEMO_TARIFF, tmp_path / f"r{suffix}")
         assert out.read_bytes().startswith(magic)
-    with pytest.raises(UsageError, match=r"must end in \.html, \.csv or \.xlsx"):
-        write_report(demo_db, "KQ-DOCKS", DEMO_TARIFF, tmp_path / "r.pdf")
+    with pytest.raises(UsageError, match=r"must end in \.html, \.pdf, \.xlsx or \.csv"):
+        write_report(demo_db, "KQ-DOCKS", DEMO_TARIFF, tmp_path / "r.docx")
 
 
 # --------------------------------------------------------------------------------------------
@@ -176,7 +183,7 @@ def test_cli_report_takes_the_scenarios_tariff(demo_db, tmp_path):
 
 def test_cli_report_errors(demo_db, tmp_path, capsys):
     assert run_cli(["--db", demo_db.url, "report", "--meter", "KQ-MAIN", "--out", str(tmp_path / "x.csv")]) == 2
-    assert "give --tariff" in capsys.readouterr().err
+    assert "--meter M with --tariff FILE" in capsys.readouterr().err
     assert run_cli(["--db", demo_db.url, "report", "--meter", "KQ-MAIN", "--tariff", DEMO_TARIFF,
                     "--out", str(tmp_path / "x.docx")]) == 2
     assert "must end in" in capsys.readouterr().err

@@ -122,7 +122,7 @@ def test_saved_scenario_page(client, demo_db):
     for c in CAUTIONS:
         assert c in html
     assert 'data-figure="fig-cashflow"' in html
-    assert "/export/KQ-MAIN.html?scenario=" in html
+    assert "/case.html?scenario=" in html and "/case.pdf?scenario=" in html
 
 
 def test_scenario_list_and_new_form(client):

@@ -99,9 +99,9 @@ def create_app(config: dict | None = None, store=None) -> Flask:
     register_filters(app.jinja_env.filters)
     security.init_app(app)
 
-    from auditor.web import bills, data, meters, portfolio, scenarios, tariffs
+    from auditor.web import bills, data, meters, portfolio, report, scenarios, tariffs
 
-    for bp in (portfolio.bp, meters.bp, scenarios.bp, data.bp, tariffs.bp, bills.bp, security.bp):
+    for bp in (portfolio.bp, meters.bp, scenarios.bp, report.bp, data.bp, tariffs.bp, bills.bp, security.bp):
         app.register_blueprint(bp)
 
     @app.errorhandler(CSRFError)

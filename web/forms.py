@@ -3,10 +3,12 @@ from __future__ import annotations
 
 from flask_wtf import FlaskForm
 from flask_wtf.file import FileField, FileRequired
-from wtforms import FloatField, IntegerField, RadioField, SelectField, StringField
-from wtforms.validators import DataRequired, Length, NumberRange, Optional
+from wtforms import BooleanField, FloatField, IntegerField, RadioField, SelectField, StringField
+from wtforms.validators import DataRequired, Length, NumberRange, Optional, ValidationError
 
 from auditor.correction import CostInputs
+from auditor.errors import UsageError
+from auditor.finance import parse_rate
 
 try:  # wtforms >= 3.3 wants choice objects; earlier versions take (value, label) pairs
     from wtforms.fields.choices import SelectChoice
@@ -19,6 +21,18 @@ def choices(pairs) -> list:
     return [SelectChoice(v, lbl) for v, lbl in pairs]
 
 COSTS = CostInputs()
+
+
+def percent_rate(form, field) -> None:
+    """A rate field in percent: "8" or "8 %" (the command line takes 0.08 or 8%)."""
+    if field.data in (None, ""):
+        return
+    try:
+        value = parse_rate(str(field.data), bare="percent", name=field.label.text)
+    except UsageError as exc:
+        raise ValidationError(exc.message) from None
+    if not -0.5 < value < 1.0:
+        raise ValidationError("Give a percent between -50 and 100, e.g. 8.")
 
 
 class ScenarioForm(FlaskForm):
@@ -37,8 +51,19 @@ class ScenarioForm(FlaskForm):
     capex_fixed = FloatField("Fixed installed cost", validators=[Optional(), NumberRange(min=0)])
     capex_per_kvar = FloatField("Installed cost per kvar", validators=[Optional(), NumberRange(min=0)])
     life_years = IntegerField("Lifetime (years)", validators=[Optional(), NumberRange(1, 60)])
-    discount_rate = FloatField("Discount rate (% a year)", validators=[Optional(), NumberRange(-50, 100)])
-    escalation = FloatField("Price escalation (% a year)", validators=[Optional(), NumberRange(-50, 100)])
+    discount_rate = StringField("Discount rate (percent a year)", validators=[Optional(), percent_rate],
+                                description="8 means 8 %")
+    escalation = StringField("Price escalation (percent a year)", validators=[Optional(), percent_rate])
+    incentive = FloatField("Incentive or rebate (one-off)", validators=[Optional(), NumberRange(min=0)])
+    incentive_year = IntegerField("Incentive received in year", validators=[Optional(), NumberRange(0, 60)],
+                                  description="0 = with the purchase")
+    replacement_cost = FloatField("Replacement of cells or contactors", validators=[Optional(), NumberRange(min=0)])
+    replacement_year = IntegerField("Replacement in year", validators=[Optional(), NumberRange(1, 60)])
+    tax_rate = StringField("Profit tax (percent)", validators=[Optional(), percent_rate],
+                           description="empty = no tax")
+    depreciation_years = IntegerField("Tax depreciation (years)", validators=[Optional(), NumberRange(1, 60)],
+                                      description="straight line; empty = the life")
+    count_loss_reduction = BooleanField("Count the line-loss reduction in the payback")
     name = StringField("Save as", validators=[Optional(), Length(max=200)],
                        description="Give a name to keep the scenario and export it.")
 
@@ -61,10 +86,18 @@ class ScenarioForm(FlaskForm):
             out["capex_per_kvar"] = float(self.capex_per_kvar.data)
         if self.life_years.data is not None:
             out["life_years"] = int(self.life_years.data)
-        if self.discount_rate.data is not None:
-            out["discount_rate"] = float(self.discount_rate.data) / 100.0
-        if self.escalation.data is not None:
-            out["escalation"] = float(self.escalation.data) / 100.0
+        for name in ("discount_rate", "escalation", "tax_rate"):
+            value = getattr(self, name).data
+            if value not in (None, ""):
+                out[name] = parse_rate(str(value), bare="percent", name=name)
+        for name in ("incentive", "replacement_cost"):
+            if getattr(self, name).data is not None:
+                out[name] = float(getattr(self, name).data)
+        for name in ("incentive_year", "replacement_year", "depreciation_years"):
+            if getattr(self, name).data is not None:
+                out[name] = int(getattr(self, name).data)
+        if self.count_loss_reduction.data:
+            out["count_loss_reduction"] = True
         return out
 
 

@@ -108,6 +108,10 @@ def _prefill(form: CaseForm, saved: dict | None) -> None:
     form.life_years.data = c.get("life_years")
     form.discount_rate.data = 100 * c["discount_rate"] if c.get("discount_rate") is not None else None
     form.escalation.data = 100 * c["escalation"] if c.get("escalation") is not None else None
+    form.tax_rate.data = f"{100 * c['tax_rate']:g}" if c.get("tax_rate") else None
+    for key in ("incentive", "incentive_year", "replacement_cost", "replacement_year", "depreciation_years"):
+        getattr(form, key).data = c.get(key)
+    form.count_loss_reduction.data = bool(c.get("count_loss_reduction"))
     form.name.data = saved["name"]
 
 
@@ -215,7 +219,9 @@ def show(name: str):
     saved = get_scenario(store(), name)
     form = _form()
     _prefill(form, saved)
-    return _page(form, **_case_context(saved["result"]), scenario=saved)
+    from auditor.web.report import cover_form
+
+    return _page(form, **_case_context(saved["result"]), scenario=saved, cover_form=cover_form(name))
 
 
 @bp.post("/scenarios/delete")

@@ -10,11 +10,17 @@ import importlib
 
 import click
 
-MODULES = ("data", "meters", "db", "audit", "size", "bills", "report", "serve", "demo")
+MODULES = ("data", "meters", "db", "audit", "size", "bills", "report", "case", "serve", "demo")
 
 
 def register(group: click.Group) -> None:
+    """Add every module's ``commands``, then each ``subcommands`` entry (group name, command) to
+    the noun group of that name (a module may add a command to another module's noun)."""
+    later = []
     for name in MODULES:
         module = importlib.import_module(f"auditor.commands.{name}")
         for cmd in module.commands:
             group.add_command(cmd)
+        later.extend(getattr(module, "subcommands", ()))
+    for noun, cmd in later:
+        group.commands[noun].add_command(cmd)

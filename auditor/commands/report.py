@@ -1,36 +1,65 @@
-"""``auditor report``: the dashboard's exports for scripted use (HTML, XLSX, CSV)."""
+"""``auditor report``: the case document of a saved scenario, or the audit report of a meter, as
+HTML (offline), PDF, XLSX or CSV."""
 from __future__ import annotations
 
 from pathlib import Path
 
 import click
 
+from auditor.commands.case import cover_of, cover_options
 from auditor.commands.context import Context, pass_ctx
 from auditor.commands.options import meter_option, tariff_option
 
+SUFFIXES = (".html", ".htm", ".pdf", ".xlsx", ".csv")
+
 
 @click.command("report")
-@meter_option()
+@meter_option(required=False, help="Meter id as imported (not needed with --scenario).")
 @tariff_option(required=False, help="Tariff TOML file or a shipped example's name "
-                                    "(default with --scenario: the scenario's own).")
-@click.option("--scenario", metavar="NAME", help="Add the saved correction scenario NAME (auditor size --save NAME).")
+                                    "(default with --scenario: the tariff stored with the scenario).")
+@click.option("--scenario", metavar="NAME", help="The saved scenario NAME (auditor size --save NAME): the case document.")
 @click.option("--out", "out", required=True, type=click.Path(dir_okay=False, path_type=Path),
-              help="Output file; the suffix chooses the format: .html (self-contained report), .xlsx, .csv.")
+              help="Output file; the suffix chooses the format: .html (offline document), .pdf (printed by "
+                   "Chromium), .xlsx, .csv.")
+@click.option("--paper", type=click.Choice(["a4", "letter"]), default="a4", show_default=True,
+              help="Paper size of the printed document (.html print stylesheet and .pdf).")
+@cover_options
 @pass_ctx
-def report_cmd(ctx: Context, meter: str, tariff: str | None, scenario: str | None, out: Path):
-    """Write an audit report of a meter (with a saved scenario: the correction case)."""
-    from auditor.services.correction import get_scenario
-    from auditor.services.report import FORMATS, write_report
+def report_cmd(ctx: Context, meter: str | None, tariff: str | None, scenario: str | None, out: Path,
+               paper: str, **kwargs):
+    """Write the case document of a saved scenario (or the audit report of a meter)."""
+    from dataclasses import replace
 
-    if tariff is None:
-        if not scenario:
-            raise click.UsageError("give --tariff FILE (or --scenario NAME to use the scenario's tariff)")
-        tariff = get_scenario(ctx.store, scenario)["request"].get("tariff")
-    if out.suffix.lower().lstrip(".") not in (*FORMATS, "htm"):
-        raise click.BadParameter(f"{out.name}: the file name must end in .html, .csv or .xlsx", param_hint="--out")
-    path = write_report(ctx.store, meter, tariff, out, scenario)
+    from auditor.services import report as rp
+
+    cover = cover_of(kwargs)
+    if out.suffix.lower() not in SUFFIXES:
+        raise click.BadParameter(f"{out.name}: the file name must end in .html, .pdf, .xlsx or .csv",
+                                 param_hint="--out")
+    fmt = rp.format_of(out)
+    if scenario:
+        if cover:
+            rp.set_scenario_cover(ctx.store, scenario, **cover)
+        if meter:
+            report = rp.build_report(ctx.store, meter, tariff or _scenario_tariff(ctx, scenario), scenario,
+                                     with_profile=fmt in ("html", "pdf"))
+        else:
+            report = rp.build_case(ctx.store, scenario, tariff, with_profile=fmt in ("html", "pdf"))
+    else:
+        if not meter or not tariff:
+            raise click.UsageError("give --scenario NAME (a saved case), or --meter M with --tariff FILE")
+        report = rp.build_report(ctx.store, meter, tariff, with_profile=fmt in ("html", "pdf"))
+        if cover:
+            report = replace(report, cover=cover)
+    path = rp.write_document(report, out, paper=paper)
     ctx.say(f"wrote {path} ({path.stat().st_size:,} bytes)")
     return 0
+
+
+def _scenario_tariff(ctx: Context, scenario: str) -> str:
+    from auditor.services.correction import get_scenario
+
+    return get_scenario(ctx.store, scenario)["request"].get("tariff")
 
 
 commands = [report_cmd]

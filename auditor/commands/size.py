@@ -5,6 +5,14 @@ from __future__ import annotations
 
 import click
 
+from auditor.commands.case import (
+    RATE,
+    RATE_HELP,
+    cover_of,
+    cover_options,
+    finance_costs,
+    finance_options,
+)
 from auditor.commands.context import Context, pass_ctx
 from auditor.commands.options import NounGroup
 from auditor.render import echo_json, fmt, table
@@ -46,6 +54,22 @@ def _value(r: dict) -> str:
     return f"{fmt(r['value'], 2)}{(' ' + r['unit']) if r.get('unit') else ''}"
 
 
+def _finance_items(d: dict, cur: str) -> list[str]:
+    """The optional finance items of a case, one line each (apart from the tariff saving)."""
+    out = []
+    if d.get("incentive"):
+        out.append(f"Incentive {fmt(d['incentive'])} {cur} in year {d.get('incentive_year', 0)}")
+    if d.get("replacement_cost"):
+        out.append(f"Replacement of cells or contactors {fmt(d['replacement_cost'])} {cur} in year {d['replacement_year']}")
+    if d.get("tax_rate"):
+        out.append(f"Profit tax {100 * d['tax_rate']:.1f} %, straight-line depreciation over {d.get('depreciation_years')} years")
+    if d.get("loss_reduction_kwh_per_year"):
+        out.append(f"Line-loss reduction (indicative) {fmt(d['loss_reduction_kwh_per_year'], 0)} kWh a year, worth "
+                   f"{fmt(d.get('loss_reduction_value_per_year'))} {cur} a year — "
+                   + ("counted in the payback" if d.get("loss_reduction_counted") else "not counted in the payback"))
+    return out
+
+
 def render_case(d: dict) -> str:
     cur = d.get("currency") or ""
     b = d["bank"]
@@ -66,6 +90,7 @@ def render_case(d: dict) -> str:
               f"discounted payback {fmt(d.get('discounted_payback_years'), 1)} years",
               f"NPV over {d['life_years']} years at {100 * d['discount_rate']:.1f} %: {fmt(d['npv'])} {cur}; "
               f"IRR {'-' if irr is None else f'{100 * irr:.1f} %'}"]
+    lines += _finance_items(d, cur)
     s = d["screening"]
     verdict = {"pass": "PASSED", "caution": "PASSED with cautions", "fail": "NOT PASSED"}[s.get("status", "pass")]
     lines += ["", f"Screening — {verdict}:",
@@ -187,19 +212,21 @@ SCREENING_HELP = ("A screening setting KEY=VALUE (repeatable) over the site's an
 @click.option("--capex-fixed", type=click.FloatRange(min=0),
               help="Fixed installed cost (of the design asked; with --switch-off, the whole cost).")
 @click.option("--life-years", type=click.IntRange(1, 60), help="Economic life (default 15).")
-@click.option("--discount-rate", type=click.FloatRange(-0.5, 1.0), help="Fraction a year (0.08 = 8 %).")
-@click.option("--escalation", type=click.FloatRange(-0.5, 1.0), help="Tariff price escalation, fraction a year.")
+@click.option("--discount-rate", type=RATE, help=f"Discount rate, {RATE_HELP}; default 8%.")
+@click.option("--escalation", type=RATE, help=f"Tariff price escalation, {RATE_HELP}; default 3%.")
+@finance_options
 @click.option("--from", "start", type=click.DateTime(["%Y-%m-%d"]), metavar="YYYY-MM-DD",
               help="First local day, inclusive (default: the start of the data).")
 @click.option("--to", "end", type=click.DateTime(["%Y-%m-%d"]), metavar="YYYY-MM-DD",
               help="Last local day, exclusive (default: the end of the data).")
 @click.option("--save", "save_as", metavar="NAME", help="Save the scenario under NAME.")
+@cover_options
 @click.option("--json", "json_out", is_flag=True, help="Machine-readable output (the same data as the table).")
 @pass_ctx
 def size_cmd(ctx: Context, meter, site, mode, tariff, target_pf, fixed_kvar, steps, reactor_kvar, switch_off_kvar,
              optimise, detuning_percent, leading_pf_limit, capacitor_rated_voltage_v, harmonics_file, fundamental_a,
              measured_kw, measured_pf, drive_share, screening, capex_per_kvar, capex_fixed, life_years,
-             discount_rate, escalation, start, end, save_as, json_out):
+             discount_rate, escalation, start, end, save_as, json_out, **case_kwargs):
     """Size power factor correction (or a reactor for a leading site), screen it and cost the case."""
     from auditor.services.correction import ScenarioRequest, save_scenario, scenario_for_meter
 
@@ -207,11 +234,14 @@ def size_cmd(ctx: Context, meter, site, mode, tariff, target_pf, fixed_kvar, ste
         raise click.UsageError("give either --meter M or --site NAME")
     from auditor.services.correction import split_costs
 
-    costs, reactor_costs = split_costs(
-        {k: v for k, v in (("capex_per_kvar", capex_per_kvar), ("capex_fixed", capex_fixed),
-                           ("life_years", life_years), ("discount_rate", discount_rate),
-                           ("escalation", escalation)) if v is not None},
-        reactor_kvar=reactor_kvar, switch_off_kvar=switch_off_kvar)
+    cost_values = {k: v for k, v in (("capex_per_kvar", capex_per_kvar), ("capex_fixed", capex_fixed),
+                                     ("life_years", life_years), ("discount_rate", discount_rate),
+                                     ("escalation", escalation)) if v is not None}
+    cost_values.update(finance_costs(case_kwargs))
+    cover = cover_of(case_kwargs)
+    if cover and not save_as:
+        raise click.UsageError("--client, --project and --author go on a saved case: add --save NAME")
+    costs, reactor_costs = split_costs(cost_values, reactor_kvar=reactor_kvar, switch_off_kvar=switch_off_kvar)
     harmonics = None
     if harmonics_file:
         from auditor.services.correction import read_spectrum_file
@@ -250,6 +280,10 @@ def size_cmd(ctx: Context, meter, site, mode, tariff, target_pf, fixed_kvar, ste
     d = case.to_dict()
     if save_as:
         d["saved_as"] = save_scenario(ctx.store, save_as, case)["name"]
+        if cover:
+            from auditor.services.report import set_scenario_cover
+
+            d["cover"] = set_scenario_cover(ctx.store, save_as, **cover)
     if json_out:
         echo_json(d)
     else:

@@ -469,7 +469,8 @@ def optimise(frame: pd.DataFrame, tariff, *, tz: str, interval_minutes: int,
                    "recommended": k == best and status != "none_passes"} for i, k in enumerate(order))
     fig = chosen["figures"]
     bank = chosen["design"]
-    sens = _sensitivity(ps, bank, fig["annual_savings"], fig["mean_rated"]) if sensitivity else ()
+    sens = (_sensitivity(ps, bank, fig["annual_savings"], fig["mean_rated"], fig["loss_reduction_kwh"])
+            if sensitivity else ())
     summary = {"status": status, "message": message, "designs_compared": len(evaluated),
                "designs_first_compared": first_count, "passed": len(passing), "chosen": label,
                "nearest_passing_from": nearest_from, "families": families}

@@ -369,6 +369,8 @@ class ScenarioResult:
             "warnings": list(self.warnings),
             "cautions": list(self.cautions),
         }
+        out.update(f.extras())
+        out["cost_inputs"] = self.costs.to_dict()
         if self.candidates is not None:
             out["candidates"] = [dict(c) for c in self.candidates]
         if self.optimiser is not None:
@@ -396,7 +398,8 @@ def _loss_w_per_kvar(ps: PreparedScenario, bank: BankDesign) -> float:
 
 
 def _finance_for(ps: PreparedScenario, bank: BankDesign, annual_savings: float, mean_rated_kvar: float,
-                 *, capex_scale: float = 1.0, price_scale: float = 1.0) -> tuple[FinanceResult, float]:
+                 *, capex_scale: float = 1.0, price_scale: float = 1.0,
+                 loss_reduction_kwh: float = 0.0) -> tuple[FinanceResult, float]:
     costs = ps.costs
     capex_value = capex_scale * _capex(ps, bank)
     loss_kwh = finance.annual_loss_kwh(mean_rated_kvar, _loss_w_per_kvar(ps, bank))
@@ -405,6 +408,8 @@ def _finance_for(ps: PreparedScenario, bank: BankDesign, annual_savings: float, 
         annual_om_value=finance.annual_om(costs, capex_value),
         annual_loss_cost=loss_kwh * ps.price * price_scale,
         life_years=costs.life_years, discount_rate=costs.discount_rate, escalation=costs.escalation,
+        costs=costs, loss_reduction_value=loss_reduction_kwh * ps.price * price_scale,
+        loss_reduction_kwh_value=loss_reduction_kwh,
     )
     return result, loss_kwh
 
@@ -423,7 +428,7 @@ def _scaled_frame(frame: pd.DataFrame, factor: float) -> pd.DataFrame:
 
 
 def _sensitivity(ps: PreparedScenario, bank: BankDesign, annual_savings: float,
-                 mean_rated_kvar: float) -> tuple[dict, ...]:
+                 mean_rated_kvar: float, loss_reduction_kwh: float = 0.0) -> tuple[dict, ...]:
     rows = []
 
     def row(factor: str, change: float, res: FinanceResult, savings: float) -> dict:
@@ -439,15 +444,21 @@ def _sensitivity(ps: PreparedScenario, bank: BankDesign, annual_savings: float,
                          leading_pf_limit=ps.leading_pf_limit, system_voltage_v=v)
         savings, _ = _savings(BillSummary.of(before), run.bill, ps.year_factor)
         rated = float(np.mean(np.abs(run.output_kvar))) / bank.output_factor(v)
-        res, _ = _finance_for(ps, bank, savings, rated)
+        # I²R losses at a scaled load scale with its square
+        res, _ = _finance_for(ps, bank, savings, rated,
+                              loss_reduction_kwh=loss_reduction_kwh * (1.0 + change) ** 2)
         rows.append(row("load", change, res, savings))
     for change in SENSITIVITY_STEPS:
         # prices: every charge is price × quantity, so savings and loss cost scale together
-        res, _ = _finance_for(ps, bank, annual_savings, mean_rated_kvar, price_scale=1.0 + change)
+        res, _ = _finance_for(ps, bank, annual_savings, mean_rated_kvar, price_scale=1.0 + change,
+                              loss_reduction_kwh=loss_reduction_kwh)
         rows.append(row("prices", change, res, annual_savings * (1.0 + change)))
     for change in SENSITIVITY_STEPS:
-        res, _ = _finance_for(ps, bank, annual_savings, mean_rated_kvar, capex_scale=1.0 + change)
+        res, _ = _finance_for(ps, bank, annual_savings, mean_rated_kvar, capex_scale=1.0 + change,
+                              loss_reduction_kwh=loss_reduction_kwh)
         rows.append(row("capex", change, res, annual_savings))
+    base, _ = _finance_for(ps, bank, annual_savings, mean_rated_kvar, loss_reduction_kwh=loss_reduction_kwh)
+    rows.extend(finance.item_sensitivity(base, ps.costs))
     return tuple(rows)
 
 
@@ -463,7 +474,6 @@ def evaluate_prepared(ps: PreparedScenario, bank: BankDesign, run: CorrectedRun 
     factor = bank.output_factor(v)
     mean_output = float(np.mean(run.output_kvar)) if run.output_kvar.size else 0.0
     mean_rated = float(np.mean(np.abs(run.output_kvar))) / factor if run.output_kvar.size else 0.0
-    fin, loss_kwh = _finance_for(ps, bank, annual_savings, mean_rated)
     leading = _leading_keys(ps.tariff)
     lead_increase = None
     if leading:
@@ -484,12 +494,15 @@ def evaluate_prepared(ps: PreparedScenario, bank: BankDesign, run: CorrectedRun 
     net_after = float(np.sum(run.kvarh_lag - run.kvarh_lead))
     pf1, pf2 = _energy_pf(kwh, net_before), _energy_pf(kwh, net_after)
     line_loss = 1.0 - (pf1 / pf2) ** 2 if pf1 and pf2 else None
+    loss_reduction = finance.loss_reduction_kwh(kwh * ps.year_factor, line_loss, ps.costs.network_loss_percent)
+    fin, loss_kwh = _finance_for(ps, bank, annual_savings, mean_rated, loss_reduction_kwh=loss_reduction)
     return dict(
         run=run, year_factor=ps.year_factor, audited_days=ps.audited_days, annual_savings=annual_savings,
         savings_by_charge=by_charge, finance=fin, loss_kwh=loss_kwh, screening=screening,
         mean_output=mean_output, mean_rated=mean_rated, price=ps.price, pf_before=pf1, pf_after=pf2,
         pf_after_sense="leading" if net_after < 0 else "lagging",
         line_loss=line_loss, peak_before=before.peak_kva, peak_after=run.bill.peak_kva,
+        loss_reduction_kwh=loss_reduction,
     )
 
 
@@ -653,7 +666,8 @@ def run_scenario(frame: pd.DataFrame, tariff, *, tz: str, interval_minutes: int,
                           billing_day=billing_day, leading_pf_limit=leading_pf_limit, limits=limits,
                           spectrum=spectrum, drive_share=drive_share, reactor_costs=reactor_costs)
     figures = evaluate_prepared(ps, bank)
-    sens = _sensitivity(ps, bank, figures["annual_savings"], figures["mean_rated"]) if sensitivity else ()
+    sens = (_sensitivity(ps, bank, figures["annual_savings"], figures["mean_rated"], figures["loss_reduction_kwh"])
+            if sensitivity else ())
     alternative, extra = None, ()
     if not figures["screening"].passed and alternatives:
         # imported here: the optimiser builds on this module

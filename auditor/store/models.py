@@ -165,6 +165,10 @@ class Scenario(Base):
     npv: Mapped[float | None] = mapped_column(Float)
     simple_payback_years: Mapped[float | None] = mapped_column(Float)
     created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
+    # the case document's cover (migration 0007); empty when not given
+    client: Mapped[str | None] = mapped_column(String(200))
+    project: Mapped[str | None] = mapped_column(String(200))
+    author: Mapped[str | None] = mapped_column(String(200))
 
 
 # --------------------------------------------------------------------------------------------

@@ -1,0 +1,127 @@
+"""The case document of a saved scenario (HTML, PDF, XLSX, CSV), its cover, and saved scenarios
+compared side by side (page and exports)."""
+from __future__ import annotations
+
+import re
+import secrets
+
+from flask import Blueprint, Response, abort, flash, redirect, render_template, request, url_for
+from flask_wtf import FlaskForm
+from wtforms import StringField
+from wtforms.validators import DataRequired, Length, Optional
+
+from auditor import charts
+from auditor.errors import UsageError
+from auditor.services import compare as cp
+from auditor.services import report as rp
+from auditor.services.correction import list_scenarios
+from auditor.web.helpers import store, tariff_for_scenario
+
+bp = Blueprint("report", __name__)
+
+MIME = {"html": "text/html; charset=utf-8", "pdf": "application/pdf", "csv": "text/csv; charset=utf-8",
+        "xlsx": "application/vnd.openxmlformats-officedocument.spreadsheetml.sheet"}
+_SAFE = re.compile(r"[^A-Za-z0-9._-]+")
+
+
+class CoverForm(FlaskForm):
+    name = StringField(validators=[DataRequired(), Length(max=200)])
+    client = StringField("Client", validators=[Optional(), Length(max=200)])
+    project = StringField("Project", validators=[Optional(), Length(max=200)])
+    author = StringField("Author", validators=[Optional(), Length(max=200)])
+
+
+def cover_form(name: str) -> CoverForm:
+    """The cover form of a saved scenario, filled with what is stored (for the scenario page)."""
+    form = CoverForm(formdata=None, data={"name": name, **{k: v or "" for k, v in rp.scenario_cover(store(), name).items()}})
+    return form
+
+
+def _paper() -> str:
+    paper = (request.args.get("paper") or "a4").lower()
+    if paper not in rp.PAPERS:
+        raise UsageError(f"paper {paper!r}: use a4 or letter")
+    return paper
+
+
+def _download(body: bytes, fmt: str, stem: str, nonce: str | None = None) -> Response:
+    stem = _SAFE.sub("_", stem).strip("_") or "case"
+    resp = Response(body, mimetype=MIME[fmt].split(";")[0])
+    resp.headers["Content-Type"] = MIME[fmt]
+    resp.headers["Content-Disposition"] = f'attachment; filename="{stem}.{fmt}"'
+    if fmt == "html":
+        # the document carries its own scripts; allow exactly those (by nonce), nothing remote
+        resp.headers["Content-Security-Policy"] = (
+            f"default-src 'none'; script-src 'nonce-{nonce}'; style-src 'unsafe-inline'; "
+            "img-src data: blob:; font-src data:; base-uri 'none'; form-action 'none'; frame-ancestors 'none'")
+    return resp
+
+
+@bp.get("/case.<fmt>")
+def case(fmt: str):
+    """The case document of the saved scenario ``?scenario=NAME`` (``&paper=a4|letter``)."""
+    if fmt not in rp.DOCUMENT_FORMATS:
+        abort(404)
+    name = request.args.get("scenario") or ""
+    if not name:
+        raise UsageError("say which saved scenario: ?scenario=NAME")
+    from auditor.services.correction import get_scenario
+
+    saved = get_scenario(store(), name)
+    try:
+        _, tariff = tariff_for_scenario(saved)
+    except UsageError:
+        raise
+    except Exception:  # not among the dashboard's tariffs: the text stored with the scenario
+        tariff = None
+    report = rp.build_case(store(), name, tariff, with_profile=fmt in ("html", "pdf"), saved=saved)
+    paper = _paper()
+    nonce = secrets.token_urlsafe(16)
+    body = rp.render_html(report, nonce=nonce, paper=paper).encode("utf-8") if fmt == "html" \
+        else rp.render(report, fmt, paper)
+    return _download(body, fmt, f"{saved['meter']}_{name}", nonce)
+
+
+@bp.post("/case/cover")
+def cover():
+    form = CoverForm()
+    if not form.validate():
+        flash("Could not save the cover: " + "; ".join(f"{k}: {', '.join(v)}" for k, v in form.errors.items()), "error")
+        return redirect(url_for("scenarios.index"))
+    rp.set_scenario_cover(store(), form.name.data, client=form.client.data or "", project=form.project.data or "",
+                          author=form.author.data or "")
+    flash("Saved the cover of the case document.", "ok")
+    return redirect(url_for("scenarios.show", name=form.name.data) + "#case-document")
+
+
+def _chosen() -> list[str]:
+    names = [n for n in request.args.getlist("scenario") if n]
+    return list(dict.fromkeys(names))
+
+
+@bp.get("/compare")
+def compare():
+    """Pick two to four saved scenarios and see them side by side."""
+    saved = list_scenarios(store())
+    names = _chosen()
+    ctx = {"saved": saved, "chosen": names, "cmp": None, "figure": None, "error": None}
+    if names:
+        if not 2 <= len(names) <= 4:
+            ctx["error"] = f"Choose two to four scenarios to compare (you chose {len(names)})."
+        else:
+            cmp = cp.compare_scenarios(store(), names)
+            ctx.update(cmp=cmp, figure=charts.figure_json(charts.cumulative_cash_flows(cmp)))
+    return render_template("compare.html", **ctx), (400 if ctx["error"] else 200)
+
+
+@bp.get("/compare.<fmt>")
+def compare_export(fmt: str):
+    if fmt not in cp.COMPARE_FORMATS:
+        abort(404)
+    names = _chosen()
+    cmp = cp.compare_scenarios(store(), names)
+    nonce = secrets.token_urlsafe(16)
+    paper = _paper()
+    body = cp.render_html(cmp, paper, nonce=nonce).encode("utf-8") if fmt == "html" \
+        else cp.render_comparison(cmp, fmt, paper)
+    return _download(body, fmt, "compare_" + "_".join(names), nonce)
