@@ -126,6 +126,30 @@ def test_a_damaged_file_is_refused_before_a_migration(tmp_path):
     assert r.exit_code == 1 and "damaged" in r.output and digest(path) == before
 
 
+def test_a_database_failure_leaves_the_inbox_file_in_place(tmp_path):
+    """A write refused by the database (here: a read-only connection) is the database's failure,
+    not the file's: the file stays in the inbox for the next run."""
+    from sqlalchemy import event
+
+    from auditor.ingest.pipeline import ImportOptions
+    from auditor.services.inbox import run_inbox
+    from tests.test_inbox import settled
+
+    store = open_store(f"sqlite:///{tmp_path / 'ro.sqlite3'}")
+    event.listen(store.engine, "connect", lambda con, _r: con.execute("PRAGMA query_only=ON"))
+    store.engine.dispose()
+    inbox = tmp_path / "inbox"
+    inbox.mkdir()
+    f = write_csv(inbox / "a.csv", day_rows(meter="PUMP-1"))
+    settled(f)
+    res = run_inbox(store, inbox, ImportOptions())
+    store.dispose()
+    message = res["files"][0]["errors"][0]["message"]
+    assert res["files"][0]["status"] == "rejected" and "read-only" in message, message
+    assert f.exists() and not (inbox / "rejected").exists()
+    assert "stays in the inbox" in res["message"]
+
+
 def test_db_check_says_ok_of_a_sound_file(tmp_path):
     url = populated(tmp_path)
     r = invoke("db", "check", db=url)

@@ -113,7 +113,11 @@ def damage_of(exc: BaseException) -> str | None:
 
 def _listen_sqlite_errors(engine: Engine, label: str) -> None:
     """Turn SQLite's errors about the file itself into one-line :class:`StoreError` messages
-    naming the file, and mark the store damaged so that nothing more is written to it."""
+    naming the file, and mark the store damaged so that nothing more is written to it.
+
+    Every such message begins "database error on": the inbox tells a failure of the database
+    (the file stays in the inbox) from a bad file (moved to ``rejected/``) by that prefix.
+    """
 
     @event.listens_for(engine, "handle_error")
     def _explain(ctx):
@@ -121,11 +125,11 @@ def _listen_sqlite_errors(engine: Engine, label: str) -> None:
         damage = damage_of(orig)
         if damage:
             engine.pf_damaged = damage
-            return StoreError(f"the database file {label} is {damage}; it was not changed. Restore it "
-                              "from a backup or name another database file")
+            return StoreError(f"database error on {label}: the file is {damage}; it was not changed. "
+                              "Restore it from a backup or name another database file")
         code = _sqlite_code(orig)
         if code in _SQLITE_TROUBLE:
-            return StoreError(f"the database file {label} {_SQLITE_TROUBLE[code]}: {orig}")
+            return StoreError(f"database error on {label}: the file {_SQLITE_TROUBLE[code]}: {first_line(orig)}")
         return None
 
 
@@ -133,7 +137,7 @@ def _listen_server_errors(engine: Engine, label: str) -> None:
     @event.listens_for(engine, "handle_error")
     def _explain(ctx):
         if ctx.is_disconnect and not ctx.is_pre_ping:
-            return StoreError(f"lost the connection to the database {label}: "
+            return StoreError(f"database error on {label}: the connection was lost: "
                               f"{first_line(ctx.original_exception)}")
         return None
 
@@ -285,7 +289,7 @@ class Store:
     def refuse_if_damaged(self) -> None:
         damage = getattr(self.engine, "pf_damaged", None)
         if damage:
-            raise StoreError(f"the database file {self.label} is {damage}; nothing more is read from "
+            raise StoreError(f"database error on {self.label}: the file is {damage}; nothing more is read from "
                              "or written to it")
 
     def check_integrity(self, conn) -> None:
@@ -295,7 +299,7 @@ class Store:
         rows = [r[0] for r in conn.exec_driver_sql("PRAGMA quick_check").fetchmany(3)]
         if rows != ["ok"]:
             self.engine.pf_damaged = "damaged"
-            raise StoreError(f"the database file {self.label} is damaged ({'; '.join(map(str, rows))}); it "
+            raise StoreError(f"database error on {self.label}: the file is damaged ({'; '.join(map(str, rows))}); it "
                              "was not changed. Restore it from a backup or name another database file")
 
     def backup_copy(self, dest: Path) -> None:
