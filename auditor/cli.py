@@ -12,10 +12,14 @@ Exit codes:
 
 * 0 — done (a bill check with findings is done too);
 * 1 — an input was rejected or a check failed (a bad file, tariff, profile, site file, an
-  unknown meter, a database that cannot be opened);
+  unknown meter, a database that cannot be opened or is damaged, a file that cannot be read
+  or written, output closed early by its reader);
 * 2 — a usage error: a bad or missing option, options that contradict each other, a bad
-  setting such as an unknown time zone;
-* 3 — an internal error, which is a bug (``AUDITOR_DEBUG=1`` shows the traceback);
+  setting such as an unknown time zone, a database driver that is not installed, a database
+  written by a newer version, a downgrade that would drop data without ``--yes``;
+* 3 — an internal error, which is a bug: one line names the crash log holding the traceback
+  (``auditor/commands/crash.py``: the per-user log directory); ``AUDITOR_DEBUG=1`` shows the
+  traceback instead;
 * 130 — interrupted (Ctrl+C).
 
 Start-up stays short: this module and the command modules import only click and the standard
@@ -56,9 +60,11 @@ def _load_commands() -> None:
 
 
 def main(argv: list[str] | None = None) -> None:
+    args = list(sys.argv[1:] if argv is None else argv)
     _load_commands()
     try:
-        rv = group.main(args=argv, prog_name="auditor", standalone_mode=False)
+        rv = group.main(args=args, prog_name="auditor", standalone_mode=False)
+        sys.stdout.flush()  # a closed pipe shows here, not in Python's own exit
     except click.exceptions.Abort:
         click.echo("aborted", err=True)
         sys.exit(EXIT_INTERRUPTED)
@@ -72,9 +78,51 @@ def main(argv: list[str] | None = None) -> None:
     except KeyboardInterrupt:
         click.echo("interrupted", err=True)
         sys.exit(EXIT_INTERRUPTED)
-    except Exception as exc:  # a bug: one line for the user, the traceback on request
-        if os.environ.get("AUDITOR_DEBUG"):
-            raise
-        click.echo(f"internal error: {type(exc).__name__}: {exc} (set AUDITOR_DEBUG=1 for details)", err=True)
-        sys.exit(EXIT_BUG)
+    except BrokenPipeError:
+        _output_closed()
+    except OSError as exc:
+        if not _users_file(exc) or os.environ.get("AUDITOR_DEBUG"):
+            _bug(exc, args)
+        # a file the command was given or writes (a folder instead of a file, no permission,
+        # a full disk): the user's to fix, not a bug
+        click.echo(f"error: {exc.filename}: {exc.strerror or exc}", err=True)
+        sys.exit(EXIT_REJECTED)
+    except Exception as exc:
+        _bug(exc, args)
     sys.exit(rv if isinstance(rv, int) else EXIT_OK)
+
+
+def _users_file(exc: OSError) -> bool:
+    """An OSError about a file of the user's (not one of the program's own files)."""
+    if exc.filename is None:
+        return False
+    own = os.path.dirname(os.path.abspath(__file__))
+    try:
+        return not os.path.abspath(os.fsdecode(exc.filename)).startswith(own + os.sep)
+    except (TypeError, ValueError):
+        return False
+
+
+def _output_closed() -> None:
+    """The reader of our output went away (``auditor meters | head``): stop quietly, exit 1.
+    Python would complain once more when flushing stdout at exit, so point it at /dev/null."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError):
+        pass
+    sys.exit(EXIT_REJECTED)
+
+
+def _bug(exc: BaseException, args: list[str]) -> None:
+    """A bug: one line on screen naming the crash log that holds the traceback; exit 3.
+    ``AUDITOR_DEBUG=1`` raises instead, traceback and all."""
+    if os.environ.get("AUDITOR_DEBUG"):
+        raise exc
+    from auditor.commands.crash import one_line, write_crash_log
+
+    path, why = write_crash_log(exc, args)
+    where = (f"the details are in {path}" if path else
+             f"the details could not be saved ({why}); AUDITOR_DEBUG=1 shows them")
+    click.echo(f"internal error (a bug, please report it): {one_line(exc)}; {where}", err=True)
+    sys.exit(EXIT_BUG)

@@ -425,7 +425,11 @@ def test_compare_page_and_exports(client, case):
     assert f"{case['npv']:,.2f}" in html
     for fmt in ("html", "xlsx", "csv"):
         assert client.get(f"/compare.{fmt}?{q}").status_code == 200
-    assert client.get(f"/compare?scenario={quote(CASE)}").status_code == 400
+    # one scenario (a scenario page's "Compare with…"): ticked, with a word on what to do next
+    one = client.get(f"/compare?scenario={quote(CASE)}")
+    assert one.status_code == 200 and "tick one to three more" in one.get_data(as_text=True)
+    five = "&".join(f"scenario=s{i}" for i in range(5))
+    assert client.get(f"/compare?{five}").status_code == 400
     assert client.get("/compare").status_code == 200
 
 

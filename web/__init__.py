@@ -100,7 +100,9 @@ def create_app(config: dict | None = None, store=None) -> Flask:
     security.init_app(app)
 
     from auditor.web import bills, data, meters, portfolio, report, scenarios, tariffs
+    from auditor.web.urls import FormatConverter, MeterIdConverter
 
+    app.url_map.converters.update(meter=MeterIdConverter, ext=FormatConverter)  # any meter id
     for bp in (portfolio.bp, meters.bp, scenarios.bp, report.bp, data.bp, tariffs.bp, bills.bp, security.bp):
         app.register_blueprint(bp)
 

@@ -33,7 +33,7 @@ def _target_pf() -> float:
     return value
 
 
-@bp.get("/meters/<meter>")
+@bp.get("/meters/<meter:meter>")
 def meter(meter: str):
     name, tariff = chosen_tariff()
     target = _target_pf()
@@ -61,7 +61,7 @@ def meter(meter: str):
 _SAFE = re.compile(r"[^A-Za-z0-9._-]+")
 
 
-@bp.get("/export/<meter>.<fmt>")
+@bp.get("/export/<meter:meter>.<ext:fmt>")
 def export(meter: str, fmt: str):
     """An export of the audit (``?tariff=``) or of a saved scenario (``?scenario=``)."""
     if fmt not in rp.FORMATS:

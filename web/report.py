@@ -104,8 +104,10 @@ def compare():
     """Pick two to four saved scenarios and see them side by side."""
     saved = list_scenarios(store())
     names = _chosen()
-    ctx = {"saved": saved, "chosen": names, "cmp": None, "figure": None, "error": None}
-    if names:
+    ctx = {"saved": saved, "chosen": names, "cmp": None, "figure": None, "error": None, "hint": None}
+    if len(names) == 1:  # arriving from a scenario's "Compare with…": it is ticked, pick the others
+        ctx["hint"] = f"“{names[0]}” is ticked: tick one to three more scenarios and press Compare."
+    elif names:
         if not 2 <= len(names) <= 4:
             ctx["error"] = f"Choose two to four scenarios to compare (you chose {len(names)})."
         else:

@@ -8,7 +8,8 @@ from __future__ import annotations
 
 import hashlib
 import hmac
-from urllib.parse import urlencode
+import re
+from urllib.parse import quote, urlencode, urlsplit
 
 from flask import (
     Blueprint,
@@ -52,16 +53,17 @@ def _check_access():
     if given is not None:
         if not token_ok(given):
             return render_template("login.html", error="That token is not valid."), 401
-        args = {k: v for k, v in request.args.items(multi=True) if k != "token"}
-        target = request.path + (("?" + urlencode(args)) if args else "")
-        resp = redirect(target)
+        args = [(k, v) for k, v in request.args.items(multi=True) if k != "token"]
+        target = local_path(_quoted_path() + (("?" + urlencode(args)) if args else ""))
+        resp = redirect(target or url_for("portfolio.index"))
         _set_cookie(resp, token)
         return resp
     cookie = request.cookies.get(COOKIE)
     if cookie and hmac.compare_digest(cookie, _cookie_value(token)):
         return None
     if request.method == "GET" and request.accept_mimetypes.accept_html:
-        return redirect(url_for("auth.login", next=request.full_path.rstrip("?")))
+        query = request.query_string.decode("latin-1")
+        return redirect(url_for("auth.login", next=_quoted_path() + (f"?{query}" if query else "")))
     return render_template("login.html", error="An access token is required."), 401
 
 
@@ -83,11 +85,44 @@ def _headers(resp):
     return resp
 
 
-def _safe_next(target: str | None) -> str:
-    # only a path on this server: never an absolute or scheme-relative URL
-    if not target or not target.startswith("/") or target.startswith("//") or "\\" in target:
-        return url_for("portfolio.index")
+# C0 and C1 control characters and DEL: browsers drop tabs and line breaks from addresses
+# (so "/<TAB>/host" becomes "//host") and CR/LF cannot go into a header
+_CONTROL = re.compile(r"[\x00-\x1f\x7f-\x9f]")
+#: characters left as they are when a decoded path is written back into an address
+_PATH_SAFE = "/!$&'()*+,;=:@~-._"
+
+
+def _quoted_path() -> str:
+    """The request's path as it travels in an address (a meter id's "%", "?" or "#" encoded)."""
+    return quote(request.path, safe=_PATH_SAFE)
+
+
+def local_path(target: str | None) -> str | None:
+    """``target`` when it is a path on this server, else None.
+
+    Accepted: "/" alone, or "/" followed by a character other than "/" and a backslash, with
+    no control character, no backslash anywhere, no scheme and no host. Everything else —
+    "//host", "/<backslash>host", "/<TAB>/host", "https://host", "javascript:...", a CR/LF — is
+    refused.
+    """
+    if not target or len(target) > 4096 or not target.startswith("/"):
+        return None
+    if _CONTROL.search(target) or "\\" in target:
+        return None
+    if len(target) > 1 and target[1] in "/\\":
+        return None
+    try:
+        parts = urlsplit(target)
+    except ValueError:
+        return None
+    if parts.scheme or parts.netloc or not parts.path.startswith("/"):
+        return None
     return target
+
+
+def _safe_next(target: str | None) -> str:
+    """Where the login goes next: a local path, else the portfolio."""
+    return local_path(target) or url_for("portfolio.index")
 
 
 @bp.route("/login", methods=["GET", "POST"])
