@@ -26,8 +26,9 @@ def audit_table(periods: list[dict], currency: str) -> str:
 
 @click.command("audit")
 @click.option("--meter", "meter", required=True, metavar="M", help="Meter id as imported.")
-@click.option("--tariff", "tariff", required=True, metavar="FILE",
-              help="Tariff TOML file (or the name of a shipped example).")
+@click.option("--tariff", "tariff", metavar="FILE",
+              help="Tariff TOML file (or the name of a shipped example); default: the meter's own "
+                   "(auditor meters set-tariff).")
 @click.option("--from", "start", type=click.DateTime(["%Y-%m-%d"]), help="First local day (inclusive).")
 @click.option("--to", "end", type=click.DateTime(["%Y-%m-%d"]), help="Last local day (exclusive).")
 @click.option("--billing-day", type=click.IntRange(1, 28), help="Day of month billing periods start (default: calendar months).")

@@ -43,6 +43,9 @@ def import_cmd(ctx: Context, paths, site, tz, profile, estimate_gaps, strict, dr
             raise click.UsageError("give either --inbox DIR or files, not both")
         result = run_inbox(ctx.store, inbox, options, wait_seconds=wait_seconds)
         files = result["files"]
+        checks = _checks_after(ctx, files, options)
+        if checks:
+            result["checks"] = checks
         if json_out:
             echo_json(result)
         else:
@@ -51,6 +54,7 @@ def import_cmd(ctx: Context, paths, site, tz, profile, estimate_gaps, strict, dr
                 if isinstance(skipped, dict):
                     skipped = f"{skipped.get('path', '')} ({skipped.get('reason', '')})"
                 click.echo(f"skipped   {skipped}")
+            _print_checks(checks)
         return 1 if any(f["status"] == "rejected" for f in files) else 0
     if not paths:
         raise click.UsageError("give at least one file to import (or --inbox DIR)")
@@ -70,11 +74,28 @@ def import_cmd(ctx: Context, paths, site, tz, profile, estimate_gaps, strict, dr
             if bar is not None:
                 bar.__exit__(None, None, None)
     files = [o.as_dict() for o in outcomes]
+    checks = _checks_after(ctx, files, options)
     if json_out:
-        echo_json({"files": files})
+        echo_json({"files": files, **({"checks": checks} if checks else {})})
     else:
         _print_outcomes(files)
+        _print_checks(checks)
     return 1 if any(o.status == "rejected" for o in outcomes) else 0
+
+
+def _checks_after(ctx: Context, files: list[dict], options: ImportOptions) -> dict | None:
+    """The monitoring checks for the meters just imported (auditor.services.alerts)."""
+    if options.dry_run:
+        return None
+    from auditor.services.alerts import checks_after_import
+
+    return checks_after_import(ctx.store, files)
+
+
+def _print_checks(checks: dict | None) -> None:
+    if checks:
+        click.echo(f"checks: {checks.get('summary') or 'not run: ' + checks.get('error', '')}"
+                   + (" (auditor alerts lists them)" if checks.get("raised") else ""))
 
 
 def _print_outcomes(files: list[dict], message: str | None = None) -> None:
@@ -100,11 +121,14 @@ def _print_outcomes(files: list[dict], message: str | None = None) -> None:
             click.echo(f"          … {len(warnings) - 10} more warning(s) (see --json)")
 
 
-@click.command("meters")
+@click.group("meters", invoke_without_command=True)
 @click.option("--json", "json_out", is_flag=True, help="Machine-readable output.")
-@pass_ctx
-def meters_cmd(ctx: Context, json_out: bool):
-    """List meters with their data span and coverage."""
+@click.pass_context
+def meters_cmd(cctx: click.Context, json_out: bool):
+    """List meters with their data span and coverage (subcommands: set-tariff)."""
+    if cctx.invoked_subcommand is not None:
+        return 0
+    ctx: Context = cctx.find_object(Context)
     from auditor.services.ingest import list_meters
 
     meters = list_meters(ctx.store)

@@ -110,7 +110,8 @@ def list_sites(store: Store) -> list[dict]:
 
 def load_sites_file(store: Store, path: str | Path) -> list[dict]:
     """Sites from a TOML file of ``[[site]]`` tables (name, timezone, nominal_voltage_v,
-    transformer_kva, transformer_impedance_percent, meters)."""
+    transformer_kva, transformer_impedance_percent, meters, and the meters' own ``tariff`` —
+    a file relative to the sites file or a shipped example's name — with ``billing_day``)."""
     path = Path(path)
     try:
         data = tomllib.loads(path.read_text(encoding="utf-8"))
@@ -120,14 +121,18 @@ def load_sites_file(store: Store, path: str | Path) -> list[dict]:
         raise ProfileError("site", f"not valid TOML: {exc}", str(path)) from None
     out = []
     for i, entry in enumerate(data.get("site", [])):
-        extra = set(entry) - {"name", "meters", *SITE_FIELDS}
+        extra = set(entry) - {"name", "meters", "tariff", "billing_day", *SITE_FIELDS}
         if "name" not in entry:
             raise ProfileError(f"site[{i}].name", "every site needs a name", str(path))
         if extra:
-            raise ProfileError(f"site[{i}].{sorted(extra)[0]}", f"unknown key; allowed: name, meters, {', '.join(SITE_FIELDS)}",
-                               str(path))
+            raise ProfileError(f"site[{i}].{sorted(extra)[0]}", f"unknown key; allowed: name, meters, tariff, "
+                               f"billing_day, {', '.join(SITE_FIELDS)}", str(path))
         fields = {k: entry[k] for k in SITE_FIELDS if k in entry}
         out.append(set_site(store, entry["name"], list(entry.get("meters", [])), **fields))
+        if "tariff" in entry or "billing_day" in entry:
+            from auditor.services.meter_tariff import set_site_tariff
+
+            out[-1]["tariff"] = set_site_tariff(store, out[-1]["meters"], entry, path, f"site[{i}]")
     return out
 
 
