@@ -12,12 +12,14 @@ from auditor.monitoring.checks import (
     CheckSettings,
     Evaluation,
     Finding,
+    Projection,
     TariffPlan,
     correction_loss,
     data_quality,
     data_stopped,
     leading_at_light_load,
     multiplier_change,
+    project_periods,
     projected_charge,
     run_checks,
 )
@@ -25,7 +27,7 @@ from auditor.monitoring.days import DaySummaries, summarise_days
 from auditor.monitoring.panel import Panel, build_panel
 
 __all__ = [
-    "KINDS", "SEVERITY", "Anchor", "CheckSettings", "Evaluation", "Finding", "TariffPlan",
+    "KINDS", "SEVERITY", "Anchor", "CheckSettings", "Evaluation", "Finding", "Projection", "TariffPlan",
     "DaySummaries", "Panel", "build_panel", "summarise_days", "correction_loss", "data_quality",
-    "data_stopped", "leading_at_light_load", "multiplier_change", "projected_charge", "run_checks",
+    "data_stopped", "leading_at_light_load", "multiplier_change", "project_periods", "projected_charge", "run_checks",
 ]

@@ -46,7 +46,7 @@ from auditor.tariffs.spec import Tariff
 
 __all__ = [
     "KINDS", "SEVERITY", "CheckSettings", "Finding", "TariffPlan", "Anchor", "Evaluation",
-    "projected_charge", "correction_loss", "leading_at_light_load", "data_stopped", "data_quality",
+    "Projection", "project_periods", "projected_charge", "correction_loss", "leading_at_light_load", "data_stopped", "data_quality",
     "multiplier_change", "run_checks",
 ]
 
@@ -485,8 +485,9 @@ def correction_loss(panel: Panel, settings: CheckSettings | None = None,
     line of the four weeks before the recent days) over the last five weeks. The line is then
     refitted on the four weeks before that day, and the rise of every day since, and of the
     recent days, must reach ``step_min_fraction`` of the usual kvar, ``step_sigma`` times the
-    day-to-day scatter of the baseline and ``step_min_kvar``. An open alert keeps its own day
-    (``anchors``) and is judged on the recent days only. Money a month: the tariff on the four
+    day-to-day scatter of the baseline and ``step_min_kvar``. The step's size is the mean rise of
+    its first two weeks. An open alert keeps its own day (``anchors``); whether it lasts is
+    judged on the recent days. Money a month: the tariff on the four
     weeks before with the step added to every hour, minus without, stretched to a month.
     """
     s = settings or CheckSettings()
@@ -512,7 +513,9 @@ def correction_loss(panel: Panel, settings: CheckSettings | None = None,
     trend_a, trend_b = _line(rel, res, base)
     res = res - (trend_a[:, None] + trend_b[:, None] * np.minimum(rel, s.baseline_days))
     recent = _cols_between(panel, np.maximum(split, last - s.recent_days), last) & ok
-    after = np.where(is_anchored[:, None], recent, _cols_between(panel, split, last) & ok)
+    # the size of the step is measured where it happened (its first two weeks), whether it
+    # lasts is judged on the recent days
+    after = _cols_between(panel, split, np.minimum(split + 2 * s.recent_days, last)) & ok
     step = _masked_mean(res, after)
     step_recent = _masked_mean(res, recent)
     scatter = _masked_std(res, base)
@@ -520,7 +523,7 @@ def correction_loss(panel: Panel, settings: CheckSettings | None = None,
     need = np.fmax.reduce([s.step_min_fraction * kvar_mean, s.step_sigma * np.nan_to_num(scatter),
                            s.step_min_kw_share * np.nan_to_num(kw_mean), np.full(M, s.step_min_kvar)])
     evaluated = (nb >= s.min_baseline_days) & (recent.sum(1) >= s.min_recent_days)
-    fire = evaluated & (step >= need) & (step_recent >= need)
+    fire = evaluated & (step_recent >= need) & ((step >= need) | is_anchored)
     out = []
     for m in np.flatnonzero(fire):
         col = int(split[m])
@@ -669,36 +672,118 @@ def _cells(hourly: np.ndarray) -> np.ndarray:
     return hourly.transpose(0, 2, 1, 3).reshape(K, 3, n * 24)
 
 
-def projected_charge(panel: Panel, plans: Sequence[TariffPlan | None],
-                     settings: CheckSettings | None = None) -> Evaluation:
-    """The open billing period's charges so far and projected to its end.
+@dataclass(frozen=True)
+class Projection:
+    """The open billing period of one meter: charges so far, projected to its end, and the
+    period before as it happened (each a dict of charges plus ``reactive_total``, ``total`` and
+    the tariff-basis ``billing_pf``)."""
+
+    meter: str
+    period: BillingPeriod
+    previous: BillingPeriod
+    tariff: str
+    currency: str
+    so_far: dict
+    projected: dict
+    before: dict
+    previous_coverage: float
+    data_until: str
+    thresholds: tuple
+
+    @property
+    def reactive_at_previous_rate(self) -> float:
+        return self.before["reactive_total"] / self.previous.days * self.period.days
+
+    def to_dict(self) -> dict:
+        return {"period": self.period.label, "period_start": self.period.start.isoformat(),
+                "period_end": self.period.end.isoformat(), "tariff": self.tariff, "currency": self.currency,
+                "so_far": self.so_far, "projected": self.projected,
+                "previous": {"period": self.previous.label, **self.before},
+                "previous_coverage": _r(self.previous_coverage, 4),
+                "reactive_at_previous_rate": _money(self.reactive_at_previous_rate),
+                "thresholds": [{"key": t["key"], "threshold_pf": _r(t["pf"]),
+                                "projected_pf": self.projected["billing_pf"], "so_far_pf": self.so_far["billing_pf"],
+                                "below": bool(self.projected["billing_pf"] is not None
+                                              and self.projected["billing_pf"] < t["pf"])}
+                               for t in self.thresholds],
+                "data_until": self.data_until}
+
+
+def _charges_of(ch, i: int) -> dict:
+    out = _charge_dict(ch, i)
+    out["reactive_total"] = _money(float(ch.reactive_total[i]))
+    out["total"] = _money(float(ch.total[i]))
+    out["billing_pf"] = _r(ch.billing_pf[i], 4)
+    return out
+
+
+def project_periods(panel: Panel, plans: Sequence[TariffPlan | None],
+                    settings: CheckSettings | None = None) -> list[Projection | None]:
+    """The open billing period's charges so far and projected to its end, per meter (None for a
+    meter without a tariff, without data, or with too short a history).
 
     So far: the tariff on the hours with data up to the last interval (exact, as an audit of the
     period to date, apart from a demand ratchet). Projected: every later hour of the period
     filled with the mean of the same weekday and hour over the complete days of the four weeks
     up to the last interval; each later day's peaks with the mean daily peaks of its weekday.
-    A finding when the projected reactive charge per day is above the last period's by
-    ``charge_raise_fraction`` (or starts from nothing) and the increase is at least
-    ``charge_min_share`` of the projected bill. Meters sharing a tariff, billing day and time
-    zone are priced together.
+    Meters sharing a tariff, billing day and time zone are priced together.
     """
     s = settings or CheckSettings()
-    evaluated = np.zeros(panel.n_meters, dtype=bool)
-    out: list[Finding] = []
+    out: list[Projection | None] = [None] * panel.n_meters
     groups: dict[tuple, list[int]] = {}
     for m in range(panel.n_meters):
         plan = plans[m] if plans is not None else None
         if plan is not None and panel.last_start[m] >= 0:
             groups.setdefault((id(plan.tariff), plan.billing_day, panel.timezones[m]), []).append(m)
     for members in groups.values():
-        found, judged = _project_group(panel, plans, np.asarray(members), s)
-        evaluated[judged] = True
-        out += found
+        for m, p in _project_group(panel, plans, np.asarray(members), s).items():
+            out[m] = p
+    return out
+
+
+def projected_charge(panel: Panel, plans: Sequence[TariffPlan | None],
+                     settings: CheckSettings | None = None,
+                     projections: Sequence[Projection | None] | None = None) -> Evaluation:
+    """An alert when the open period's projection (:func:`project_periods`) starts a reactive
+    charge or raises it: the projected reactive charge above the last period's, per day, by
+    ``charge_raise_fraction`` and by at least ``charge_min_share`` of the projected bill. Money a
+    month: that increase, per month. Meters whose previous period is less than
+    ``complete_fraction`` covered are not judged."""
+    s = settings or CheckSettings()
+    if projections is None:
+        projections = project_periods(panel, plans, s)
+    evaluated = np.zeros(panel.n_meters, dtype=bool)
+    out = []
+    for m, p in enumerate(projections):
+        if p is None or not p.previous_coverage >= s.complete_fraction:
+            continue
+        evaluated[m] = True
+        proj_r = p.projected["reactive_total"] or 0.0
+        usual = p.reactive_at_previous_rate
+        increase = proj_r - usual
+        if not (proj_r > 0 and increase >= s.charge_raise_fraction * max(usual, 0.0)
+                and increase >= s.charge_min_share * (p.projected["total"] or 0.0)):
+            continue
+        figures = p.to_dict()
+        cur = p.currency
+        what = "starts a reactive charge" if usual <= 0 else "raises the reactive charge"
+        text = (f"The {p.period.label} projection {what}: {_fmt_money(proj_r, cur)} by {p.period.end} "
+                f"against {_fmt_money(usual, cur)} at last period's rate")
+        below = [t for t in figures["thresholds"] if t["below"]]
+        if below:
+            text += "; projected PF " + ", ".join(
+                f"{t['projected_pf']:.3f} under {t['key']} {t['threshold_pf']:.3f}" for t in below)
+        out.append(Finding(
+            meter=p.meter, kind="projected_charge",
+            since=pd.Timestamp(p.period.start).tz_localize(panel.timezones[m]).tz_convert("UTC"),
+            severity=SEVERITY["projected_charge"],
+            money_per_month=_money(increase * s.days_per_month / p.period.days),
+            currency=cur, message=text + ".", cause=p.period.label, figures=figures))
     return Evaluation("projected_charge", evaluated, out)
 
 
 def _project_group(panel: Panel, plans: Sequence[TariffPlan | None], members: np.ndarray,
-                   s: CheckSettings) -> tuple[list[Finding], list[int]]:
+                   s: CheckSettings) -> dict[int, Projection]:
     D = panel.n_days
     last = D - 1
     ok = _complete(panel, s)
@@ -709,7 +794,7 @@ def _project_group(panel: Panel, plans: Sequence[TariffPlan | None], members: np
     p0, p1 = panel.column_of(members[0], open_p.start), panel.column_of(members[0], open_p.end)
     q0 = panel.column_of(members[0], prev_p.start)
     if q0 < 0:
-        return [], []  # the panel does not reach back to the previous period
+        return {}  # the panel does not reach back to the previous period
     cols_in = np.arange(p0, p1)
     n_cells = len(cols_in) * 24
     days = first + cols_in
@@ -724,7 +809,7 @@ def _project_group(panel: Panel, plans: Sequence[TariffPlan | None], members: np
     enough = prof_days[members].sum(1) >= s.profile_min_days
     members, cut_col, cut_cell = members[enough], cut_col[enough], cut_cell[enough]
     if not len(members):
-        return [], []
+        return {}
     K = len(members)
     prof_h = np.nan_to_num(_weekday_profile(panel, prof_days, panel.hourly)[members])  # (K, 7, 3, 24)
     inside = (cols_in >= 0) & (cols_in < D)
@@ -758,49 +843,15 @@ def _project_group(panel: Panel, plans: Sequence[TariffPlan | None], members: np
     ch_prev = pricing.charges(tariff, prev_q)
     prev_cover = _div(panel.cols["intervals"][members][:, prev_cols].sum(1),
                       panel.cols["expected"][members][:, prev_cols].sum(1))
-    open_days = (open_p.end - open_p.start).days
-    prev_days = (prev_p.end - prev_p.start).days
-    out, judged = [], []
+    out = {}
     for i, m in enumerate(members):
-        if not prev_cover[i] >= s.complete_fraction:
-            continue  # no full period to compare with
-        judged.append(int(m))
-        proj_r = float(ch_end.reactive_total[i])
-        prev_r = float(ch_prev.reactive_total[i])
-        usual = prev_r / prev_days * open_days
-        increase = proj_r - usual
-        if not (proj_r > 0 and increase >= s.charge_raise_fraction * max(usual, 0.0)
-                and increase >= s.charge_min_share * float(ch_end.total[i])):
-            continue
-        pf_end = float(ch_end.billing_pf[i])
-        thresholds = [{"key": t["key"], "threshold_pf": _r(t["pf"]), "projected_pf": _r(pf_end),
-                       "so_far_pf": _r(ch_now.billing_pf[i]), "below": bool(pf_end < t["pf"])}
-                      for t in plans[m].thresholds]
-        cur = tariff.currency
-        what = "starts a reactive charge" if usual <= 0 else "raises the reactive charge"
-        text = (f"The {open_p.label} projection {what}: {_fmt_money(proj_r, cur)} by {open_p.end} "
-                f"against {_fmt_money(usual, cur)} at last period's rate")
-        below = [t for t in thresholds if t["below"]]
-        if below:
-            text += "; projected PF " + ", ".join(
-                f"{t['projected_pf']:.3f} under {t['key']} {t['threshold_pf']:.3f}" for t in below)
         data_until = pd.Timestamp(int(panel.last_start[m]) + 60 * int(panel.interval_minutes[m]), unit="s", tz="UTC")
-        out.append(Finding(
-            meter=panel.meters[m], kind="projected_charge",
-            since=pd.Timestamp(open_p.start).tz_localize(tz).tz_convert("UTC"),
-            severity=SEVERITY["projected_charge"], money_per_month=_money(increase * s.days_per_month / open_days),
-            currency=cur, message=text + ".", cause=open_p.label,
-            figures={"period": open_p.label, "period_start": open_p.start.isoformat(),
-                     "period_end": open_p.end.isoformat(), "tariff": tariff.name,
-                     "so_far": {**_charge_dict(ch_now, i), "reactive_total": _money(float(ch_now.reactive_total[i])),
-                                "total": _money(float(ch_now.total[i]))},
-                     "projected": {**_charge_dict(ch_end, i), "reactive_total": _money(proj_r),
-                                   "total": _money(float(ch_end.total[i]))},
-                     "previous": {"period": prev_p.label, "reactive_total": _money(prev_r),
-                                  "total": _money(float(ch_prev.total[i]))},
-                     "reactive_at_previous_rate": _money(usual), "thresholds": thresholds,
-                     "data_until": data_until.tz_convert(tz).isoformat()}))
-    return out, judged
+        out[int(m)] = Projection(
+            meter=panel.meters[m], period=open_p, previous=prev_p, tariff=tariff.name, currency=tariff.currency,
+            so_far=_charges_of(ch_now, i), projected=_charges_of(ch_end, i), before=_charges_of(ch_prev, i),
+            previous_coverage=float(prev_cover[i]), data_until=data_until.tz_convert(tz).isoformat(),
+            thresholds=tuple(plans[m].thresholds))
+    return out
 
 
 # --------------------------------------------------------------------------------------------
