@@ -483,12 +483,14 @@ def correction_loss(panel: Panel, settings: CheckSettings | None = None,
     Each day's mean lagging kvar is compared with what a kvar-kW line gives at that day's mean
     kW. The step is dated first: the best single-step split of the daily residuals (against the
     line of the four weeks before the recent days) over the last five weeks. The line is then
-    refitted on the four weeks before that day, and the rise of every day since, and of the
-    recent days, must reach ``step_min_fraction`` of the usual kvar, ``step_sigma`` times the
-    day-to-day scatter of the baseline and ``step_min_kvar``. The step's size is the mean rise of
-    its first two weeks. An open alert keeps its own day (``anchors``); whether it lasts is
-    judged on the recent days. Money a month: the tariff on the four
-    weeks before with the step added to every hour, minus without, stretched to a month.
+    refitted on the four weeks before that day, the drift of its residuals carried on (a
+    segmented regression of an interrupted time series), and the step is the mean rise of its
+    first two weeks. It must reach ``step_min_fraction`` of the usual kvar, ``step_sigma``
+    times the day-to-day scatter of the baseline, ``step_min_kw_share`` of the mean kW and
+    ``step_min_kvar``, and the recent days must still show it. An open alert keeps its own day
+    (``anchors``); whether it lasts is judged on the recent days. Money a month: the tariff on
+    the four weeks before with the step added to every hour, minus without, stretched to a
+    month.
     """
     s = settings or CheckSettings()
     M, D = panel.n_meters, panel.n_days

@@ -104,8 +104,8 @@ def build_panel(summaries: DaySummaries, meters: Sequence[str], timezones: Seque
         ok = (col >= 0) & (col < D)
         m, col = m[ok], col[ok]
         present[m, col] = True
-        for k, v in summaries.columns.items():
-            cols[k][m, col] = v[ok]
+        for k in cols:
+            cols[k][m, col] = summaries.columns[k][ok]
         hourly[m, col] = summaries.hourly[ok]
     for i, tz in enumerate(timezones):
         cols["expected"][i] = expected_per_day(first[i] + np.arange(D), tz, int(interval_minutes[i]))
