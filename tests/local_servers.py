@@ -123,6 +123,7 @@ class HttpServer:
     posts: list[dict] = field(default_factory=list)
     fail_next: int = 0  # answer 500 to this many requests first
     status: int = 204
+    delay: float = 0.0  # seconds to wait before answering
     lock: threading.Lock = field(default_factory=threading.Lock)
 
 
@@ -133,6 +134,10 @@ def start_http():
     class Handler(BaseHTTPRequestHandler):
         def do_POST(self):  # noqa: N802 - http.server's hook name
             body = self.rfile.read(int(self.headers.get("Content-Length", 0)))
+            if box.delay:
+                import time
+
+                time.sleep(box.delay)
             with box.lock:
                 fail = box.fail_next > 0
                 if fail:

@@ -11,6 +11,7 @@ from sqlalchemy import select
 
 from auditor.errors import NotFoundError, ProfileError, TariffError, UsageError
 from auditor.ingest.pipeline import ImportOptions
+from auditor.monitoring import DaySummaries
 from auditor.services.alerts import (
     alert_counts,
     evaluate,
@@ -146,7 +147,9 @@ def _days_csv(path, meter, first, days, kwh=10.0, lag=6.0, day_override=None):
 def _stored_day(store, day):
     with store.session() as s:
         row = s.scalars(select(MonitorDay).where(MonitorDay.day == pd.Timestamp(day).date())).one()
-        return row.kwh, row.intervals, row.multiplier
+        summary = DaySummaries.unpack([0], row.summary)
+        assert str(summary.day[0]) == str(row.day)
+        return float(summary.columns["kwh"][0]), row.intervals, row.multiplier
 
 
 def test_day_summaries_follow_revisions_and_the_multiplier(store, tmp_path):

@@ -38,7 +38,7 @@ from auditor.monitoring import (
     summarise_days,
 )
 from auditor.quantities import BillingPeriod
-from auditor.services.alerts import clause_facts
+from auditor.services.alerts import WINDOW_DAYS, clause_facts
 from auditor.tariffs import EXAMPLES_DIR, load_tariff
 
 TARIFF = load_tariff(EXAMPLES_DIR / "harrowgate_industrial_tou.toml")
@@ -49,7 +49,7 @@ def plan_of(tariff=TARIFF, billing_day=None) -> TariffPlan:
     return TariffPlan(tariff, billing_day, thresholds, leading)
 
 
-def panel_of(frames, as_of, meters=METERS, days=70, minutes=None, tzs=None):
+def panel_of(frames, as_of, meters=METERS, days=WINDOW_DAYS, minutes=None, tzs=None):
     long = long_frame(frames, meters)
     long = long[long["start"] < int(as_of.timestamp())]
     tzs = tzs or [TZ] * len(meters)
@@ -250,7 +250,7 @@ def test_an_open_alert_keeps_its_cause_past_the_baseline_window():
     """Fifty days on, the step is inside any four-week baseline: found afresh it is not, but the
     open alert, judged against the weeks before its own first day, is still confirmed."""
     as_of = STEP_DAY + pd.Timedelta(days=50)
-    panel = panel_of(planted_frames(as_of), as_of)
+    panel = panel_of(planted_frames(as_of), as_of, days=50 + 28 + 2)  # the service widens the window so
     assert correction_loss(panel, CheckSettings(), [plan_of()] * 3).findings == []
     anchor = Anchor(0, "correction_loss", np.datetime64("2025-09-15"))
     (f,) = correction_loss(panel, CheckSettings(), [plan_of()] * 3, [anchor]).findings
@@ -264,7 +264,7 @@ def test_clean_demo_year_raises_no_fault(clean_days):
     tzs, minutes = [TZ] * 3, [15] * 3
     plans = [plan_of()] * 3
     for as_of in pd.date_range("2025-03-01T03:00", "2025-12-31T03:00", freq="3D", tz=TZ):
-        panel = build_panel(clean_days, list(METERS), tzs, minutes, as_of, 70)
+        panel = build_panel(clean_days, list(METERS), tzs, minutes, as_of, WINDOW_DAYS)
         for check in (correction_loss, leading_at_light_load, multiplier_change):
             found = check(panel, CheckSettings(), plans).findings
             assert found == [], (as_of, [f.message for f in found])
@@ -292,7 +292,7 @@ def test_multiplier_change_found_dated_and_its_money_is_the_scaled_bill(demo):
         assert after - before == pytest.approx((r - 1) * (before - TARIFF.fixed_per_period), rel=1e-3)
         assert f.money_per_month == pytest.approx(after - before, abs=0.02)
     # two months on, the open alert is still confirmed from its own first day
-    panel = panel_of(frames, pd.Timestamp("2025-08-10T03:00", tz=TZ))
+    panel = panel_of(frames, pd.Timestamp("2025-08-10T03:00", tz=TZ), days=61 + 28 + 2)
     assert multiplier_change(panel, CheckSettings(), [plan_of()] * 3).findings == []
     anchor = Anchor(1, "multiplier_change", np.datetime64("2025-06-10"))
     (f,) = multiplier_change(panel, CheckSettings(), [plan_of()] * 3, [anchor]).findings
@@ -327,14 +327,14 @@ def test_rising_missing_and_estimated_data(demo):
     and its lost day in October are found; a quiet week is not."""
     tzs, minutes = [TZ] * 3, [15] * 3
     ds = summarise_days(long_frame(demo), tzs, minutes)
-    found = data_quality(build_panel(ds, list(METERS), tzs, minutes, pd.Timestamp("2025-03-14T03:00", tz=TZ), 70))
+    found = data_quality(build_panel(ds, list(METERS), tzs, minutes, pd.Timestamp("2025-03-14T03:00", tz=TZ), WINDOW_DAYS))
     (f,) = found.findings
     assert f.meter == "KQ-MAIN" and f.since == pd.Timestamp("2025-03-11", tz=TZ)
     assert f.figures["estimated_intervals"] == 192 and f.figures["missing_intervals"] == 0
-    found = data_quality(build_panel(ds, list(METERS), tzs, minutes, pd.Timestamp("2025-10-10T03:00", tz=TZ), 70))
+    found = data_quality(build_panel(ds, list(METERS), tzs, minutes, pd.Timestamp("2025-10-10T03:00", tz=TZ), WINDOW_DAYS))
     (f,) = found.findings
     assert f.since == pd.Timestamp("2025-10-08", tz=TZ) and f.figures["missing_intervals"] == 96
-    quiet = build_panel(ds, list(METERS), tzs, minutes, pd.Timestamp("2025-09-10T03:00", tz=TZ), 70)
+    quiet = build_panel(ds, list(METERS), tzs, minutes, pd.Timestamp("2025-09-10T03:00", tz=TZ), WINDOW_DAYS)
     assert data_quality(quiet).findings == []
 
 

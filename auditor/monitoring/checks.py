@@ -284,21 +284,43 @@ def data_quality(panel: Panel, settings: CheckSettings | None = None,
     return Evaluation("data_quality", evaluated, out)
 
 
-def _weekday_profile(panel: Panel, days: np.ndarray, values: np.ndarray, robust: bool = False) -> np.ndarray:
+def _nanmedian(x: np.ndarray, axis: int) -> np.ndarray:
+    """Median along ``axis`` ignoring NaN (NaN where all are NaN), by one sort: numpy's
+    ``nanmedian`` goes through masked arrays and is many times slower on these shapes."""
+    x = np.moveaxis(np.asarray(x, dtype=float), axis, -1)
+    s = np.sort(x, axis=-1)  # NaN sort last
+    n = np.isfinite(x).sum(axis=-1)
+    lo = np.take_along_axis(s, np.maximum((n - 1) // 2, 0)[..., None], axis=-1)[..., 0]
+    hi = np.take_along_axis(s, np.maximum(n // 2, 0)[..., None], axis=-1)[..., 0]
+    return np.where(n > 0, (lo + hi) / 2, np.nan)
+
+
+def _weekday_profile(panel: Panel, days: np.ndarray, values: np.ndarray, robust: bool = False,
+                     rows: np.ndarray | None = None) -> np.ndarray:
     """(M, 7, ...) mean (``robust``: median) of ``values`` (M, D, ...) over the selected days of
-    each weekday; NaN where a weekday has no selected day."""
-    wd = panel.weekday
+    each weekday; NaN where a weekday has no selected day. ``rows`` restricts it to those meters
+    (then ``days`` and ``values`` hold only their rows).
+
+    The days of each weekday are gathered first (column j of meter m is weekday
+    ``(weekday of first_day[m] + j) mod 7``), so the work is (meters, 7, weeks), not (meters,
+    7, days)."""
+    rows = np.arange(panel.n_meters) if rows is None else np.asarray(rows)
+    M, D = days.shape
+    weeks = -(-D // 7)
+    first_wd = (panel.first_day[rows].astype(np.int64) + 3) % 7  # weekday of column 0
+    # column of the k-th day of weekday w for each meter
+    col = ((np.arange(7)[None, :, None] - first_wd[:, None, None]) % 7) + 7 * np.arange(weeks)[None, None, :]
+    inside = col < D
+    col = np.minimum(col, D - 1)
+    m = np.arange(M)[:, None, None]
+    sel = days[m, col] & inside  # (M, 7, weeks)
     extra = values.shape[2:]
-    out = np.full((panel.n_meters, 7, *extra), np.nan)
-    for d in range(7):
-        sel = (days & (wd == d)).reshape(*days.shape, *([1] * len(extra)))
-        if robust:
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore", RuntimeWarning)  # a weekday without days
-                out[:, d] = np.nanmedian(np.where(sel, values, np.nan), axis=1)
-        else:
-            out[:, d] = _div((values * sel).sum(axis=1), sel.sum(axis=1))
-    return out
+    picked = values[m, col]  # (M, 7, weeks, ...)
+    sel_x = sel.reshape(*sel.shape, *([1] * len(extra)))
+    if robust:
+        return _nanmedian(np.where(sel_x, picked, np.nan), axis=2)
+    n = sel.sum(axis=2).reshape(M, 7, *([1] * len(extra)))
+    return _div(np.where(sel_x, np.nan_to_num(picked), 0.0).sum(axis=2), n)
 
 
 def _hour_ratios(panel: Panel, days: np.ndarray, profile: np.ndarray, q: int):
@@ -313,10 +335,8 @@ def _hour_ratios(panel: Panel, days: np.ndarray, profile: np.ndarray, q: int):
     with np.errstate(divide="ignore", invalid="ignore"):
         logr = np.where(usable, np.log(np.where(usable, values, 1.0) / np.where(usable, ref, 1.0)), np.nan)
     enough = usable.sum(axis=2) >= 6
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN days
-        med = np.nanmedian(logr, axis=2)
-        spread = np.nanmedian(np.abs(logr - med[:, :, None]), axis=2)
+    med = _nanmedian(logr, axis=2)
+    spread = _nanmedian(np.abs(logr - med[:, :, None]), axis=2)
     return np.where(enough, med, np.nan), np.where(enough, spread, np.nan)
 
 
@@ -347,6 +367,33 @@ def multiplier_change(panel: Panel, settings: CheckSettings | None = None,
     of the four weeks before its first day. An open alert keeps its first day (``anchors``).
     """
     s = settings or CheckSettings()
+    anchored = _anchor_map(anchors, "multiplier_change")
+    # a cheap first look: only meters with a recent day whose kWh is off the median of its
+    # weekday by nearly the minimum change go on to the hour-by-hour test
+    ok = _complete(panel, s)
+    last = panel.n_days - 1
+    first_guess = last - s.recent_days
+    wide = _cols_between(panel, first_guess - 2 * s.baseline_days, first_guess) & ok
+    usual = _weekday_profile(panel, wide, panel.cols["kwh"], robust=True)  # (M, 7)
+    ref = usual[np.arange(panel.n_meters)[:, None], panel.weekday]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        off = np.abs(np.log(panel.cols["kwh"] / ref))
+    recent = _cols_between(panel, first_guess - s.baseline_days, last) & ok
+    candidates = (np.where(recent, np.nan_to_num(off, nan=0.0), 0.0) >= 0.75 * math.log1p(s.multiplier_min_change)).any(axis=1)
+    candidates[list(anchored)] = True
+    rows = np.flatnonzero(candidates)
+    evaluated = (wide.sum(1) >= s.min_baseline_days) | np.isin(np.arange(panel.n_meters), list(anchored))
+    if not len(rows):
+        return Evaluation("multiplier_change", evaluated, [])
+    sub_anchors = [Anchor(int(np.flatnonzero(rows == a.meter)[0]), a.kind, a.since_day, a.figures)
+                   for a in anchored.values()]
+    sub_plans = [plans[i] for i in rows] if plans is not None else None
+    found = _multiplier_change(panel.subset(rows), s, sub_plans, sub_anchors)
+    evaluated[rows] = found.evaluated
+    return Evaluation("multiplier_change", evaluated, found.findings)
+
+
+def _multiplier_change(panel: Panel, s: CheckSettings, plans, anchors) -> Evaluation:
     M, D = panel.n_meters, panel.n_days
     last = D - 1
     j = np.arange(D)[None, :]
@@ -371,8 +418,9 @@ def multiplier_change(panel: Panel, settings: CheckSettings | None = None,
     all_scaled = (scaled | ~judged).all(axis=1)
     ratios = np.where(judged, np.exp(logr), np.nan)
     with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)
-        lo_r, hi_r, ratio = np.nanmin(ratios, axis=1), np.nanmax(ratios, axis=1), np.nanmedian(ratios, axis=1)
+        warnings.simplefilter("ignore", RuntimeWarning)  # meters without judged days
+        lo_r, hi_r = np.nanmin(ratios, axis=1), np.nanmax(ratios, axis=1)
+    ratio = _nanmedian(ratios, axis=1)
     fire = (evaluated & (n_days >= s.multiplier_min_days) & all_scaled
             & (hi_r / lo_r <= 1 + 2 * s.multiplier_agreement))
     out = []
@@ -813,7 +861,7 @@ def _project_group(panel: Panel, plans: Sequence[TariffPlan | None], members: np
     if not len(members):
         return {}
     K = len(members)
-    prof_h = np.nan_to_num(_weekday_profile(panel, prof_days, panel.hourly)[members])  # (K, 7, 3, 24)
+    prof_h = np.nan_to_num(_weekday_profile(panel, prof_days[members], panel.hourly[members], rows=members))
     inside = (cols_in >= 0) & (cols_in < D)
     actual = np.zeros((K, len(cols_in), 3, 24))
     actual[:, inside] = panel.hourly[members][:, cols_in[inside]]
@@ -825,7 +873,8 @@ def _project_group(panel: Panel, plans: Sequence[TariffPlan | None], members: np
     expect = {}
     for k in pricing.PEAKS:
         daily[k][:, inside] = panel.cols[k][members][:, cols_in[inside]]
-        expect[k] = np.nan_to_num(_weekday_profile(panel, prof_days, panel.cols[k])[members])[:, wd_days]
+        expect[k] = np.nan_to_num(_weekday_profile(panel, prof_days[members], panel.cols[k][members],
+                                                   rows=members))[:, wd_days]
     had = np.zeros((K, len(cols_in)), dtype=bool)
     had[:, inside] = panel.present[members][:, cols_in[inside]]
     had &= cols_in[None, :] <= cut_col[:, None]

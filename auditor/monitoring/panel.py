@@ -73,6 +73,13 @@ class Panel:
         """(M, D) weekday, Monday = 0 (1970-01-01 was a Thursday)."""
         return (self.dates.astype(np.int64) + 3) % 7
 
+    def subset(self, rows) -> Panel:
+        """The panel of the meters at positions ``rows`` only."""
+        rows = np.asarray(rows, dtype=np.int64)
+        return Panel(tuple(self.meters[i] for i in rows), tuple(self.timezones[i] for i in rows),
+                     self.interval_minutes[rows], self.as_of, self.first_day[rows], self.present[rows],
+                     {k: v[rows] for k, v in self.cols.items()}, self.hourly[rows], self.last_start[rows])
+
     def day_start_utc(self, m: int, col: int) -> pd.Timestamp:
         """UTC instant of local midnight starting column ``col`` of meter ``m``."""
         d = pd.Timestamp(self.first_day[m] + np.timedelta64(int(col), "D"))
@@ -83,32 +90,45 @@ class Panel:
         return int((np.datetime64(day, "D") - self.first_day[m]).astype(np.int64))
 
 
-def build_panel(summaries: DaySummaries, meters: Sequence[str], timezones: Sequence[str],
-                interval_minutes: Sequence[int], as_of: pd.Timestamp, n_days: int,
-                last_start: Sequence[int] | None = None) -> Panel:
+def build_panel(summaries: DaySummaries | Sequence[DaySummaries | tuple[DaySummaries, np.ndarray]],
+                meters: Sequence[str], timezones: Sequence[str], interval_minutes: Sequence[int],
+                as_of: pd.Timestamp, n_days: int, last_start: Sequence[int] | None = None) -> Panel:
     """Lay ``summaries`` (meter codes index ``meters``) out as a panel of ``n_days`` days ending
-    on each meter's local day of ``as_of``. Rows outside the window are ignored."""
+    on each meter's local day of ``as_of``. Rows outside the window are ignored. Several parts
+    may be given (each optionally with a mask of the rows to use); a later part's day replaces
+    an earlier one's."""
     as_of = pd.Timestamp(as_of)
     if as_of.tzinfo is None:
         as_of = as_of.tz_localize("UTC")
     as_of = as_of.tz_convert("UTC")
     M, D = len(meters), int(n_days)
-    first = np.array([local_date(as_of, tz) - np.timedelta64(D - 1, "D") for tz in timezones],
+    today = {tz: local_date(as_of, tz) for tz in set(timezones)}
+    first = np.array([today[tz] - np.timedelta64(D - 1, "D") for tz in timezones],
                      dtype="datetime64[D]") if M else np.zeros(0, dtype="datetime64[D]")
     present = np.zeros((M, D), dtype=bool)
     cols = {k: np.zeros((M, D)) for k in (*COUNTS, *SCALARS, "first_start", "last_start")}
     hourly = np.zeros((M, D, 3, 24))
-    if len(summaries):
-        m = summaries.meter
-        col = (summaries.day - first[m]).astype(np.int64)
+    parts = [summaries] if isinstance(summaries, DaySummaries) else list(summaries)
+    for part in parts:
+        part, use = part if isinstance(part, tuple) else (part, None)
+        if not len(part):
+            continue
+        m = part.meter
+        col = (part.day - first[m]).astype(np.int64)
         ok = (col >= 0) & (col < D)
+        if use is not None:
+            ok &= use
         m, col = m[ok], col[ok]
         present[m, col] = True
         for k in cols:
-            cols[k][m, col] = summaries.columns[k][ok]
-        hourly[m, col] = summaries.hourly[ok]
+            cols[k][m, col] = part.columns[k][ok]
+        hourly[m, col] = part.hourly[ok]
+    expected: dict[tuple, np.ndarray] = {}
     for i, tz in enumerate(timezones):
-        cols["expected"][i] = expected_per_day(first[i] + np.arange(D), tz, int(interval_minutes[i]))
+        key = (tz, int(interval_minutes[i]))
+        if key not in expected:
+            expected[key] = expected_per_day(first[i] + np.arange(D), tz, int(interval_minutes[i]))
+        cols["expected"][i] = expected[key]
     last = np.where(present, cols["last_start"], -1).max(axis=1) if D else np.full(M, -1)
     last = last.astype(np.int64)
     if last_start is not None:

@@ -21,6 +21,7 @@ Each evaluation is recorded in ``monitor_run``.
 """
 from __future__ import annotations
 
+import functools
 import json
 import math
 import time
@@ -30,7 +31,7 @@ from datetime import UTC, date, datetime
 
 import numpy as np
 import pandas as pd
-from sqlalchemy import delete, func, insert, select
+from sqlalchemy import bindparam, delete, func, select
 
 from auditor.errors import AuditorError, UsageError
 from auditor.monitoring import (
@@ -44,7 +45,6 @@ from auditor.monitoring import (
     run_checks,
     summarise_days,
 )
-from auditor.monitoring.days import COUNTS, SCALARS
 from auditor.monitoring.panel import local_date
 from auditor.store import Store
 from auditor.store.models import (
@@ -65,9 +65,10 @@ from auditor.tariffs import Tariff
 __all__ = ["evaluate", "RunResult", "list_alerts", "mark_seen", "alert_counts", "open_alerts_of",
            "checks_after_import", "parse_as_of", "rebuild_day_summaries", "WINDOW_DAYS", "STATES"]
 
-#: Days of summaries a run looks at: the open billing period (up to 31 days), the one before
-#: (up to 31) and some slack; the four-week baselines fit inside.
-WINDOW_DAYS = 70
+#: Days of summaries a run looks at: the open billing period and the one before (at most 62
+#: days with the day of ``as_of``), and a four-week baseline before a step dated up to five
+#: weeks back (64 days).
+WINDOW_DAYS = 64
 STATES = ("new", "seen", "resolved")
 STEP_KINDS = ("correction_loss", "leading_at_light_load", "multiplier_change")
 _RANGE_CHUNK = 200  # (meter, start, end) ranges per reading query
@@ -195,8 +196,14 @@ def _read_ranges(store: Store, meters: list[_MeterRow], ranges: list[tuple[int, 
                          "estimated": (flags & (FLAG_ESTIMATED | FLAG_FILLED)) != 0})
 
 
-def _midnight(day: np.datetime64, tz: str) -> int:
+@functools.lru_cache(maxsize=4096)
+def _midnight_of(day: str, tz: str) -> int:
     return _epoch(pd.Timestamp(day).tz_localize(tz, ambiguous=True, nonexistent="shift_forward"))
+
+
+def _midnight(day: np.datetime64, tz: str) -> int:
+    """UTC epoch seconds of local midnight starting ``day``."""
+    return _midnight_of(str(np.datetime64(day, "D")), tz)
 
 
 def _day_ranges(days: list[np.datetime64], tz: str) -> list[tuple[int, int]]:
@@ -216,107 +223,83 @@ def _day_ranges(days: list[np.datetime64], tz: str) -> list[tuple[int, int]]:
 # --------------------------------------------------------------------------------------------
 # day summaries in the store
 # --------------------------------------------------------------------------------------------
-_DAY_COLUMNS = ("multiplier", *COUNTS, *SCALARS, "first_start", "last_start", "hourly")
-
-
-def _load_days(store: Store, meters: list[_MeterRow], first: date) -> DaySummaries:
+def _load_days(store: Store, meters: list[_MeterRow], first: date) -> tuple[DaySummaries, np.ndarray]:
+    """Stored day summaries of ``meters`` from local date ``first`` on, and the multiplier each
+    row was made with."""
     if not meters:
-        return DaySummaries.empty()
+        return DaySummaries.empty(), np.zeros(0)
     by_id = {m.id: i for i, m in enumerate(meters)}
     with store.session() as s:
         conn = s.connection()
         mark = _placeholder(conn)
-        cols = ", ".join(("meter_id", "day", *_DAY_COLUMNS))
         ids = ", ".join([mark] * len(meters))
         cur = conn.connection.driver_connection.cursor()
         try:
-            cur.execute(f"SELECT {cols} FROM monitor_day WHERE meter_id IN ({ids}) AND day >= {mark}",
+            cur.execute(f"SELECT meter_id, multiplier, summary FROM monitor_day WHERE meter_id IN ({ids}) "
+                        f"AND day >= {mark}",
                         (*[m.id for m in meters], first.isoformat() if conn.dialect.name == "sqlite" else first))
             rows = cur.fetchall()
         finally:
             cur.close()
     if not rows:
-        return DaySummaries.empty()
-    n = len(rows)
-    meter = np.fromiter((by_id[r[0]] for r in rows), dtype=np.int64, count=n)
-    day = np.array([r[1] if isinstance(r[1], str) else r[1].isoformat() for r in rows], dtype="datetime64[D]")
-    columns = {}
-    for k, name in enumerate(_DAY_COLUMNS[:-1], start=2):
-        dtype = np.int64 if name in COUNTS or name in ("first_start", "last_start") else np.float64
-        columns[name] = np.fromiter((r[k] for r in rows), dtype=dtype, count=n)
-    hourly = np.frombuffer(b"".join(bytes(r[-1]) for r in rows), dtype="<f8").reshape(n, 3, 24)
-    mult = columns.pop("multiplier")
-    out = DaySummaries(meter, day, columns, hourly.copy())
-    out.columns["multiplier"] = mult  # kept beside for the refresh rule
-    return out
+        return DaySummaries.empty(), np.zeros(0)
+    ids_, mult, blobs = zip(*rows, strict=True)
+    meter = pd.Series(ids_).map(by_id).to_numpy(dtype=np.int64)
+    return DaySummaries.unpack(meter, b"".join(blobs)), np.asarray(mult, dtype=np.float64)
 
 
-def _store_days(store: Store, meters: list[_MeterRow], refreshed: dict[int, list[np.datetime64]],
-                summaries: DaySummaries) -> None:
-    """Replace the summaries of the refreshed days (days without data end with no row)."""
-    deletes = []
-    for i, days in refreshed.items():
-        for a, b in _merge_days(days):
-            deletes.append((meters[i].id, a, b))
-    rows = []
-    for k in range(len(summaries)):
-        m = meters[int(summaries.meter[k])]
-        row = {"meter_id": m.id, "day": pd.Timestamp(summaries.day[k]).date(), "multiplier": m.multiplier,
-               "hourly": np.ascontiguousarray(summaries.hourly[k], dtype="<f8").tobytes()}
-        for name in (*COUNTS, *SCALARS, "first_start", "last_start"):
-            v = summaries.columns[name][k]
-            row[name] = int(v) if name in COUNTS or name in ("first_start", "last_start") else float(v)
-        rows.append(row)
+def _store_days(store: Store, meters: list[_MeterRow], refreshed: list[tuple[int, date, date]],
+                fresh: DaySummaries) -> None:
+    """Replace the summaries of the refreshed day ranges (days without data end with no row)."""
+    packed = fresh.packed()
+    rows = [{"meter_id": meters[int(fresh.meter[k])].id, "day": pd.Timestamp(fresh.day[k]).date(),
+             "multiplier": meters[int(fresh.meter[k])].multiplier,
+             "intervals": int(fresh.columns["intervals"][k]), "expected": int(fresh.columns["expected"][k]),
+             "summary": packed[k].tobytes()} for k in range(len(fresh))]
     with store.session() as s:
-        for mid, a, b in deletes:
-            s.execute(delete(MonitorDay).where(MonitorDay.meter_id == mid, MonitorDay.day >= a, MonitorDay.day < b))
+        t = MonitorDay.__table__
+        conn = s.connection()
+        conn.execute(t.delete().where(t.c.meter_id == bindparam("m"), t.c.day >= bindparam("a"), t.c.day < bindparam("b")),
+                     [{"m": meters[i].id, "a": a, "b": b} for i, a, b in refreshed])
         if rows:
-            s.execute(insert(MonitorDay), rows)
+            conn.execute(t.insert(), rows)
 
 
-def _merge_days(days: list[np.datetime64]) -> list[tuple[date, date]]:
-    out = []
-    days = sorted(days)
-    i = 0
-    while i < len(days):
-        j = i
-        while j + 1 < len(days) and days[j + 1] == days[j] + np.timedelta64(1, "D"):
-            j += 1
-        out.append((pd.Timestamp(days[i]).date(), pd.Timestamp(days[j] + np.timedelta64(1, "D")).date()))
-        i = j + 1
-    return out
-
-
-def _days_to_refresh(store: Store, meters: list[_MeterRow], stored: DaySummaries, first_days: np.ndarray,
-                     last_days: np.ndarray, watermark: int, window_start: int) -> dict[int, list[np.datetime64]]:
-    """Per meter position: the complete local days of the window to (re)summarise."""
-    have: dict[tuple[int, np.datetime64], tuple[int, int, float]] = {}
+def _days_to_refresh(store: Store, meters: list[_MeterRow], stored: DaySummaries, stored_mult: np.ndarray,
+                     first_days: np.ndarray, n_days: int, watermark: int, window_start: int) -> np.ndarray:
+    """(M, n_days - 1) mask of the complete local days of the window to (re)summarise: missing,
+    incomplete, made under another multiplier, or revised by an import since the last run."""
+    M, D = len(meters), n_days - 1
+    have = np.zeros((M, D), dtype=bool)
+    stale = np.ones((M, D), dtype=bool)
     if len(stored):
-        for k in range(len(stored)):
-            have[(int(stored.meter[k]), stored.day[k])] = (int(stored.columns["intervals"][k]),
-                                                           int(stored.columns["expected"][k]),
-                                                           float(stored.columns["multiplier"][k]))
-    revised: set[tuple[int, np.datetime64]] = set()
+        col = (stored.day - first_days[stored.meter]).astype(np.int64)
+        ok = (col >= 0) & (col < D)
+        m, c = stored.meter[ok], col[ok]
+        current = np.array([x.multiplier for x in meters])[m]
+        have[m, c] = True
+        stale[m, c] = ((stored.columns["intervals"][ok] < stored.columns["expected"][ok])
+                       | ~np.isclose(stored_mult[ok], current))
+    refresh = ~have | stale
     with store.session() as s:
-        ids = {m.id: i for i, m in enumerate(meters)}
+        ids = {x.id: i for i, x in enumerate(meters)}
         q = (select(ReadingRevision.meter_id, ReadingRevision.start)
-             .where(ReadingRevision.superseded_by > watermark, ReadingRevision.start >= window_start))
+             .where(ReadingRevision.superseded_by > watermark, ReadingRevision.start >= window_start).distinct())
         for mid, start in s.execute(q):
-            if mid in ids:
-                i = ids[mid]
-                revised.add((i, local_date(pd.Timestamp(int(start), unit="s", tz="UTC"), meters[i].tz)))
-    out: dict[int, list[np.datetime64]] = {}
-    for i, m in enumerate(meters):
-        days = []
-        d = first_days[i]
-        while d < last_days[i]:
-            row = have.get((i, d))
-            if row is None or row[0] < row[1] or not math.isclose(row[2], m.multiplier) or (i, d) in revised:
-                days.append(d)
-            d = d + np.timedelta64(1, "D")
-        if days:
-            out[i] = days
-    return out
+            i = ids.get(mid)
+            if i is not None:
+                c = int((local_date(pd.Timestamp(int(start), unit="s", tz="UTC"), meters[i].tz) - first_days[i])
+                        .astype(np.int64))
+                if 0 <= c < D:
+                    refresh[i, c] = True
+    return refresh
+
+
+def _ranges(mask_row: np.ndarray) -> list[tuple[int, int]]:
+    """Runs of True in a boolean row as [start, end) column pairs."""
+    padded = np.concatenate([[False], mask_row, [False]])
+    edges = np.flatnonzero(np.diff(padded.astype(np.int8)))
+    return list(zip(edges[::2].tolist(), edges[1::2].tolist(), strict=True))
 
 
 def rebuild_day_summaries(store: Store, meters: Iterable[str] | None = None) -> int:
@@ -378,7 +361,8 @@ def evaluate(store: Store, as_of=None, meters: Iterable[str] | None = None,
         return _record(store, as_of, started_at, started, trigger, 0, [], 0, [], watermark)
 
     pos = {r.id: i for i, r in enumerate(rows)}
-    as_of_days = np.array([local_date(as_of, r.tz) for r in rows], dtype="datetime64[D]")
+    local_today = {tz: local_date(as_of, tz) for tz in {r.tz for r in rows}}
+    as_of_days = np.array([local_today[r.tz] for r in rows], dtype="datetime64[D]")
     anchors: list[Anchor] = []
     n_days = WINDOW_DAYS
     for mid, kind, since, figures in open_rows:
@@ -392,21 +376,35 @@ def evaluate(store: Store, as_of=None, meters: Iterable[str] | None = None,
     first_days = as_of_days - np.timedelta64(n_days - 1, "D")
 
     # 1. day summaries: refresh what changed, then read the window
-    stored = _load_days(store, rows, pd.Timestamp(first_days.min()).date())
+    first = pd.Timestamp(first_days.min()).date()
+    stored, stored_mult = _load_days(store, rows, first)
     window_start = min(_midnight(d, r.tz) for d, r in zip(first_days, rows, strict=True))
-    refresh = _days_to_refresh(store, rows, stored, first_days, as_of_days, last_mark, window_start)
-    if refresh:
-        ranges = [(i, a, b) for i, days in refresh.items() for a, b in _day_ranges(days, rows[i].tz)]
-        fresh = summarise_days(_read_ranges(store, rows, ranges), [r.tz for r in rows], [r.minutes for r in rows])
-        _store_days(store, rows, refresh, fresh)
-        stored = _load_days(store, rows, pd.Timestamp(first_days.min()).date())
-    today = summarise_days(
-        _read_ranges(store, rows, [(i, _midnight(as_of_days[i], r.tz), _epoch(as_of)) for i, r in enumerate(rows)]),
-        [r.tz for r in rows], [r.minutes for r in rows])
-    days = _concat(stored, today)
-    last_known = _last_before(store, rows, as_of)
-    panel = build_panel(days, [r.name for r in rows], [r.tz for r in rows], [r.minutes for r in rows],
-                        as_of, n_days, last_start=last_known)
+    refresh = _days_to_refresh(store, rows, stored, stored_mult, first_days, n_days, last_mark, window_start)
+    day_ranges, read = [], []
+    for i in np.flatnonzero(refresh.any(axis=1)):
+        r = rows[i]
+        for a, b in _ranges(refresh[i]):
+            da, db = first_days[i] + np.timedelta64(a, "D"), first_days[i] + np.timedelta64(b, "D")
+            day_ranges.append((int(i), pd.Timestamp(da).date(), pd.Timestamp(db).date()))
+            read.append((int(i), _midnight(da, r.tz), _midnight(db, r.tz)))
+    # the day of as_of, up to as_of: summarised on the fly, never stored
+    today_ranges = [(i, _midnight(as_of_days[i], r.tz), _epoch(as_of)) for i, r in enumerate(rows)]
+    frame = _read_ranges(store, rows, read + today_ranges)
+    summaries = summarise_days(frame, [r.tz for r in rows], [r.minutes for r in rows])
+    is_today = summaries.day == as_of_days[summaries.meter]
+    if day_ranges:
+        _store_days(store, rows, day_ranges, summaries.take(~is_today))
+    keep = np.ones(len(stored), dtype=bool)
+    if len(stored):  # a refreshed day that now has no data must not keep its old summary
+        col = (stored.day - first_days[stored.meter]).astype(np.int64)
+        inside = (col >= 0) & (col < n_days - 1)
+        keep[inside] = ~refresh[stored.meter[inside], col[inside]]
+    with_data = np.zeros(len(rows), dtype=bool)
+    with_data[stored.meter[keep]] = True
+    with_data[summaries.meter] = True
+    last_known = _last_before(store, rows, as_of, np.flatnonzero(~with_data))
+    panel = build_panel([(stored, keep), summaries], [r.name for r in rows], [r.tz for r in rows],
+                        [r.minutes for r in rows], as_of, n_days, last_start=last_known)
 
     # 2. checks
     plans = []
@@ -429,27 +427,20 @@ def evaluate(store: Store, as_of=None, meters: Iterable[str] | None = None,
     return _record(store, as_of, started_at, started, trigger, len(rows), raised, updated, resolved, watermark)
 
 
-def _concat(a: DaySummaries, b: DaySummaries) -> DaySummaries:
-    if not len(b):
-        return a
-    if not len(a):
-        return b
-    cols = {k: np.concatenate([a.columns[k], b.columns[k]]) for k in b.columns}
-    return DaySummaries(np.concatenate([a.meter, b.meter]), np.concatenate([a.day, b.day]), cols,
-                        np.concatenate([a.hourly, b.hourly]))
-
-
-def _last_before(store: Store, rows: list[_MeterRow], as_of: pd.Timestamp) -> list[int]:
-    """Each meter's last interval start before ``as_of`` (-1 when none): one index seek each."""
+def _last_before(store: Store, rows: list[_MeterRow], as_of: pd.Timestamp, which: Sequence[int]) -> list[int]:
+    """The last interval start before ``as_of`` of the meters at positions ``which`` (-1 where
+    there is none), for meters with no data in the window: one index seek each."""
     from auditor.store.models import Reading
 
+    out = [-1] * len(rows)
+    if not len(which):
+        return out
     t = _epoch(as_of)
     with store.session() as s:
-        sub = (select(Reading.meter_id, func.max(Reading.start))
-               .where(Reading.meter_id.in_([r.id for r in rows]), Reading.start < t)
-               .group_by(Reading.meter_id))
-        got = dict(s.execute(sub).all())
-    return [int(got[r.id]) if got.get(r.id) is not None else -1 for r in rows]
+        for i in which:
+            got = s.scalar(select(func.max(Reading.start)).where(Reading.meter_id == rows[i].id, Reading.start < t))
+            out[i] = int(got) if got is not None else -1
+    return out
 
 
 def _since_equal(a: datetime | None, b: pd.Timestamp | None) -> bool:

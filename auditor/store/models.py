@@ -233,9 +233,11 @@ class MeterTariff(Base):
 
 class MonitorDay(Base):
     """One local day of one meter summarised for the checks (sums, peaks, the kvar-kW relation,
-    light-load figures and 24 hourly sums), so a nightly run reads a few rows per meter instead
-    of weeks of intervals. Values are in real units (the meter's multiplier applied, kept in
-    ``multiplier`` so a later change of it is noticed). Derived data: rebuilt at will."""
+    light-load figures and 24 hourly sums; :mod:`auditor.monitoring.days`), so a nightly run
+    reads one small row per meter and day instead of weeks of intervals. ``summary`` packs the
+    figures as little-endian float64 in the order of ``auditor.monitoring.days.PACKED``; values
+    are in real units with ``multiplier`` applied (kept so a later change of it is noticed).
+    Derived data: rebuilt at will."""
 
     __tablename__ = "monitor_day"
     __table_args__ = {"sqlite_with_rowid": False}
@@ -244,28 +246,7 @@ class MonitorDay(Base):
     multiplier: Mapped[float] = mapped_column(Float)
     intervals: Mapped[int] = mapped_column(Integer)
     expected: Mapped[int] = mapped_column(Integer)
-    estimated: Mapped[int] = mapped_column(Integer)
-    kwh: Mapped[float] = mapped_column(Float)
-    kvarh_lag: Mapped[float] = mapped_column(Float)
-    kvarh_lead: Mapped[float] = mapped_column(Float)
-    kw_sum: Mapped[float] = mapped_column(Float)
-    kvar_sum: Mapped[float] = mapped_column(Float)
-    kw_sq_sum: Mapped[float] = mapped_column(Float)
-    kw_kvar_sum: Mapped[float] = mapped_column(Float)
-    kvar_sq_sum: Mapped[float] = mapped_column(Float)
-    light_intervals: Mapped[int] = mapped_column(Integer)
-    light_leading: Mapped[int] = mapped_column(Integer)
-    light_kw_sum: Mapped[float] = mapped_column(Float)
-    light_kvar_net_sum: Mapped[float] = mapped_column(Float)
-    peak_kw: Mapped[float] = mapped_column(Float)
-    peak_kw_kvar_net: Mapped[float] = mapped_column(Float)
-    peak_kva: Mapped[float] = mapped_column(Float)
-    peak_kva_kw: Mapped[float] = mapped_column(Float)
-    peak_kva_kvar_net: Mapped[float] = mapped_column(Float)
-    peak_kvar: Mapped[float] = mapped_column(Float)
-    first_start: Mapped[int] = mapped_column(BigInteger)
-    last_start: Mapped[int] = mapped_column(BigInteger)
-    hourly: Mapped[bytes] = mapped_column(LargeBinary)  # float64 (3, 24): kwh, kvarh lag, lead
+    summary: Mapped[bytes] = mapped_column(LargeBinary)
 
 
 class Alert(Base):

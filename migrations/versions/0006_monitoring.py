@@ -2,7 +2,7 @@
 
 Revision ID: 0006
 Revises: 0003
-Create Date: 2026-12-02 09:18:57.334076
+Create Date: 2026-12-02 09:42:29.750709
 """
 from __future__ import annotations
 
@@ -82,28 +82,7 @@ def upgrade() -> None:
     sa.Column('multiplier', sa.Float(), nullable=False),
     sa.Column('intervals', sa.Integer(), nullable=False),
     sa.Column('expected', sa.Integer(), nullable=False),
-    sa.Column('estimated', sa.Integer(), nullable=False),
-    sa.Column('kwh', sa.Float(), nullable=False),
-    sa.Column('kvarh_lag', sa.Float(), nullable=False),
-    sa.Column('kvarh_lead', sa.Float(), nullable=False),
-    sa.Column('kw_sum', sa.Float(), nullable=False),
-    sa.Column('kvar_sum', sa.Float(), nullable=False),
-    sa.Column('kw_sq_sum', sa.Float(), nullable=False),
-    sa.Column('kw_kvar_sum', sa.Float(), nullable=False),
-    sa.Column('kvar_sq_sum', sa.Float(), nullable=False),
-    sa.Column('light_intervals', sa.Integer(), nullable=False),
-    sa.Column('light_leading', sa.Integer(), nullable=False),
-    sa.Column('light_kw_sum', sa.Float(), nullable=False),
-    sa.Column('light_kvar_net_sum', sa.Float(), nullable=False),
-    sa.Column('peak_kw', sa.Float(), nullable=False),
-    sa.Column('peak_kw_kvar_net', sa.Float(), nullable=False),
-    sa.Column('peak_kva', sa.Float(), nullable=False),
-    sa.Column('peak_kva_kw', sa.Float(), nullable=False),
-    sa.Column('peak_kva_kvar_net', sa.Float(), nullable=False),
-    sa.Column('peak_kvar', sa.Float(), nullable=False),
-    sa.Column('first_start', sa.BigInteger(), nullable=False),
-    sa.Column('last_start', sa.BigInteger(), nullable=False),
-    sa.Column('hourly', sa.LargeBinary(), nullable=False),
+    sa.Column('summary', sa.LargeBinary(), nullable=False),
     sa.ForeignKeyConstraint(['meter_id'], ['meter.id'], name=op.f('fk_monitor_day_meter_id_meter')),
     sa.PrimaryKeyConstraint('meter_id', 'day', name=op.f('pk_monitor_day')),
     sqlite_with_rowid=False
