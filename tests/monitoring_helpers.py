@@ -85,3 +85,24 @@ def weekdays_without_holidays(first: pd.Timestamp, days: int, country="DE", subd
     start = np.datetime64(first.date())
     hol = [np.datetime64(d) for d in holidays.country_holidays(country, subdiv=subdiv, years=first.year)]
     return int(np.busday_count(start, start + np.timedelta64(days, "D"), holidays=hol))
+
+
+def planted_store(folder: Path, tariff: str = "harrowgate_industrial_tou"):
+    """A SQLite store holding the planted case (demo sites, each meter with ``tariff`` as its
+    own), checked once as of :data:`AS_OF`."""
+    from auditor.ingest.pipeline import ImportOptions
+    from auditor.services.alerts import evaluate
+    from auditor.services.ingest import import_files
+    from auditor.services.meter_tariff import set_meter_tariff
+    from auditor.services.meters import load_sites_file
+    from auditor.store import open_store
+
+    store = open_store(f"sqlite:///{Path(folder) / 'planted.sqlite3'}")
+    load_sites_file(store, demo_dir() / "sites.toml")
+    for p in write_planted(folder):
+        site = "Alder Row Offices" if "alder" in p.name else "Kestrel Quay Cold Store"
+        import_files(store, [p], ImportOptions(site=site, timezone=TZ))
+    for m in METERS:
+        set_meter_tariff(store, m, tariff)
+    evaluate(store, AS_OF)
+    return store

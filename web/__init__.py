@@ -86,10 +86,11 @@ def create_app(config: dict | None = None, store=None) -> Flask:
     register_filters(app.jinja_env.filters)
     security.init_app(app)
 
-    from auditor.web import bills, data, meters, portfolio, scenarios, tariffs
+    from auditor.web import alerts, bills, data, meters, portfolio, scenarios, tariffs
 
-    for bp in (portfolio.bp, meters.bp, scenarios.bp, data.bp, tariffs.bp, bills.bp, security.bp):
+    for bp in (portfolio.bp, meters.bp, scenarios.bp, data.bp, tariffs.bp, bills.bp, alerts.bp, security.bp):
         app.register_blueprint(bp)
+    app.context_processor(lambda: {"new_alerts": alerts.new_alert_count()})
 
     @app.errorhandler(CSRFError)
     def _csrf_error(exc):
