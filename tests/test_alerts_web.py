@@ -77,7 +77,7 @@ def test_portfolio_badges_and_own_tariffs(client, planted):
     html = client.get("/").get_data(as_text=True)
     assert 'href="/alerts?meter=KQ-MAIN"' in html and 'href="/alerts?meter=KQ-DOCKS"' in html
     assert 'href="/alerts?meter=AR-01"' not in html
-    assert html.count('title="audited under its own tariff">Harrowgate Industrial TOU</span>') == 3
+    assert html.count('title="audited under its own tariff: Harrowgate Industrial TOU">own tariff</span>') == 3
 
 
 def test_alerts_marked_on_the_meter_charts(client):

@@ -164,8 +164,10 @@ def mark_alerts(figs: dict, alerts: list[dict], periods: list[dict]) -> dict:
             if x is None:
                 continue
             colour = colours.get(a["severity"], LIMIT)
+            # on the heat map's warm colours a dark line shows where a coloured one disappears
+            line = "#1d2a33" if key == "heatmap" else colour
             shapes.append({"type": "line", "xref": "x", "x0": x, "x1": x, "yref": "paper", "y0": 0, "y1": 1,
-                           "line": {"color": colour, "width": 2, "dash": "dot"}})
+                           "layer": "above", "line": {"color": line, "width": 2, "dash": "dot"}})
             notes.append({"xref": "x", "x": x, "yref": "paper", "y": 1.0 - 0.07 * (k % 4), "yanchor": "top",
                           "xanchor": "left", "showarrow": False, "bgcolor": "rgba(255,255,255,0.85)",
                           "text": f"⚑ {KIND_LABELS.get(a['kind'], a['kind'])} {day}",
