@@ -234,10 +234,10 @@ class MeterTariff(Base):
 class MonitorDay(Base):
     """One local day of one meter summarised for the checks (sums, peaks, the kvar-kW relation,
     light-load figures and 24 hourly sums; :mod:`auditor.monitoring.days`), so a nightly run
-    reads one small row per meter and day instead of weeks of intervals. ``summary`` packs the
-    figures as little-endian float64 in the order of ``auditor.monitoring.days.PACKED``; values
-    are in real units with ``multiplier`` applied (kept so a later change of it is noticed).
-    Derived data: rebuilt at will."""
+    reads one small row per meter and day instead of weeks of intervals. ``summary`` is one
+    ``auditor.monitoring.days.PACKED_DTYPE`` record (the day and its figures as float64, the 72
+    hourly sums as float32); values are in real units with ``multiplier`` applied (kept so a
+    later change of it is noticed). Derived data: rebuilt at will."""
 
     __tablename__ = "monitor_day"
     __table_args__ = {"sqlite_with_rowid": False}
