@@ -221,7 +221,7 @@ class MeterTariff(Base):
     so that audits and checks never depend on a file that may have moved or changed since."""
 
     __tablename__ = "meter_tariff"
-    meter_id: Mapped[int] = mapped_column(ForeignKey("meter.id"), primary_key=True)
+    meter_id: Mapped[int] = mapped_column(ForeignKey("meter.id", ondelete="CASCADE"), primary_key=True)
     name: Mapped[str] = mapped_column(String(200))  # the tariff's own name
     source_name: Mapped[str] = mapped_column(String(200))  # file stem (how the dashboard names it)
     source_path: Mapped[str | None] = mapped_column(Text)
@@ -241,7 +241,7 @@ class MonitorDay(Base):
 
     __tablename__ = "monitor_day"
     __table_args__ = {"sqlite_with_rowid": False}
-    meter_id: Mapped[int] = mapped_column(ForeignKey("meter.id"), primary_key=True)
+    meter_id: Mapped[int] = mapped_column(ForeignKey("meter.id", ondelete="CASCADE"), primary_key=True)
     day: Mapped[date] = mapped_column(Date, primary_key=True)
     multiplier: Mapped[float] = mapped_column(Float)
     intervals: Mapped[int] = mapped_column(Integer)
@@ -257,7 +257,7 @@ class Alert(Base):
     __table_args__ = (Index("ix_alert_meter_kind", "meter_id", "kind", "state"),
                       Index("ix_alert_state", "state"))
     id: Mapped[int] = mapped_column(Integer, primary_key=True)
-    meter_id: Mapped[int] = mapped_column(ForeignKey("meter.id"))
+    meter_id: Mapped[int] = mapped_column(ForeignKey("meter.id", ondelete="CASCADE"))
     kind: Mapped[str] = mapped_column(String(32))
     cause: Mapped[str] = mapped_column(String(100), default="")  # e.g. the billing period
     since: Mapped[datetime | None] = mapped_column(DateTime(timezone=True))

@@ -1,8 +1,10 @@
 """monitoring: each meter's tariff, day summaries for the checks, alerts, check runs, digests
 
+Rows of meter_tariff, monitor_day and alert belong to their meter (ON DELETE CASCADE).
+
 Revision ID: 0006
 Revises: 0003
-Create Date: 2026-12-02 09:42:29.750709
+Create Date: 2026-12-02 10:10:01.777114
 """
 from __future__ import annotations
 
@@ -57,7 +59,7 @@ def upgrade() -> None:
     sa.Column('resolved_at', sa.DateTime(timezone=True), nullable=True),
     sa.Column('notified', sa.Boolean(), nullable=False),
     sa.Column('resolved_notified', sa.Boolean(), nullable=False),
-    sa.ForeignKeyConstraint(['meter_id'], ['meter.id'], name=op.f('fk_alert_meter_id_meter')),
+    sa.ForeignKeyConstraint(['meter_id'], ['meter.id'], name=op.f('fk_alert_meter_id_meter'), ondelete='CASCADE'),
     sa.PrimaryKeyConstraint('id', name=op.f('pk_alert'))
     )
     with op.batch_alter_table('alert', schema=None) as batch_op:
@@ -73,7 +75,7 @@ def upgrade() -> None:
     sa.Column('sha256', sa.String(length=64), nullable=False),
     sa.Column('billing_day', sa.SmallInteger(), nullable=True),
     sa.Column('set_at', sa.DateTime(timezone=True), nullable=False),
-    sa.ForeignKeyConstraint(['meter_id'], ['meter.id'], name=op.f('fk_meter_tariff_meter_id_meter')),
+    sa.ForeignKeyConstraint(['meter_id'], ['meter.id'], name=op.f('fk_meter_tariff_meter_id_meter'), ondelete='CASCADE'),
     sa.PrimaryKeyConstraint('meter_id', name=op.f('pk_meter_tariff'))
     )
     op.create_table('monitor_day',
@@ -83,7 +85,7 @@ def upgrade() -> None:
     sa.Column('intervals', sa.Integer(), nullable=False),
     sa.Column('expected', sa.Integer(), nullable=False),
     sa.Column('summary', sa.LargeBinary(), nullable=False),
-    sa.ForeignKeyConstraint(['meter_id'], ['meter.id'], name=op.f('fk_monitor_day_meter_id_meter')),
+    sa.ForeignKeyConstraint(['meter_id'], ['meter.id'], name=op.f('fk_monitor_day_meter_id_meter'), ondelete='CASCADE'),
     sa.PrimaryKeyConstraint('meter_id', 'day', name=op.f('pk_monitor_day')),
     sqlite_with_rowid=False
     )
