@@ -31,7 +31,7 @@ def _print_alert(a: dict) -> None:
 @click.group("alerts", invoke_without_command=True)
 @click.option("--as-of", "as_of", metavar="DATETIME",
               help="Judge as if it were this moment (ISO date or date-time; UTC unless it has an offset). Default: now.")
-@click.option("--since", "since", type=click.DateTime(["%Y-%m-%d"]),
+@click.option("--since", "since", type=click.DateTime(["%Y-%m-%d"]), metavar="DATE",
               help="List alerts that began on or after DATE, resolved ones included.")
 @click.option("--meter", "meter", metavar="M", help="Only meter M.")
 @click.option("--kind", "kind", type=KIND_CHOICE, help="Only alerts of this kind.")

@@ -110,18 +110,6 @@ class DaySummaries:
                             self.hourly[rows])
 
     @staticmethod
-    def concat(parts) -> DaySummaries:
-        parts = [p for p in parts if len(p)]
-        if not parts:
-            return DaySummaries.empty()
-        if len(parts) == 1:
-            return parts[0]
-        keys = parts[0].columns.keys()
-        return DaySummaries(np.concatenate([p.meter for p in parts]), np.concatenate([p.day for p in parts]),
-                            {k: np.concatenate([p.columns[k] for p in parts]) for k in keys},
-                            np.concatenate([p.hourly for p in parts]))
-
-    @staticmethod
     def empty() -> DaySummaries:
         cols = {k: np.zeros(0, dtype=np.int64) for k in COUNTS}
         cols.update({k: np.zeros(0) for k in SCALARS})

@@ -46,6 +46,7 @@ from auditor.monitoring import (
     summarise_days,
 )
 from auditor.monitoring.panel import local_date
+from auditor.services.meter_tariff import from_row
 from auditor.store import Store
 from auditor.store.models import (
     FLAG_ESTIMATED,
@@ -62,7 +63,7 @@ from auditor.store.models import (
 from auditor.store.queries import now_utc
 from auditor.tariffs import Tariff
 
-__all__ = ["evaluate", "RunResult", "list_alerts", "mark_seen", "alert_counts", "open_alerts_of",
+__all__ = ["evaluate", "RunResult", "list_alerts", "mark_seen", "alert_counts", "last_run",
            "checks_after_import", "parse_as_of", "rebuild_day_summaries", "WINDOW_DAYS", "STATES"]
 
 #: Days of summaries a run looks at: the open billing period and the one before (at most 62
@@ -204,20 +205,6 @@ def _midnight_of(day: str, tz: str) -> int:
 def _midnight(day: np.datetime64, tz: str) -> int:
     """UTC epoch seconds of local midnight starting ``day``."""
     return _midnight_of(str(np.datetime64(day, "D")), tz)
-
-
-def _day_ranges(days: list[np.datetime64], tz: str) -> list[tuple[int, int]]:
-    """Consecutive local days merged into UTC epoch ranges [local midnight, next midnight)."""
-    out = []
-    days = sorted(days)
-    i = 0
-    while i < len(days):
-        j = i
-        while j + 1 < len(days) and days[j + 1] == days[j] + np.timedelta64(1, "D"):
-            j += 1
-        out.append((_midnight(days[i], tz), _midnight(days[j] + np.timedelta64(1, "D"), tz)))
-        i = j + 1
-    return out
 
 
 # --------------------------------------------------------------------------------------------
@@ -413,9 +400,7 @@ def evaluate(store: Store, as_of=None, meters: Iterable[str] | None = None,
         if t is None:
             plans.append(None)
             continue
-        from auditor.services.meter_tariff import _own
-
-        own = _own(r.name, t)
+        own = from_row(r.name, t)
         plans.append(_plan(own.tariff, own.sha256, own.billing_day))
     evaluations = run_checks(panel, plans, s, anchors)
 
@@ -619,11 +604,6 @@ def alert_counts(store: Store) -> dict:
         if severity == "critical":
             m["critical"] += n
     return out
-
-
-def open_alerts_of(store: Store, meter: str) -> list[dict]:
-    """Alerts of one meter that are open or resolved in the last year, for its charts."""
-    return [a for a in list_alerts(store, states=None, meter=meter, limit=200)]
 
 
 def last_run(store: Store) -> dict | None:

@@ -21,7 +21,7 @@ from auditor.store.models import Meter, MeterTariff
 from auditor.store.queries import get_meter, now_utc
 from auditor.tariffs import Tariff, tariff_from_dict
 
-__all__ = ["OwnTariff", "set_meter_tariff", "clear_meter_tariff", "meter_tariff", "meter_tariffs",
+__all__ = ["OwnTariff", "from_row", "set_meter_tariff", "clear_meter_tariff", "meter_tariff", "meter_tariffs",
            "tariff_for_meter", "set_site_tariff", "NO_TARIFF_HINT"]
 
 NO_TARIFF_HINT = "give --tariff FILE, or set the meter's own with: auditor meters set-tariff {meter} FILE"
@@ -59,7 +59,8 @@ def _parse(text: str, digest: str, label: str) -> Tariff:
     return t
 
 
-def _own(meter: str, row: MeterTariff) -> OwnTariff:
+def from_row(meter: str, row: MeterTariff) -> OwnTariff:
+    """The :class:`OwnTariff` of a stored ``meter_tariff`` row."""
     t = _parse(row.toml, row.sha256, f"{row.source_name} (as set for meter {meter})")
     return OwnTariff(meter, t, row.source_name, row.source_path, row.sha256, row.billing_day,
                      row.set_at.isoformat(timespec="seconds") if row.set_at else "")
@@ -96,7 +97,7 @@ def set_meter_tariff(store: Store, meter: str, source: str | Path, billing_day: 
         row.billing_day = billing_day
         row.set_at = now_utc()
         s.flush()
-        return _own(m.external_id, row)
+        return from_row(m.external_id, row)
 
 
 def clear_meter_tariff(store: Store, meter: str) -> bool:
@@ -110,14 +111,14 @@ def meter_tariff(store: Store, meter: str) -> OwnTariff | None:
     with store.session() as s:
         m = get_meter(s, meter)
         row = s.get(MeterTariff, m.id)
-        return _own(m.external_id, row) if row is not None else None
+        return from_row(m.external_id, row) if row is not None else None
 
 
 def meter_tariffs(store: Store) -> dict[str, OwnTariff]:
     """Every meter's own tariff, by meter id."""
     with store.session() as s:
         rows = s.execute(select(Meter.external_id, MeterTariff).join(MeterTariff, MeterTariff.meter_id == Meter.id))
-        return {ext: _own(ext, row) for ext, row in rows}
+        return {ext: from_row(ext, row) for ext, row in rows}
 
 
 def tariff_for_meter(store: Store, meter: str, given: str | Path | Tariff | None) -> Tariff:
