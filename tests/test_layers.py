@@ -168,7 +168,7 @@ UPWARD = [
     ("auditor.bills", "from auditor import services\n", "services is not in its row"),
     ("auditor.web.meters", "from auditor.store.queries import get_meter\n", "store is not in its row"),
     ("auditor.commands.meters", "from ..store import open_store\n", "store is not in its row"),
-    ("auditor.monitoring.checks", "import numpy\n", "in no room"),
+    ("auditor.elsewhere.checks", "import numpy\n", "in no room"),
 ]
 
 

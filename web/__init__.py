@@ -99,12 +99,14 @@ def create_app(config: dict | None = None, store=None) -> Flask:
     register_filters(app.jinja_env.filters)
     security.init_app(app)
 
-    from auditor.web import bills, data, meters, portfolio, report, scenarios, tariffs
+    from auditor.web import alerts, bills, data, meters, portfolio, report, scenarios, tariffs
     from auditor.web.urls import FormatConverter, MeterIdConverter
 
     app.url_map.converters.update(meter=MeterIdConverter, ext=FormatConverter)  # any meter id
-    for bp in (portfolio.bp, meters.bp, scenarios.bp, report.bp, data.bp, tariffs.bp, bills.bp, security.bp):
+    for bp in (portfolio.bp, meters.bp, scenarios.bp, report.bp, data.bp, tariffs.bp, bills.bp, alerts.bp,
+               security.bp):
         app.register_blueprint(bp)
+    app.context_processor(lambda: {"new_alerts": alerts.new_alert_count()})
 
     @app.errorhandler(CSRFError)
     def _csrf_error(exc):

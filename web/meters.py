@@ -35,10 +35,13 @@ def _target_pf() -> float:
 
 @bp.get("/meters/<meter:meter>")
 def meter(meter: str):
-    name, tariff = chosen_tariff()
+    from auditor.services.alerts import list_alerts
+    from auditor.web.alerts import mark_alerts, own_tariff_or_chosen
+
+    name, tariff, own = own_tariff_or_chosen(meter, chosen_tariff())
     target = _target_pf()
     s = store()
-    ma = cached_audit(s, meter, tariff)
+    ma = cached_audit(s, meter, tariff, own.billing_day if own is not None and own.tariff is tariff else None)
     audit = ma.to_dict()
     profile = meter_chart_data(s, meter, target)
     thresholds = tariff_threshold_pf(tariff)
@@ -51,11 +54,13 @@ def meter(meter: str):
             ("scatter", charts.pq_scatter(profile, thresholds)),
             ("duration", charts.duration_curve(profile))]
     totals = dict(audit["totals"])
+    alerts = list_alerts(s, states=None, meter=meter, limit=50)
+    figs = list(mark_alerts(dict(figs), [a for a in alerts if a["state"] != "resolved"], audit["periods"]).items())
     return render_template("meter.html", meter=meter, audit=audit, data=ma.data, tariff=tariff,
                            tariff_name=name, tariffs=tariff_choices(), columns=cols, rows=rows,
                            charts={k: charts.figure_json(f) for k, f in figs}, profile=profile,
                            totals=totals, target_pf=target, thresholds=thresholds,
-                           scenarios=list_scenarios(s, meter))
+                           scenarios=list_scenarios(s, meter), alerts=alerts, own=own)
 
 
 _SAFE = re.compile(r"[^A-Za-z0-9._-]+")

@@ -10,7 +10,7 @@ import importlib
 
 import click
 
-MODULES = ("data", "meters", "db", "audit", "size", "bills", "report", "case", "serve", "demo")
+MODULES = ("data", "meters", "db", "audit", "size", "bills", "report", "case", "serve", "demo", "alerts")
 
 
 def register(group: click.Group) -> None:

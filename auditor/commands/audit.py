@@ -65,10 +65,11 @@ def charge_totals(periods: list[dict], currency: str) -> str:
 
 @click.command("audit")
 @meter_option()
-@tariff_option()
+@tariff_option(required=False, help="Tariff TOML file (or the name of a shipped example); default: the "
+                                    "meter's own (auditor meters set-tariff).")
 @date_range_options
 @click.option("--billing-day", type=click.IntRange(1, 28), metavar="N",
-              help="Day of month billing periods start (default: calendar months).")
+              help="Day of month billing periods start (default: calendar months, or the meter's own).")
 @click.option("--periods", "periods_file", type=click.Path(dir_okay=False), metavar="FILE",
               help="CSV of billing periods (header start,end; local dates, end exclusive).")
 @wide_option

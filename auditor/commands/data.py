@@ -46,6 +46,9 @@ def import_cmd(ctx: Context, paths, site, tz, profile, estimate_gaps, strict, dr
 
         result = run_inbox(ctx.store, inbox, options, wait_seconds=wait_seconds)
         files = result["files"]
+        checks = _checks_after(ctx, files, options)
+        if checks:
+            result["checks"] = checks
         if json_out:
             echo_json(result)
         else:
@@ -54,6 +57,7 @@ def import_cmd(ctx: Context, paths, site, tz, profile, estimate_gaps, strict, dr
                 if isinstance(skipped, dict):
                     skipped = f"{skipped.get('path', '')} ({skipped.get('reason', '')})"
                 ctx.say(f"skipped   {skipped}")
+            _print_checks(ctx, checks)
         return 1 if any(f["status"] == "rejected" for f in files) else 0
     from auditor.services.ingest import import_files
 
@@ -71,11 +75,28 @@ def import_cmd(ctx: Context, paths, site, tz, profile, estimate_gaps, strict, dr
             if bar is not None:
                 bar.__exit__(None, None, None)
     files = [o.as_dict() for o in outcomes]
+    checks = _checks_after(ctx, files, options)
     if json_out:
-        echo_json({"files": files})
+        echo_json({"files": files, **({"checks": checks} if checks else {})})
     else:
         _print_outcomes(ctx, files)
+        _print_checks(ctx, checks)
     return 1 if any(o.status == "rejected" for o in outcomes) else 0
+
+
+def _checks_after(ctx: Context, files: list[dict], options) -> dict | None:
+    """The monitoring checks for the meters just imported (auditor.services.alerts)."""
+    if options.dry_run:
+        return None
+    from auditor.services.alerts import checks_after_import
+
+    return checks_after_import(ctx.store, files)
+
+
+def _print_checks(ctx: Context, checks: dict | None) -> None:
+    if checks:
+        ctx.say(f"checks: {checks.get('summary') or 'not run: ' + checks.get('error', '')}"
+                + (" (auditor alerts lists them)" if checks.get("raised") else ""))
 
 
 def _print_outcomes(ctx: Context, files: list[dict], message: str | None = None) -> None:

@@ -88,10 +88,19 @@ def read_periods_file(path: str | Path) -> list[BillingPeriod]:
         raise InputError(str(path), Problem(exc.message)) from None
 
 
-def audit_meter(store: Store, meter: str, tariff: str | Path | Tariff, *, start: date | None = None,
+def audit_meter(store: Store, meter: str, tariff: str | Path | Tariff | None, *, start: date | None = None,
                 end: date | None = None, billing_day: int | None = None,
                 periods: list[BillingPeriod] | None = None) -> MeterAudit:
-    t = resolve_tariff(tariff)
+    """Audit ``meter`` under ``tariff``; None means the meter's own tariff (and its billing day
+    unless ``billing_day`` or ``periods`` is given)."""
+    if tariff is None:
+        from auditor.services.meter_tariff import meter_tariff, tariff_for_meter
+
+        t = tariff_for_meter(store, meter, None)
+        if billing_day is None and not periods:
+            billing_day = meter_tariff(store, meter).billing_day
+    else:
+        t = resolve_tariff(tariff)
     if periods:
         start = start or periods[0].start
         end = end or periods[-1].end

@@ -85,10 +85,11 @@ def tariff_key(tariff: Tariff) -> tuple:
     return (tariff.name, id(tariff))
 
 
-def cached_audit(store: Store, meter: str, tariff: Tariff) -> MeterAudit:
-    """:func:`auditor.services.audit.audit_meter`, cached per data version and tariff file."""
-    key = (store.url, meter, tariff_key(tariff), data_version(store, meter))
-    return _audits.get_or_make(key, lambda: audit_meter(store, meter, tariff))
+def cached_audit(store: Store, meter: str, tariff: Tariff, billing_day: int | None = None) -> MeterAudit:
+    """:func:`auditor.services.audit.audit_meter`, cached per data version, tariff file and
+    billing day."""
+    key = (store.url, meter, tariff_key(tariff), billing_day, data_version(store, meter))
+    return _audits.get_or_make(key, lambda: audit_meter(store, meter, tariff, billing_day=billing_day))
 
 
 def cached_size(store: Store, req: SizeRequest, tariff: Tariff) -> SizeCase:

@@ -136,8 +136,10 @@ def list_sites(store: Store) -> list[dict]:
 
 def load_sites_file(store: Store, path: str | Path) -> list[dict]:
     """Sites from a TOML file of ``[[site]]`` tables (name, timezone, nominal_voltage_v,
-    transformer_kva, transformer_impedance_percent, meters; for the correction ``screening``,
-    ``harmonics`` and ``drive_share``, and a top-level ``[screening]`` table for every site)."""
+    transformer_kva, transformer_impedance_percent, meters; the meters' own ``tariff`` — a file
+    relative to the sites file or a shipped example's name — with ``billing_day``; for the
+    correction ``screening``, ``harmonics`` and ``drive_share``, and a top-level ``[screening]``
+    table for every site)."""
     path = Path(path)
     try:
         data = tomllib.loads(path.read_text(encoding="utf-8"))
@@ -151,10 +153,10 @@ def load_sites_file(store: Store, path: str | Path) -> list[dict]:
     settings = [site_file_settings(e, data.get("screening"), path, i) for i, e in enumerate(data.get("site", []))]
     out = []
     for i, entry in enumerate(data.get("site", [])):
-        extra = set(entry) - {"name", "meters", *SITE_FIELDS, *SITE_FILE_KEYS}
+        extra = set(entry) - {"name", "meters", "tariff", "billing_day", *SITE_FIELDS, *SITE_FILE_KEYS}
         if extra:  # before the required keys: a misspelt "name" is reported as misspelt
             key = sorted(extra)[0]
-            allowed = ("name", "meters", *SITE_FIELDS, *SITE_FILE_KEYS)
+            allowed = ("name", "meters", "tariff", "billing_day", *SITE_FIELDS, *SITE_FILE_KEYS)
             raise ProfileError(f"site[{i}].{key}", f"unknown key{closest(key, allowed)}; allowed: {', '.join(allowed)}",
                                str(path))
         if "name" not in entry:
@@ -162,6 +164,10 @@ def load_sites_file(store: Store, path: str | Path) -> list[dict]:
         fields = {k: entry[k] for k in SITE_FIELDS if k in entry}
         out.append(set_site(store, entry["name"], list(entry.get("meters", [])), **fields))
         store_site_settings(store, entry["name"], settings[i])
+        if "tariff" in entry or "billing_day" in entry:
+            from auditor.services.meter_tariff import set_site_tariff
+
+            out[-1]["tariff"] = set_site_tariff(store, out[-1]["meters"], entry, path, f"site[{i}]")
     return out
 
 

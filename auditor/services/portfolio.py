@@ -45,25 +45,33 @@ def _year_before(d: date) -> date:
         return d.replace(year=d.year - 1, day=28)
 
 
-def portfolio_summary(store: Store, tariff: Tariff) -> list[dict]:
+def portfolio_summary(store: Store, tariff: Tariff, own_tariffs: bool = False) -> list[dict]:
     """One row per meter, worst power factor first.
 
     Keys: site, meter, latest_pf and latest_period (last billing period with a PF),
     reactive_12m and total_12m (charges of the periods ending within the last 12 months of
     data, in the tariff's currency), months_12m, coverage (intervals present / expected over
     the meter's span), best (the saved scenario with the best NPV: name, annual_savings,
-    simple_payback_years, npv) and error (why a meter could not be audited).
+    simple_payback_years, npv) and error (why a meter could not be audited); tariff, currency and
+    tariff_source ("own" when ``own_tariffs`` and the meter has a tariff of its own, which is
+    then used instead of ``tariff``).
     """
+    from auditor.services.meter_tariff import meter_tariffs
+
+    own = meter_tariffs(store) if own_tariffs else {}
     rows = []
     for m in list_meters(store):
+        t = own[m["meter"]].tariff if m["meter"] in own else tariff
         row = {"site": m["site"], "meter": m["meter"], "coverage": m["coverage"],
                "first": m["first"], "last": m["last"], "intervals": m["intervals"],
                "latest_pf": None, "latest_period": None, "reactive_12m": None, "total_12m": None,
-               "months_12m": 0, "currency": tariff.currency, "best": best_scenario(store, m["meter"]),
+               "months_12m": 0, "currency": t.currency, "tariff": t.name,
+               "tariff_source": "own" if m["meter"] in own else "chosen", "best": best_scenario(store, m["meter"]),
                "scenarios": len(list_scenarios(store, m["meter"])), "error": None}
         if m["intervals"]:
             try:
-                periods = cached_audit(store, m["meter"], tariff).result.periods
+                periods = cached_audit(store, m["meter"], t,
+                                       own[m["meter"]].billing_day if m["meter"] in own else None).result.periods
             except (UsageError, NotFoundError) as exc:
                 row["error"] = exc.message
                 periods = []

@@ -221,3 +221,97 @@ class Bill(Base):
     source_line: Mapped[int | None] = mapped_column(Integer)
     created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
     updated_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
+
+
+# --------------------------------------------------------------------------------------------
+# Monitoring: each meter's own tariff, day summaries for the checks, alerts and their digests
+# --------------------------------------------------------------------------------------------
+from sqlalchemy import Boolean, LargeBinary  # noqa: E402  (kept beside the models that use them)
+
+
+class MeterTariff(Base):
+    """The tariff a meter is billed under, as validated when it was set: the TOML text is kept
+    so that audits and checks never depend on a file that may have moved or changed since."""
+
+    __tablename__ = "meter_tariff"
+    meter_id: Mapped[int] = mapped_column(ForeignKey("meter.id", ondelete="CASCADE"), primary_key=True)
+    name: Mapped[str] = mapped_column(String(200))  # the tariff's own name
+    source_name: Mapped[str] = mapped_column(String(200))  # file stem (how the dashboard names it)
+    source_path: Mapped[str | None] = mapped_column(Text)
+    toml: Mapped[str] = mapped_column(Text)
+    sha256: Mapped[str] = mapped_column(String(64))
+    billing_day: Mapped[int | None] = mapped_column(SmallInteger)  # None: calendar months
+    set_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
+
+
+class MonitorDay(Base):
+    """One local day of one meter summarised for the checks (sums, peaks, the kvar-kW relation,
+    light-load figures and 24 hourly sums; :mod:`auditor.monitoring.days`), so a nightly run
+    reads one small row per meter and day instead of weeks of intervals. ``summary`` is one
+    ``auditor.monitoring.days.PACKED_DTYPE`` record (the day and its figures as float64, the 72
+    hourly sums as float32); values are in real units with ``multiplier`` applied (kept so a
+    later change of it is noticed). Derived data: rebuilt at will."""
+
+    __tablename__ = "monitor_day"
+    __table_args__ = {"sqlite_with_rowid": False}
+    meter_id: Mapped[int] = mapped_column(ForeignKey("meter.id", ondelete="CASCADE"), primary_key=True)
+    day: Mapped[date] = mapped_column(Date, primary_key=True)
+    multiplier: Mapped[float] = mapped_column(Float)
+    intervals: Mapped[int] = mapped_column(Integer)
+    expected: Mapped[int] = mapped_column(Integer)
+    summary: Mapped[bytes] = mapped_column(LargeBinary)
+
+
+class Alert(Base):
+    """A finding of the checks: raised once per cause, updated while the cause lasts, resolved
+    when it ends. ``state``: new, seen or resolved."""
+
+    __tablename__ = "alert"
+    __table_args__ = (Index("ix_alert_meter_kind", "meter_id", "kind", "state"),
+                      Index("ix_alert_state", "state"))
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    meter_id: Mapped[int] = mapped_column(ForeignKey("meter.id", ondelete="CASCADE"))
+    kind: Mapped[str] = mapped_column(String(32))
+    cause: Mapped[str] = mapped_column(String(100), default="")  # e.g. the billing period
+    since: Mapped[datetime | None] = mapped_column(DateTime(timezone=True))
+    severity: Mapped[str] = mapped_column(String(16))
+    money_per_month: Mapped[float | None] = mapped_column(Float)
+    currency: Mapped[str | None] = mapped_column(String(8))
+    message: Mapped[str] = mapped_column(Text)
+    figures: Mapped[str] = mapped_column(Text)  # JSON
+    state: Mapped[str] = mapped_column(String(16))
+    raised_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
+    updated_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
+    as_of: Mapped[datetime] = mapped_column(DateTime(timezone=True))  # the moment last evaluated
+    seen_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True))
+    resolved_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True))
+    notified: Mapped[bool] = mapped_column(Boolean, default=False)  # in a digest already
+    resolved_notified: Mapped[bool] = mapped_column(Boolean, default=False)
+
+
+class MonitorRun(Base):
+    """One evaluation of the checks: when, as of which moment, what it changed."""
+
+    __tablename__ = "monitor_run"
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    as_of: Mapped[datetime] = mapped_column(DateTime(timezone=True))
+    started_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
+    seconds: Mapped[float] = mapped_column(Float)
+    trigger: Mapped[str] = mapped_column(String(16))  # import, command, web
+    meters: Mapped[int] = mapped_column(Integer)
+    raised: Mapped[int] = mapped_column(Integer)
+    updated: Mapped[int] = mapped_column(Integer)
+    resolved: Mapped[int] = mapped_column(Integer)
+    batch_watermark: Mapped[int] = mapped_column(Integer)  # last import batch the day summaries saw
+
+
+class Notification(Base):
+    """One digest sent (or not) on one channel."""
+
+    __tablename__ = "notification"
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    sent_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
+    channel: Mapped[str] = mapped_column(String(16))  # email, webhook
+    alerts: Mapped[int] = mapped_column(Integer)
+    status: Mapped[str] = mapped_column(String(16))  # sent, failed
+    error: Mapped[str | None] = mapped_column(Text)
