@@ -66,6 +66,8 @@ class Meter(Base):
     multiplier: Mapped[float] = mapped_column(Float, default=1.0)
     interval_minutes: Mapped[int | None] = mapped_column(SmallInteger)
     created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
+    # the plausible maximum average power of an interval, kW (None: the import's default bound)
+    max_kw: Mapped[float | None] = mapped_column(Float)
     site: Mapped[Site] = relationship(back_populates="meters")
     channels: Mapped[list[Channel]] = relationship(back_populates="meter")
 
@@ -94,9 +96,12 @@ class ImportBatch(Base):
     rows_revised: Mapped[int] = mapped_column(Integer, default=0)
     started_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
     finished_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True))
-    # imported | unchanged | revised | rejected
+    # imported | unchanged | revised | older | rejected
     status: Mapped[str] = mapped_column(String(16))
     errors: Mapped[str | None] = mapped_column(Text)  # JSON list of {line, column, message}
+    # the file's modification time (epoch seconds): a file clearly older than the one that wrote
+    # a stored value does not revise it without --force (store/write.py)
+    source_mtime: Mapped[float | None] = mapped_column(Float)
 
 
 class Reading(Base):

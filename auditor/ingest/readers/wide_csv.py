@@ -44,6 +44,7 @@ work on the value block, with no Python loop over days or intervals.
 """
 from __future__ import annotations
 
+import re
 import warnings
 from collections.abc import Iterator
 from pathlib import Path
@@ -59,6 +60,7 @@ from auditor.ingest.frame import (
     ReadOptions,
     ReadOutput,
     canonical,
+    check_window,
 )
 from auditor.ingest.timestamps import _zone
 
@@ -188,10 +190,17 @@ def _parse(path: Path, cols: list[str], value_cols: list[str], value_dtype: str,
     return table.drop(columns=_EXTRA)
 
 
+# pandas' C parser reads a float column made only of TRUE/FALSE cells as 1.0/0.0: such a file
+# takes the slow path, which names every cell that is not a number.
+_BOOLEAN_CELL = re.compile(rb"(?im)(?:^|[,\s\"])(?:true|false)(?=[,\s\"]|$)")
+
+
 def _value_block(path: Path, cols: list[str], value_cols: list[str], file: str) -> tuple[pd.DataFrame, np.ndarray]:
     """The table and its value block as float64 (NaN = empty); bad cells raise naming line and column."""
     try:
         # Fast path: the C parser converts the whole block; it refuses any non-numeric cell.
+        if _BOOLEAN_CELL.search(path.read_bytes()):
+            raise ValueError("a TRUE or FALSE cell")
         table = _parse(path, cols, value_cols, "float64", file)
         block = table[value_cols].to_numpy(dtype="float64")
         text = None
@@ -236,11 +245,17 @@ def _read_all(path: Path, cols: list[str], has_unit: bool, minutes: int, options
                                 for i in np.flatnonzero(unknown)[:MAX_PROBLEMS]])
     factor = _unit_factors(table, quantity, lines, has_unit, file, info)
     day_text = _text_column(table, "date", lines, file)
-    day = pd.to_datetime(pd.Series(day_text, dtype="string"), format="%Y-%m-%d", errors="coerce")
+    # strptime-style parsing would read full-width or other Unicode digits: ASCII only
+    ascii_day = np.fromiter((t.isascii() for t in day_text), bool, len(day_text))
+    day = pd.to_datetime(pd.Series(np.where(ascii_day, day_text, ""), dtype="string"), format="%Y-%m-%d",
+                         errors="coerce")
     bad_day = day.isna().to_numpy()
     if bad_day.any():
         raise InputError(file, [Problem(f"not a date (YYYY-MM-DD): {day_text[i]!r}", int(lines[i]), "date")
                                 for i in np.flatnonzero(bad_day)[:MAX_PROBLEMS]])
+    # a local day lies within 14 hours of the same UTC day: checked before it is placed in time
+    check_window(day.to_numpy().astype("datetime64[s]").astype("int64"), lines, "date", file,
+                 options.time_window(), margin=2 * SECONDS_PER_DAY, shown=day_text)
     if options.timezone is None:
         raise InputError(file, Problem(
             "the day-per-row layout holds local days; give --timezone (e.g. Europe/Berlin) to place "
