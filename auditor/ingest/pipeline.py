@@ -38,7 +38,7 @@ from auditor.ingest.validate import DEFAULT_MAX_KW, MeterRows, check_meter_ids, 
 from auditor.store import Store
 from auditor.store.models import QUANTITIES, Channel, ImportBatch, Meter, QualityFlag, Site
 from auditor.store.queries import now_utc
-from auditor.store.write import WriteCounts, write_meter
+from auditor.store.write import WriteCounts, import_session, write_meter
 
 DEFAULT_SITE = "default"
 STORE_ATTEMPTS = 3
@@ -112,16 +112,19 @@ def sha256_of(path: Path) -> str:
 # --------------------------------------------------------------------------------------------
 # Rows grouped by meter
 # --------------------------------------------------------------------------------------------
-ROW = np.dtype([("start", "<i8"), ("kwh", "<f8"), ("kvarh_lag", "<f8"), ("kvarh_lead", "<f8"),
-                ("kwh_received", "<f8"), ("estimated", "?"), ("line", "<i8")])
+COLUMNS = (("start", np.dtype("<i8")), ("kwh", np.dtype("<f8")), ("kvarh_lag", np.dtype("<f8")),
+           ("kvarh_lead", np.dtype("<f8")), ("kwh_received", np.dtype("<f8")), ("estimated", np.dtype("?")),
+           ("line", np.dtype("<i8")))
+ROW_BYTES = sum(d.itemsize for _, d in COLUMNS)  # 49
 
 
 class MeterPartition:
     """A file's canonical rows grouped by meter, in arrival order within each meter.
 
-    Rows are kept as compact records (``ROW``, 49 bytes); when more than ``memory_rows`` are
-    held, every meter's rows so far are appended to one temporary file and memory is freed.
-    :meth:`take` returns all of a meter's rows (from the file, then memory) and forgets them.
+    Each meter's rows are kept as contiguous column arrays (49 bytes a row); when more than
+    ``memory_rows`` are held, every meter's rows so far are appended to one temporary file, column
+    after column, and memory is freed. :meth:`take` returns all of a meter's rows (from the file,
+    then memory) and forgets them.
     """
 
     def __init__(self, memory_rows: int = MEMORY_ROWS):
@@ -129,10 +132,10 @@ class MeterPartition:
         self.names: dict[str, int] = {}
         self.first_line: list[int] = []
         self.rows: list[int] = []
-        self._mem: list[list[np.ndarray]] = []
+        self._mem: list[list[dict[str, np.ndarray]]] = []
         self._held = 0
         self._spill = None
-        self._spilled: list[list[tuple[int, int]]] = []  # per meter: (record offset, count)
+        self._spilled: list[list[tuple[int, int]]] = []  # per meter: (byte offset, rows)
         self._spill_at = 0
         self.total = 0
 
@@ -141,13 +144,12 @@ class MeterPartition:
             return
         local, uniq = pd.factorize(chunk["meter"].to_numpy(dtype=object))
         lines = chunk["line"].to_numpy()
-        first_rows = np.full(len(uniq), -1)
         new = [i for i, u in enumerate(uniq) if u not in self.names]
+        first_rows = np.zeros(len(uniq), dtype=np.int64)
         if new:
             # the line where each new meter first appears, for located messages about its id
             order = np.argsort(local, kind="stable")
-            starts = np.searchsorted(local[order], np.arange(len(uniq)))
-            first_rows = order[np.minimum(starts, len(order) - 1)]
+            first_rows = order[np.searchsorted(local[order], np.arange(len(uniq)))]
             check_meter_ids([uniq[i] for i in new], lines[first_rows[new]], "")
         codes = np.empty(len(uniq), dtype=np.int64)
         for i, u in enumerate(uniq):
@@ -160,62 +162,55 @@ class MeterPartition:
                 self.rows.append(0)
             codes[i] = code
         code = codes[local]
-        rec = np.empty(len(chunk), dtype=ROW)
-        for name in ROW.names:
-            if name in ("start", "line"):
-                rec[name] = chunk[name].to_numpy()
-            elif name == "estimated":
-                rec[name] = chunk[name].to_numpy(dtype=bool)
-            else:
-                rec[name] = chunk[name].to_numpy(dtype="float64")
-        if len(uniq) == 1 or (code[1:] >= code[:-1]).all():
-            edges = np.flatnonzero(np.diff(code)) + 1
-            parts = np.split(rec, edges)
-            part_codes = code[np.r_[0, edges]]
-        else:
+        cols = {name: chunk[name].to_numpy(dtype=dtype) for name, dtype in COLUMNS}
+        if len(uniq) > 1 and not (code[1:] >= code[:-1]).all():
             order = np.argsort(code, kind="stable")
-            rec, code = rec[order], code[order]
-            edges = np.flatnonzero(np.diff(code)) + 1
-            parts = np.split(rec, edges)
-            part_codes = code[np.r_[0, edges]]
-        for c, part in zip(part_codes.tolist(), parts, strict=True):
-            self._mem[c].append(part)
-            self.rows[c] += len(part)
-        self._held += len(rec)
-        self.total += len(rec)
+            code = code[order]
+            cols = {name: v[order] for name, v in cols.items()}
+        edges = np.r_[0, np.flatnonzero(np.diff(code)) + 1, len(code)]
+        for lo, hi in zip(edges[:-1].tolist(), edges[1:].tolist(), strict=True):
+            c = int(code[lo])
+            self._mem[c].append({name: v[lo:hi].copy() for name, v in cols.items()})
+            self.rows[c] += hi - lo
+        self._held += len(code)
+        self.total += len(code)
         if self._held > self.memory_rows:
             self._spill_all()
 
     def _spill_all(self) -> None:
         if self._spill is None:
             self._spill = tempfile.TemporaryFile(prefix="auditor-import-")
+        self._spill.seek(self._spill_at)
         for c, parts in enumerate(self._mem):
             if not parts:
                 continue
-            block = np.concatenate(parts) if len(parts) > 1 else parts[0]
-            self._spill.seek(self._spill_at * ROW.itemsize)
-            block.tofile(self._spill)
-            self._spilled[c].append((self._spill_at, len(block)))
-            self._spill_at += len(block)
+            n = sum(len(p["start"]) for p in parts)
+            for name, _ in COLUMNS:
+                block = np.concatenate([p[name] for p in parts]) if len(parts) > 1 else parts[0][name]
+                block.tofile(self._spill)
+            self._spilled[c].append((self._spill_at, n))
+            self._spill_at += n * ROW_BYTES
             self._mem[c] = []
         self._held = 0
 
     def meters(self) -> list[str]:
         return list(self.names)
 
-    def take(self, meter: str) -> np.ndarray:
+    def take(self, meter: str) -> dict[str, np.ndarray]:
         c = self.names[meter]
-        parts = []
+        parts: list[dict[str, np.ndarray]] = []
         for at, n in self._spilled[c]:
-            self._spill.seek(at * ROW.itemsize)
-            parts.append(np.fromfile(self._spill, dtype=ROW, count=n))
+            self._spill.seek(at)
+            parts.append({name: np.fromfile(self._spill, dtype=dtype, count=n) for name, dtype in COLUMNS})
         parts += self._mem[c]
-        self._held -= sum(len(p) for p in self._mem[c])
+        self._held -= sum(len(p["start"]) for p in self._mem[c])
         self._mem[c] = []
         self._spilled[c] = []
+        if len(parts) == 1:
+            return parts[0]
         if not parts:
-            return np.empty(0, dtype=ROW)
-        return np.concatenate(parts) if len(parts) > 1 else parts[0]
+            return {name: np.empty(0, dtype=dtype) for name, dtype in COLUMNS}
+        return {name: np.concatenate([p[name] for p in parts]) for name, _ in COLUMNS}
 
     def close(self) -> None:
         if self._spill is not None:
@@ -264,7 +259,7 @@ def _validated(part: MeterPartition, meter: str, file: str, info, options: Impor
                window: tuple[int, int], stored_interval: int | None, max_kw: float | None
                ) -> tuple[MeterRows, list[Problem]]:
     rec = part.take(meter)
-    values = {q: rec[q] for q in ("kwh", "kvarh_lag", "kvarh_lead", "kwh_received")}
+    values = {q: rec[q] for q in QUANTITIES}
     return validate_meter(meter, rec["start"], values, rec["estimated"], rec["line"], file,
                           interval_minutes=info.interval_minutes, label=info.label,
                           stored_interval=stored_interval, strict=options.strict,
@@ -417,7 +412,7 @@ def _store(store: Store, path: Path, digest: str, mtime: float, info, part: Mete
     counts = WriteCounts()
     older: WriteCounts | None = None
     warnings: list[Problem] = []
-    with store.session() as s:
+    with import_session(store) as s:
         batch = ImportBatch(file_name=str(path)[:500], sha256=digest, format=info.format, started_at=started,
                             status="importing", rows_accepted=0, rows_rejected=0, source_mtime=mtime)
         s.add(batch)

@@ -300,9 +300,12 @@ def _gap_findings(rows: MeterRows, diffs: np.ndarray, step: int) -> None:
 def _spike_findings(rows: MeterRows, lines, strict, file, warnings) -> None:
     for q in ("kwh", "kvarh_lag", "kvarh_lead"):
         v = rows.values[q]
-        if len(v) < 96 or np.isnan(v).all():
-            continue  # too short to judge, or a channel the file does not have
-        ref = np.nanpercentile(v, 99)
+        if len(v) < 96:
+            continue  # too short to judge
+        nan = np.isnan(v)
+        if nan.all():
+            continue  # a channel the file does not have
+        ref = np.percentile(v[~nan] if nan.any() else v, 99)
         if not np.isfinite(ref) or ref <= 0:
             continue
         hits = np.flatnonzero(v > SPIKE_FACTOR * ref)

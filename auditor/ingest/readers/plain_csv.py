@@ -101,7 +101,10 @@ def _chunks(path: Path, cols: list[str], time_col: str, options: ReadOptions, fi
         for chunk in reader:
             lines = np.arange(first_line, first_line + len(chunk))
             first_line += len(chunk)
-            blank = chunk.isna().all(axis=1).to_numpy()
+            # a blank line is a row of NaN: look at the meter column first, the rest only there
+            blank = chunk["meter"].isna().to_numpy().copy()
+            if blank.any():
+                blank[blank] = chunk.loc[blank].isna().all(axis=1).to_numpy()
             if blank.any():
                 chunk = chunk.loc[~blank]
                 lines = lines[~blank]
