@@ -25,17 +25,24 @@ def _progress_wanted(ctx: Context, json_out: bool) -> bool:
 @click.option("--estimate-gaps", is_flag=True, help="Fill missing intervals; filled values are flagged.")
 @click.option("--strict", is_flag=True, help="Reject files with spikes or duplicate rows instead of flagging them.")
 @click.option("--dry-run", is_flag=True, help="Read and validate only; write nothing.")
+@click.option("--force", is_flag=True,
+              help="Apply a file older than the stored data, and values later imports had replaced.")
+@click.option("--move", is_flag=True, help="With --site: move meters already on another site to it.")
+@click.option("--max-kw", type=float, metavar="KW",
+              help="Plausible maximum average power of the file's meters (kept for later imports; "
+                   "default 2,000,000 kW).")
 @click.option("--inbox", type=click.Path(file_okay=False, path_type=Path),
               help="Process every file in DIR, moving each to DIR/done or DIR/rejected.")
 @click.option("--wait", "wait_seconds", type=click.FloatRange(0, 86400), default=0, show_default=True,
               help="With --inbox: seconds to wait for another run's lock before giving up.")
 @click.option("--json", "json_out", is_flag=True, help="Machine-readable output.")
 @pass_ctx
-def import_cmd(ctx: Context, paths, site, tz, profile, estimate_gaps, strict, dry_run, inbox, wait_seconds,
-               json_out):
+def import_cmd(ctx: Context, paths, site, tz, profile, estimate_gaps, strict, dry_run, force, move, max_kw,
+               inbox, wait_seconds, json_out):
     """Import meter exports (plain CSV, day-per-row CSV, or any CSV through --profile)."""
     options = ImportOptions(site=site, timezone=tz, profile_path=str(profile) if profile else None,
-                            estimate_gaps=estimate_gaps, strict=strict, dry_run=dry_run)
+                            estimate_gaps=estimate_gaps, strict=strict, dry_run=dry_run, force=force, move=move,
+                            max_kw=max_kw)
     if inbox is not None:
         from auditor.services.inbox import run_inbox
 
@@ -51,7 +58,7 @@ def import_cmd(ctx: Context, paths, site, tz, profile, estimate_gaps, strict, dr
                 if isinstance(skipped, dict):
                     skipped = f"{skipped.get('path', '')} ({skipped.get('reason', '')})"
                 click.echo(f"skipped   {skipped}")
-        return 1 if any(f["status"] == "rejected" for f in files) else 0
+        return 1 if any(f["status"] in ("rejected", "older") for f in files) else 0
     if not paths:
         raise click.UsageError("give at least one file to import (or --inbox DIR)")
     from auditor.services.ingest import import_files
@@ -74,7 +81,7 @@ def import_cmd(ctx: Context, paths, site, tz, profile, estimate_gaps, strict, dr
         echo_json({"files": files})
     else:
         _print_outcomes(files)
-    return 1 if any(o.status == "rejected" for o in outcomes) else 0
+    return 1 if any(o.status in ("rejected", "older") for o in outcomes) else 0
 
 
 def _print_outcomes(files: list[dict], message: str | None = None) -> None:
@@ -86,7 +93,7 @@ def _print_outcomes(files: list[dict], message: str | None = None) -> None:
             line += f"  ({f['rows']:,} rows"
             line += f", {f['format']})" if f.get("format") else ")"
         click.echo(line)
-        if f.get("message") and f["status"] != "rejected":
+        if f.get("message") and f["status"] not in ("rejected", "older"):
             click.echo(f"          {f['message']}")
         for e in f.get("errors", [])[:20]:
             where = ", ".join(x for x in (f"line {e['line']}" if e.get("line") else "",

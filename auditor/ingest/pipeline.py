@@ -68,7 +68,7 @@ class ImportOptions:
 @dataclass
 class FileOutcome:
     path: str
-    status: str  # imported | unchanged | revised | older | rejected
+    status: str  # imported | unchanged | revised | older | rejected (changed: see import_file)
     rows: int = 0
     format: str | None = None
     batch_id: int | None = None
@@ -81,6 +81,7 @@ class FileOutcome:
     errors: list[Problem] = field(default_factory=list)
     warnings: list[Problem] = field(default_factory=list)
     message: str = ""
+    detail: str = ""  # for a bug report (an inbox run's error file); not in as_dict
 
     def as_dict(self) -> dict:
         return {
@@ -91,6 +92,10 @@ class FileOutcome:
             "errors": [p.as_dict() for p in self.errors],
             "warnings": [p.as_dict() for p in self.warnings], "message": self.message,
         }
+
+
+class _Changed(Exception):
+    """The file changed while it was being imported (a writer still at work): rolled back."""
 
 
 class _Older(Exception):
@@ -270,8 +275,14 @@ def _validated(part: MeterPartition, meter: str, file: str, info, options: Impor
 # The import
 # --------------------------------------------------------------------------------------------
 def import_file(store: Store, path: str | Path, options: ImportOptions = ImportOptions(),
-                progress: Callable[[int], None] | None = None) -> FileOutcome:
-    """Import one file; never raises for a bad file (the outcome says ``rejected``)."""
+                progress: Callable[[int], None] | None = None, *,
+                expect: tuple[int, int] | None = None) -> FileOutcome:
+    """Import one file; never raises for a bad file (the outcome says ``rejected``).
+
+    ``expect`` (size, mtime in ns), when given, is checked before anything is read and again
+    before the transaction commits: a file that changed meanwhile is rolled back and the
+    outcome says ``changed`` (the inbox leaves such a file for its next run).
+    """
     path = Path(path)
     outcome = FileOutcome(str(path), "rejected")
     started = now_utc()
@@ -281,6 +292,8 @@ def import_file(store: Store, path: str | Path, options: ImportOptions = ImportO
         if not path.is_file():
             raise InputError(str(path), Problem("no such file" if not path.exists() else "not a regular file"))
         mtime = path.stat().st_mtime
+        guard = _guard(path, expect)
+        guard()
         digest = sha256_of(path)
         with store.session() as s:
             prior = s.scalar(select(ImportBatch).where(
@@ -304,7 +317,7 @@ def import_file(store: Store, path: str | Path, options: ImportOptions = ImportO
                 if options.dry_run:
                     _dry_run(store, path, info, part, options, window, outcome)
                     return outcome
-                _store(store, path, digest, mtime, info, part, options, window, outcome, started)
+                _store(store, path, digest, mtime, info, part, options, window, outcome, started, guard)
                 return outcome
             except IntegrityError:
                 # another import committed the same new site, meter or intervals while this one
@@ -314,6 +327,10 @@ def import_file(store: Store, path: str | Path, options: ImportOptions = ImportO
                     raise
             finally:
                 part.close()
+        return outcome
+    except _Changed:
+        outcome.status = "changed"
+        outcome.message = "the file changed while it was read (still being written?); nothing was stored"
         return outcome
     except _Older as older:
         _older_outcome(outcome, older.counts)
@@ -335,6 +352,19 @@ def import_file(store: Store, path: str | Path, options: ImportOptions = ImportO
         except StoreError:
             pass  # the database itself is the problem; the outcome already says so
     return outcome
+
+
+def _guard(path: Path, expect: tuple[int, int] | None) -> Callable[[], None]:
+    def check() -> None:
+        if expect is None:
+            return
+        try:
+            st = path.stat()
+        except OSError:
+            raise _Changed() from None
+        if (st.st_size, st.st_mtime_ns) != tuple(expect):
+            raise _Changed()
+    return check
 
 
 def _check_options(options: ImportOptions) -> None:
@@ -408,7 +438,8 @@ def _record(store: Store, path: Path, digest: str | None, fmt: str, outcome: Fil
 
 
 def _store(store: Store, path: Path, digest: str, mtime: float, info, part: MeterPartition,
-           options: ImportOptions, window: tuple[int, int], outcome: FileOutcome, started) -> None:
+           options: ImportOptions, window: tuple[int, int], outcome: FileOutcome, started,
+           guard: Callable[[], None]) -> None:
     counts = WriteCounts()
     older: WriteCounts | None = None
     warnings: list[Problem] = []
@@ -465,6 +496,7 @@ def _store(store: Store, path: Path, digest: str, mtime: float, info, part: Mete
         batch.rows_revised = counts.revised
         batch.finished_at = now_utc()
         outcome.batch_id = batch.id
+        guard()  # the file as read is the file as it is now: else roll back
     outcome.status = status
     outcome.warnings = (outcome.warnings + warnings)[:200]
     outcome.inserted, outcome.revised, outcome.unchanged_rows = counts.inserted, counts.revised, counts.unchanged

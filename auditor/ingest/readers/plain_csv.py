@@ -29,13 +29,21 @@ OPTIONAL = ("kwh_received", "flag")
 TIME_COLUMNS = ("start", "end")
 
 
-def header_of(head: str) -> list[str]:
-    first = head.lstrip("\ufeff").splitlines()[0] if head.strip() else ""
-    return [c.strip().lower() for c in first.split(",")]
+# Detection looks at this many columns: the plain CSV has at most seven.
+SNIFF_COLUMNS = 64
+
+
+def header_of(head: str, limit: int = -1) -> list[str]:
+    """The header's column names, lower case and stripped (the first ``limit + 1`` when given)."""
+    first = head.lstrip("\ufeff").split("\n", 1)[0].rstrip("\r") if head.strip() else ""
+    cols = first.lower().split(",", limit)
+    if limit >= 0:
+        cols = cols[:limit]
+    return [c.strip() for c in cols] if any(c != c.strip() for c in cols) else cols
 
 
 def sniff(path: Path, head: str) -> bool:
-    cols = header_of(head)
+    cols = header_of(head, SNIFF_COLUMNS)
     return "meter" in cols and "kwh" in cols and ("start" in cols or "end" in cols)
 
 

@@ -83,13 +83,14 @@ def _interval_for_columns(n: int) -> int | None:
     return None
 
 
-def _split_header(line: str) -> list[str]:
-    return [c.strip().strip('"').strip().lower() for c in line.lstrip("\ufeff").rstrip("\r\n").split(",")]
+def _split_header(line: str, limit: int = -1) -> list[str]:
+    cells = line.lstrip("\ufeff").rstrip("\r\n").split(",", limit)
+    return [c.strip().strip('"').strip().lower() for c in (cells[:limit] if limit >= 0 else cells)]
 
 
 def sniff(path: Path, head: str) -> bool:
-    lines = head.lstrip("\ufeff").splitlines()
-    return bool(lines) and _split_header(lines[0])[:3] == list(LEADING)
+    first = head.lstrip("\ufeff").split("\n", 1)[0]
+    return _split_header(first, 3) == list(LEADING)
 
 
 def check_header(cols: list[str], file: str) -> tuple[bool, int]:
