@@ -226,21 +226,18 @@ class MeterPartition:
 # --------------------------------------------------------------------------------------------
 # Reading
 # --------------------------------------------------------------------------------------------
-def _reader_for(path: Path, options: ImportOptions, window: tuple[int, int]):
-    ropts = ReadOptions(timezone=options.timezone, chunk_rows=options.chunk_rows, window=window)
-    if options.profile_path:
-        from auditor.ingest.profile import load_profile
+def _reader_for(path: Path, options: ImportOptions, window: tuple[int, int], profile=None):
+    ropts = ReadOptions(timezone=options.timezone, chunk_rows=options.chunk_rows, window=window, profile=profile)
+    if profile is not None:
         from auditor.ingest.readers import profile_csv
 
-        ropts = ReadOptions(timezone=options.timezone, chunk_rows=options.chunk_rows, window=window,
-                            profile=load_profile(options.profile_path))
         return profile_csv, ropts
     return readers.detect(path), ropts
 
 
 def _read(path: Path, options: ImportOptions, window: tuple[int, int],
-          progress: Callable[[int], None] | None) -> tuple[object, object, MeterPartition]:
-    reader, ropts = _reader_for(path, options, window)
+          progress: Callable[[int], None] | None, profile=None) -> tuple[object, object, MeterPartition]:
+    reader, ropts = _reader_for(path, options, window, profile)
     output = reader.read(path, ropts)
     part = MeterPartition(options.memory_rows)
     try:
@@ -287,10 +284,15 @@ def import_file(store: Store, path: str | Path, options: ImportOptions = ImportO
     outcome = FileOutcome(str(path), "rejected")
     started = now_utc()
     window = options.window or plausible_window()
+    _check_options(options)  # a bad option is the caller's error (exit 2), not the file's
     try:
-        _check_options(options)
         if not path.is_file():
             raise InputError(str(path), Problem("no such file" if not path.exists() else "not a regular file"))
+        profile = None
+        if options.profile_path:
+            from auditor.ingest.profile import load_profile
+
+            profile = load_profile(options.profile_path)  # a bad profile is reported even for a known file
         mtime = path.stat().st_mtime
         guard = _guard(path, expect)
         guard()
@@ -308,7 +310,7 @@ def import_file(store: Store, path: str | Path, options: ImportOptions = ImportO
                 _record(store, path, digest, prior.format, outcome, started)
             return outcome
         for attempt in range(STORE_ATTEMPTS):
-            reader, info, part = _read(path, options, window, progress)
+            reader, info, part = _read(path, options, window, progress, profile)
             try:
                 outcome.format = reader.FORMAT
                 outcome.rows = part.total

@@ -204,6 +204,8 @@ def _value_block(path: Path, cols: list[str], value_cols: list[str], file: str) 
             raise ValueError("a TRUE or FALSE cell")
         table = _parse(path, cols, value_cols, "float64", file)
         block = table[value_cols].to_numpy(dtype="float64")
+        if np.isinf(block).any():
+            raise ValueError("a cell too large for a number")  # the slow path quotes the cell as written
         text = None
     except ValueError:
         table = _parse(path, cols, value_cols, "string", file)
