@@ -4,9 +4,11 @@
 For each size (meter-years, default 50 and 200) writes N meter-years of plain CSV with the
 floor's own generator (shared/bench/floor_ingest.py beside the project, or --floor PATH), then
 alternates runs of the floor and of ``auditor import`` into fresh SQLite files, each in a child
-process so that its peak memory (max RSS) is its own. Prints per size the median times, the
-ratio of the medians (target ≤ 1.2) and the peak RSS of both (target for ``auditor import``:
-≤ 400 MB at 200 meter-years, flat in the file's size).
+process so that its peak memory (max RSS) and its CPU time are its own. Prints per size the
+median wall times, the ratio of the medians (target ≤ 1.2) and the peak RSS of both (target for
+``auditor import``: ≤ 400 MB at 200 meter-years, flat in the file's size). On a machine that
+other work shares, wall times swing with the load; the CPU time (user + system) of each child
+and the ratio of its medians are printed beside them as the steadier figure.
 
     python benchmarks/bench_ingest.py --meters 50 200 --repeat 3
 """
@@ -36,17 +38,19 @@ def find_floor(given: str | None) -> Path:
     sys.exit("floor_ingest.py not found; give --floor PATH")
 
 
-def child(cmd: list[str], env=None) -> tuple[float, float]:
-    """Run cmd; return (wall seconds, peak RSS MB of that child)."""
+def child(cmd: list[str], env=None, cpu: list | None = None) -> tuple[float, float]:
+    """Run cmd; return (wall seconds, peak RSS MB of that child); append its CPU seconds to ``cpu``."""
     wrapper = [sys.executable, "-c",
                "import resource,subprocess,sys,time;t=time.perf_counter();"
                "r=subprocess.run(sys.argv[1:]);dt=time.perf_counter()-t;"
-               "m=resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss/1024;"
-               "print('BENCH',dt,m,r.returncode,file=sys.stderr)", *cmd]
+               "u=resource.getrusage(resource.RUSAGE_CHILDREN);m=u.ru_maxrss/1024;"
+               "print('BENCH',dt,m,r.returncode,u.ru_utime+u.ru_stime,file=sys.stderr)", *cmd]
     out = subprocess.run(wrapper, capture_output=True, text=True, env=env)
     line = [x for x in out.stderr.splitlines() if x.startswith("BENCH")][-1].split()
     if int(line[3]) != 0:
         sys.exit(f"failed: {' '.join(cmd)}\n{out.stderr[-2000:]}")
+    if cpu is not None:
+        cpu.append(float(line[4]))
     return float(line[1]), float(line[2])
 
 
@@ -57,22 +61,24 @@ def one_size(floor: Path, work: Path, meters: int, repeat: int) -> dict:
         subprocess.run([sys.executable, str(floor), "make", str(csv), "--meters", str(meters)], check=True)
         print(f"wrote {csv.stat().st_size / 1e6:.0f} MB of CSV ({meters} meter-years) in "
               f"{time.perf_counter() - t:.1f} s", flush=True)
-    floor_t, floor_m, ours_t, ours_m = [], [], [], []
+    floor_t, floor_m, ours_t, ours_m, floor_c, ours_c = [], [], [], [], [], []
     for i in range(repeat):
         for which in ("floor", "auditor"):
             db = work / f"{which}{meters}-{i}.sqlite3"
             for p in work.glob(f"{db.name}*"):
                 p.unlink()
             if which == "floor":
-                dt, mem = child([sys.executable, str(floor), "run", str(csv), str(db)])
+                dt, mem = child([sys.executable, str(floor), "run", str(csv), str(db)], cpu=floor_c)
                 floor_t.append(dt)
                 floor_m.append(mem)
             else:
                 env = dict(os.environ, AUDITOR_DB_URL=f"sqlite:///{db}")
-                dt, mem = child([sys.executable, "-m", "auditor", "--quiet", "import", str(csv)], env=env)
+                dt, mem = child([sys.executable, "-m", "auditor", "--quiet", "import", str(csv)], env=env, cpu=ours_c)
                 ours_t.append(dt)
                 ours_m.append(mem)
-            print(f"{meters:>4} meter-years run {i + 1} {which:<8} {dt:7.2f} s  peak {mem:6.0f} MB", flush=True)
+            cpu = (floor_c if which == "floor" else ours_c)[-1]
+            print(f"{meters:>4} meter-years run {i + 1} {which:<8} {dt:7.2f} s  cpu {cpu:7.2f} s  peak {mem:6.0f} MB",
+                  flush=True)
             for p in work.glob(f"{db.name}*"):
                 p.unlink()
     ratio = statistics.median(ours_t) / statistics.median(floor_t)
@@ -81,6 +87,9 @@ def one_size(floor: Path, work: Path, meters: int, repeat: int) -> dict:
         "floor_median_s": round(statistics.median(floor_t), 2),
         "auditor_median_s": round(statistics.median(ours_t), 2),
         "ratio": round(ratio, 2),
+        "floor_cpu_median_s": round(statistics.median(floor_c), 2),
+        "auditor_cpu_median_s": round(statistics.median(ours_c), 2),
+        "cpu_ratio": round(statistics.median(ours_c) / statistics.median(floor_c), 2),
         "floor_peak_mb": round(max(floor_m)), "auditor_peak_mb": round(max(ours_m)),
         "auditor_rows_per_s": round(meters * 35040 / statistics.median(ours_t)),
         "ratio_ok": ratio <= TARGET_RATIO, "peak_ok": max(ours_m) <= TARGET_PEAK_MB,
@@ -99,10 +108,11 @@ def main() -> None:
     work.mkdir(parents=True, exist_ok=True)
     results = [one_size(floor, work, m, a.repeat) for m in a.meters]
     print()
-    print(f"{'meter-years':>11} {'floor s':>8} {'import s':>9} {'ratio':>6} {'floor MB':>9} {'import MB':>10}")
+    print(f"{'meter-years':>11} {'floor s':>8} {'import s':>9} {'ratio':>6} {'cpu ratio':>9} {'floor MB':>9} "
+          f"{'import MB':>10}")
     for r in results:
         print(f"{r['meter_years']:>11} {r['floor_median_s']:>8.2f} {r['auditor_median_s']:>9.2f} {r['ratio']:>6.2f} "
-              f"{r['floor_peak_mb']:>9} {r['auditor_peak_mb']:>10}")
+              f"{r['cpu_ratio']:>9.2f} {r['floor_peak_mb']:>9} {r['auditor_peak_mb']:>10}")
     print(f"targets: ratio ≤ {TARGET_RATIO}, import peak ≤ {TARGET_PEAK_MB} MB")
     print(json.dumps({"results": results}))
 

@@ -15,6 +15,10 @@ Revisions are decided by content, interval by interval (README, "Re-imports and 
   *older* than the file that wrote the stored value: its modification time is earlier by more
   than ``OLDER_SLACK_S``. Then nothing of the meter is written and the counts say how many
   intervals the file would change; the caller rolls the file back (``force`` applies it).
+
+The import pipeline uses only :func:`import_session` (the file's one transaction) and
+:func:`write_meter` (one meter's sorted rows as numpy arrays, returning :class:`WriteCounts`):
+a different storage layout for ``reading`` changes this module, not the pipeline.
 """
 from __future__ import annotations
 
