@@ -205,3 +205,25 @@ def test_bill_periods_are_plausible_in_files_and_manual_entry(store, tmp_path):
     with pytest.raises(InputError, match="not a number"):
         add_bill(store, "BL-1", "2025-01-01", "2025-02-01", kwh="１０００")
     assert add_bill(store, "BL-1", "2025-01-01", "2025-02-01", kwh=1000)["status"] == "imported"
+
+
+def test_a_header_of_two_million_columns_names_the_first_unknown_one(tmp_path):
+    from tests.ingest_helpers import new_store
+
+    store = new_store(tmp_path)  # about the reader only: SQLite is enough
+    f = tmp_path / "wide.csv"
+    with open(f, "w") as fh:
+        fh.write("meter,start,kwh,kvarh_lag,kvarh_lead," + ",".join(f"c{i}" for i in range(2_000_000)) + "\n")
+        fh.write("H-1,2025-01-06T00:00:00Z,1,0,0\n")
+    out = import_file(store, f)
+    assert out.status == "rejected"
+    first = out.errors[0]
+    assert (first.line, first.column) == (1, "c0") and "unknown column 'c0'" in first.message
+    assert "1,999,999 more unknown column(s)" in out.errors[1].message and len(out.errors) == 2
+    # the same with the known columns at the end, past the first 16 KiB that detection reads first
+    g = tmp_path / "junk-first.csv"
+    with open(g, "w") as fh:
+        fh.write(",".join(f"j{i}" for i in range(2_000_000)) + ",meter,start,kwh,kvarh_lag,kvarh_lead\n")
+        fh.write("H-1,2025-01-06T00:00:00Z,1,0,0\n")
+    out = import_file(store, g)
+    assert out.status == "rejected" and out.errors[0].line == 1

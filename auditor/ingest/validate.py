@@ -2,8 +2,7 @@
 
 The pipeline streams a file: rows are grouped by meter as they are read, and each meter's rows
 are validated as a whole with :func:`validate_meter`, so every rule sees all of a meter's rows
-in the file wherever the reader's chunks began and ended. :func:`validate` does the same for a
-whole canonical frame at once.
+in the file wherever the reader's chunks began and ended.
 
 Hard errors (the file is rejected, nothing stored): negative values, values beyond the
 physical bound (below), timestamps outside the plausible window (below), duplicate timestamps
@@ -82,13 +81,6 @@ class MeterRows:
     findings: list[QualityFinding] = field(default_factory=list)
 
 
-@dataclass
-class Validated:
-    meters: list[MeterRows]
-    warnings: list[Problem]
-    rows_in: int
-
-
 def _fmt_utc(epoch: int) -> str:
     return fmt_epoch(epoch)
 
@@ -107,34 +99,6 @@ def check_meter_ids(names, lines_of_first: np.ndarray, file: str, column: str = 
             break
     if problems:
         raise InputError(file, problems)
-
-
-def validate(df: pd.DataFrame, file: str, *, interval_minutes: int | None = None, label: str = "start",
-             stored_intervals: dict[str, int | None] | None = None, strict: bool = False,
-             estimate_gaps: bool = False, window: tuple[int, int] | None = None,
-             max_kw: dict[str, float | None] | None = None) -> Validated:
-    """Check one file's canonical rows and split them by meter (see module docstring)."""
-    stored_intervals = stored_intervals or {}
-    max_kw = max_kw or {}
-    codes, names = pd.factorize(df["meter"], sort=False)
-    order = np.argsort(codes, kind="stable")
-    codes_sorted = codes[order]
-    bounds = np.flatnonzero(np.diff(codes_sorted)) + 1
-    warnings: list[Problem] = []
-    out: list[MeterRows] = []
-    for lo, hi in zip(np.r_[0, bounds], np.r_[bounds, len(codes)], strict=True):
-        if hi <= lo:
-            continue
-        sel = order[lo:hi]
-        meter = str(names[codes_sorted[lo]])
-        rows, warn = validate_meter(
-            meter, df["start"].to_numpy()[sel], {q: df[q].to_numpy()[sel] for q in VALUE_COLUMNS},
-            df["estimated"].to_numpy()[sel], df["line"].to_numpy()[sel], file, interval_minutes=interval_minutes,
-            label=label, stored_interval=stored_intervals.get(meter), strict=strict, estimate_gaps=estimate_gaps,
-            window=window, max_kw=max_kw.get(meter))
-        warnings.extend(warn)
-        out.append(rows)
-    return Validated(out, warnings[:200], len(df))
 
 
 def validate_meter(meter: str, start: np.ndarray, values: dict[str, np.ndarray], estimated: np.ndarray,
