@@ -142,3 +142,19 @@ def test_partition_returns_each_meters_rows_in_file_order(tmp_path):
         np.testing.assert_array_equal(rows["estimated"], want["estimated"].to_numpy())
         assert np.isnan(rows["kwh_received"]).all()
     part.close()
+
+
+def test_repeated_hours_of_two_years_are_separate_runs(tmp_path):
+    # a meter's rows jump from 2024's repeated hour straight into 2025's (a year missing between):
+    # each run is resolved on its own, in one chunk or across a boundary between them
+    def hour(day):
+        idx = pd.date_range(pd.Timestamp(day, tz=BERLIN) + pd.Timedelta(hours=2), periods=8, freq="15min")
+        return idx, [f"M1,{t.tz_localize(None).isoformat()},1,0.5,0" for t in idx]
+
+    i24, r24 = hour("2024-10-27")
+    i25, r25 = hour("2025-10-26")
+    path = write_csv(tmp_path / "a.csv", r24 + r25)
+    want = np.r_[i24.as_unit("s").asi8, i25.as_unit("s").asi8]  # tz-aware: UTC instants
+    for chunk_rows in (8, 5, 100):
+        got = pd.concat(list(plain_csv.read(path, ReadOptions(timezone=BERLIN, chunk_rows=chunk_rows)).chunks))
+        np.testing.assert_array_equal(got["start"].to_numpy(), want)

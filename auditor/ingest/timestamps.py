@@ -18,6 +18,9 @@ _OFFSET_RE = r"(?:Z|[+-]\d{2}(?::?\d{2})?)$"
 # Wall times are checked against the plausible window before they are localised (pandas cannot
 # place a local time in year 10000); UTC offsets reach 14 hours, so a day of margin is enough.
 _LOCAL_MARGIN = 2 * 86_400
+# The wall times of one repeated hour lie within an hour of each other (two at most where a zone
+# steps back by two hours, which no zone does today).
+_REPEATED_SPAN = 3_600
 
 
 def _bad_cells(raw: pd.Series, parsed: pd.Series, lines: np.ndarray, column: str, file: str, what: str):
@@ -166,9 +169,14 @@ class WallClock:
     def _resolve(self, key, rows, amb, wall, a, b, out, lines, column, shown) -> None:
         padded = np.r_[0, amb.astype(np.int8), 0]
         edges = np.flatnonzero(np.diff(padded))
-        runs = list(zip(edges[::2].tolist(), edges[1::2].tolist(), strict=True))
+        runs = []
+        for s, e in zip(edges[::2].tolist(), edges[1::2].tolist(), strict=True):
+            # a forward jump of more than an hour starts another day's repeated hour
+            cuts = (np.flatnonzero(np.diff(wall[rows[s:e]]) > _REPEATED_SPAN) + 1 + s).tolist()
+            runs += list(zip([s, *cuts], [*cuts, e], strict=True))
         prior = self.open.pop(key, None)
-        if prior is not None and (not runs or runs[0][0] != 0):
+        if prior is not None and (not runs or runs[0][0] != 0
+                                  or wall[rows[0]] - prior.last_wall > _REPEATED_SPAN):
             self._close(prior)  # the meter's next row is past the repeated hour
             prior = None
         for s, e in runs:
