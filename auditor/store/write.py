@@ -79,7 +79,10 @@ def import_session(store) -> Iterator[Session]:
                 yield s
         finally:
             if raw is not None:
-                raw.execute("PRAGMA foreign_keys=ON")
+                try:
+                    raw.execute("PRAGMA foreign_keys=ON")
+                except conn.dialect.loaded_dbapi.Error:
+                    conn.invalidate()  # never back to the pool without enforcement
 
 
 def _ph(conn: Connection, n: int) -> str:
