@@ -153,6 +153,7 @@ def test_refused_login_is_one_line_without_the_password(tmp_path, servers, impor
     smtp, http = servers
     db = copy_of(imported, tmp_path)
     settings = settings_file(tmp_path, smtp, http)
+    cli(db, "alerts", "--as-of", AS_OF.isoformat(), "--settings", str(settings))  # something to send
     r = cli(db, "alerts", "digest", "--settings", str(settings), rc=1, env={"TEST_SMTP_SECRET": "wrong-password"})
     assert "refused the login of 'alerts' (535)" in r.stderr and "wrong-password" not in r.stderr
     assert len(r.stderr.strip().splitlines()) == 1 and "Traceback" not in r.stderr

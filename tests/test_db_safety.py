@@ -106,7 +106,7 @@ def test_a_damaged_file_is_refused_before_a_migration(tmp_path):
     """Damage deep in a table that opening the file does not touch: the upgrade's integrity
     check finds it before any migration writes."""
     made = populated(tmp_path)
-    assert invoke("db", "downgrade", "0001", db=made).exit_code == 0  # an older schema
+    assert invoke("db", "downgrade", "0001", "--yes", db=made).exit_code == 0  # an older schema
     path = tmp_path / "old.sqlite3"
     copy_alone(tmp_path / "p.sqlite3", path)
     url = f"sqlite:///{path}"
@@ -212,11 +212,11 @@ def _tables(url: str) -> set[str]:
 def test_downgrade_refuses_to_drop_rows_without_yes_and_copies_the_file_with_it(tmp_path):
     url = populated(tmp_path)
     path = tmp_path / "p.sqlite3"
-    # tables without rows (bills, scenarios) go without a question
+    # the import's own bookkeeping (each file's modification time) goes with --yes, after a copy
     from auditor.store.engine import quick_head_revision
 
     head = quick_head_revision()
-    r = invoke("db", "downgrade", "0001", db=url)
+    r = invoke("db", "downgrade", "0001", "--yes", db=url)
     assert r.exit_code == 0 and f"{head} → 0001" in r.output, r.output
     copies = list(tmp_path.glob(f"p.before-downgrade-from-{head}-*.sqlite3"))
     assert len(copies) == 1 and f"copied the database file to {copies[0]}" in r.output

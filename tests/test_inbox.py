@@ -181,3 +181,151 @@ def test_cli_exit_codes_and_concurrent_runs(tmp_path, inbox):
     assert r.returncode == 1 and "line 5" in r.stderr and "Traceback" not in r.stderr
     r = run_cli(["import", "--inbox", str(inbox)], db)
     assert r.returncode == 0 and "0 file(s)" in r.stdout
+
+
+# --------------------------------------------------------------------------------------------
+# an inbox that never stops
+# --------------------------------------------------------------------------------------------
+def test_poison_file_sorted_first_is_rejected_and_the_good_ones_imported(store, inbox, monkeypatch):
+    """A file that ends in an unexpected error (here a planted bug in the reader) goes to
+    rejected/ with its error; the run goes on and imports the two good files after it."""
+    from auditor.ingest.readers import plain_csv
+
+    original = plain_csv._canonical
+
+    def bug_on_poison(chunk, lines, time_col, options, file, *rest):
+        if Path(file).name.startswith("00-poison"):
+            raise ZeroDivisionError("planted bug")
+        return original(chunk, lines, time_col, options, file, *rest)
+
+    monkeypatch.setattr(plain_csv, "_canonical", bug_on_poison)
+    good(inbox, "00-poison.csv", meter="P0")
+    good(inbox, "a.csv", meter="M1")
+    good(inbox, "b.csv", meter="M2")
+    res = run_inbox(store, inbox, ImportOptions())
+    status = {Path(f["path"]).name: f["status"] for f in res["files"]}
+    assert status == {"00-poison.csv": "rejected", "a.csv": "imported", "b.csv": "imported"}
+    assert sorted(p.name for p in (inbox / "done").iterdir()) == ["a.csv", "b.csv"]
+    assert sorted(p.name for p in (inbox / "rejected").iterdir()) == ["00-poison.csv", "00-poison.csv.error.txt"]
+    report = (inbox / "rejected" / "00-poison.csv.error.txt").read_text()
+    assert "internal error" in report and "ZeroDivisionError: planted bug" in report and "Traceback" in report
+    assert reading_count(store) == 2 * 96
+    log = log_lines(inbox)
+    assert log[0]["status"] == "rejected" and log[-1]["rejected"] == 1 and log[-1]["imported"] == 2
+
+
+def test_poison_files_through_the_cli(tmp_path, inbox):
+    """Inputs that once stopped the inbox for good with exit 3 (year 0000, an XML declaring an
+    unknown encoding, a field over 128 KB), sorted before two good files: exit 1, every poison
+    file rejected with its error, both good files imported."""
+    db = tmp_path / "cli.sqlite3"
+    settled(write_csv(inbox / "00-year-zero.csv", ["Z0,0000-01-01T00:00:00+00:00,1,1,0",
+                                                   "Z0,0000-01-01T00:15:00+00:00,1,1,0"]))
+    (inbox / "01-encoding.xml").write_text('<?xml version="1.0" encoding="x-nothing"?>\n<feed xmlns="http://www.w3.'
+                                           'org/2005/Atom"><entry><content><IntervalBlock xmlns="http://naesb.org/'
+                                           'espi"/></content></entry></feed>\n')
+    settled(inbox / "01-encoding.xml")
+    settled(write_csv(inbox / "02-long-field.csv", ["F0,2025-01-06T00:00:00+00:00,1,1,\"" + "x" * 140_000 + "\""]))
+    good(inbox, "a.csv", meter="M1")
+    good(inbox, "b.csv", meter="M2")
+    r = run_cli(["import", "--inbox", str(inbox), "--json"], db)
+    assert r.returncode == 1, (r.stdout, r.stderr)
+    assert "Traceback" not in r.stderr and "internal error" not in r.stdout + r.stderr
+    files = {Path(f["path"]).name: f for f in json.loads(r.stdout)["files"]}
+    assert [files[n]["status"] for n in sorted(files)] == ["rejected", "rejected", "rejected", "imported", "imported"]
+    assert files["00-year-zero.csv"]["errors"][0]["line"] == 2
+    assert files["01-encoding.xml"]["errors"][0]["line"] == 1
+    assert files["02-long-field.csv"]["errors"][0]["line"] == 2
+    assert sorted(p.name for p in (inbox / "done").iterdir()) == ["a.csv", "b.csv"]
+    assert len(list((inbox / "rejected").glob("*.error.txt"))) == 3
+
+
+def test_writer_pausing_past_the_settle_time_is_not_imported_truncated(store, inbox):
+    """A writer that stops mid-row for longer than the settle time: the file is left for a later
+    run (it is not complete by its format); once finished it is imported whole."""
+    rows = day_rows(meter="W1") + day_rows(meter="W1", day="2025-01-07")
+    text = "meter,start,kwh,kvarh_lag,kvarh_lead\n" + "\n".join(rows) + "\n"
+    cut = text.index("\n", len(text) // 2) + 12  # a dozen bytes into a row
+    path = inbox / "slow.csv"
+    path.write_text(text[:cut])
+    paused = time.time() - 60  # the pause: a minute, longer than the settle time
+    os.utime(path, (paused, paused))
+    res = run_inbox(store, inbox, ImportOptions())
+    assert res["files"] == [] and reading_count(store) == 0
+    reason = {Path(s["path"]).name: s["reason"] for s in res["skipped"]}["slow.csv"]
+    assert "incomplete" in reason and "no line break" in reason
+    assert path.exists() and not (inbox / "rejected").exists()
+    with open(path, "a") as fh:  # the writer resumes and finishes
+        fh.write(text[cut:])
+    settled(path)
+    res = run_inbox(store, inbox, ImportOptions())
+    assert res["files"][0]["status"] == "imported" and reading_count(store) == 2 * 96
+
+
+def test_writer_pausing_in_real_time(store, inbox):
+    """The same with a real writer thread pausing past a short settle time."""
+    import threading
+
+    rows = day_rows(meter="W2")
+    text = "meter,start,kwh,kvarh_lag,kvarh_lead\n" + "\n".join(rows) + "\n"
+    cut = text.index("\n", len(text) // 3) + 7
+    path = inbox / "thread.csv"
+    paused, finish = threading.Event(), threading.Event()
+
+    def writer():
+        with open(path, "w") as fh:
+            fh.write(text[:cut])
+            fh.flush()
+            paused.set()
+            finish.wait(10)
+            fh.write(text[cut:])
+
+    t = threading.Thread(target=writer)
+    t.start()
+    paused.wait(5)
+    time.sleep(0.6)
+    res = run_inbox(store, inbox, ImportOptions(), settle_seconds=0.3)
+    assert res["files"] == [] and reading_count(store) == 0
+    finish.set()
+    t.join()
+    time.sleep(0.6)
+    res = run_inbox(store, inbox, ImportOptions(), settle_seconds=0.3)
+    assert res["files"][0]["status"] == "imported" and reading_count(store) == 96
+
+
+def test_unclosed_xml_waits_then_is_rejected_after_the_limit(store, inbox):
+    from tests.espi_helpers import feed
+
+    path = inbox / "feed.xml"
+    path.write_text(feed([(72, 1, 0, [1200, 1300])]).replace("</feed>\n", ""))
+    paused = time.time() - 60
+    os.utime(path, (paused, paused))
+    res = run_inbox(store, inbox, ImportOptions())
+    assert res["files"] == []
+    assert "root <feed> is not closed" in res["skipped"][0]["reason"]
+    res = run_inbox(store, inbox, ImportOptions(), incomplete_seconds=30)  # past the limit: cut off
+    f = res["files"][0]
+    assert f["status"] == "rejected" and "cut off" in f["message"]
+    assert (inbox / "rejected" / "feed.xml.error.txt").exists() and reading_count(store) == 0
+
+
+def test_a_file_that_changes_during_its_import_is_rolled_back(store, tmp_path):
+    from auditor.ingest.pipeline import import_file
+
+    p = write_csv(tmp_path / "a.csv", day_rows())
+    st = p.stat()
+    out = import_file(store, p, ImportOptions(), expect=(st.st_size - 1, st.st_mtime_ns))
+    assert out.status == "changed" and reading_count(store) == 0
+    assert import_file(store, p, ImportOptions(), expect=(st.st_size, st.st_mtime_ns)).status == "imported"
+
+
+def test_completeness_by_format(tmp_path):
+    from auditor.services.inbox import incomplete_reason
+
+    cases = {"a.csv": (b"meter,start\nM1,2025", "no line break"), "b.csv": (b"meter,start\nM1,x\r\n", None),
+             "c.xml": (b'<?xml version="1.0"?>\n<!-- c --><ns:feed a="1"><x/></ns:feed>\n', None),
+             "d.xml": (b"<feed><entry>", "not closed"), "e.csv": (b"", "empty"), "f.bin": (b"\x00\x01", None)}
+    for name, (data, want) in cases.items():
+        (tmp_path / name).write_bytes(data)
+        got = incomplete_reason(tmp_path / name)
+        assert (got is None) if want is None else (want in got), (name, got)

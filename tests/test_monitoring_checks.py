@@ -238,6 +238,18 @@ def test_stopped_meter_is_dated_to_its_last_interval(planted_panel):
     assert data_stopped(planted_panel, CheckSettings(stale_hours=200)).findings == []
 
 
+def test_an_archive_is_not_a_stopped_meter():
+    """Data that ended more than ``watch_days`` before the check is an archive being imported
+    (a consultant's year of exports), not a meter that stopped: not judged, so neither raised
+    nor resolved; within the window the same silence is an alert."""
+    later = AS_OF + pd.Timedelta(days=45)
+    panel = panel_of(planted_frames(), later)
+    ev = data_stopped(panel)
+    assert ev.findings == [] and not ev.evaluated.any()
+    ev = data_stopped(panel, CheckSettings(watch_days=60))
+    assert sorted(f.meter for f in ev.findings) == ["AR-01", "KQ-DOCKS", "KQ-MAIN"]
+
+
 def test_every_check_on_the_planted_case(planted_panel):
     found = {(f.meter, f.kind) for e in run_checks(planted_panel, [plan_of()] * 3) for f in e.findings}
     assert ("KQ-MAIN", "correction_loss") in found and ("KQ-DOCKS", "data_stopped") in found

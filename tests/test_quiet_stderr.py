@@ -95,8 +95,6 @@ def test_normal_commands_write_nothing_to_stderr(tmp_path):
     _check(run_all(normal_commands(tmp_path), tmp_path))
 
 
-@pytest.mark.xfail(strict=True, reason="the ESPI reader's 'All-NaN slice' RuntimeWarning (numpy) is "
-                                       "silenced at its source by the ingest work; remove this mark then")
 def test_a_month_of_espi_imports_quietly(tmp_path):
     rng = np.random.default_rng(7)
     n = 96 * 31

@@ -77,7 +77,7 @@ def upload():
     outcome["message"] = page_message(outcome.get("message") or "", str(path), name)
     for item in outcome.get("errors", []) + outcome.get("warnings", []):
         item["message"] = page_message(item["message"], str(path), name)
-    if outcome["status"] == "rejected":
+    if outcome["status"] in ("rejected", "older"):  # an older export changed nothing: not a success
         return _page(_form(), 422, outcome=outcome)
     flash(f"{name}: {outcome['status']} — {outcome['message']}", "ok")
     return redirect(url_for("data.index"))

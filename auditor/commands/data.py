@@ -24,14 +24,20 @@ def _progress_wanted(ctx: Context) -> bool:
 @click.option("--estimate-gaps", is_flag=True, help="Fill missing intervals; filled values are flagged.")
 @click.option("--strict", is_flag=True, help="Reject files with spikes or duplicate rows instead of flagging them.")
 @click.option("--dry-run", is_flag=True, help="Read and validate only; write nothing.")
+@click.option("--force", is_flag=True,
+              help="Apply a file older than the stored data, and values later imports had replaced.")
+@click.option("--move", is_flag=True, help="With --site: move meters already on another site to it.")
+@click.option("--max-kw", type=float, metavar="KW",
+              help="Plausible maximum average power of the file's meters (kept for later imports; "
+                   "default 2,000,000 kW).")
 @click.option("--inbox", type=click.Path(file_okay=False, path_type=Path), metavar="DIR",
               help="Process every file in DIR, moving each to DIR/done or DIR/rejected.")
 @click.option("--wait", "wait_seconds", type=click.FloatRange(0, 86400), default=0, show_default=True,
               help="With --inbox: seconds to wait for another run's lock before giving up.")
 @json_option
 @pass_ctx
-def import_cmd(ctx: Context, paths, site, tz, profile, estimate_gaps, strict, dry_run, inbox, wait_seconds,
-               json_out):
+def import_cmd(ctx: Context, paths, site, tz, profile, estimate_gaps, strict, dry_run, force, move, max_kw,
+               inbox, wait_seconds, json_out):
     """Import meter exports (plain CSV, day-per-row CSV, or any CSV through --profile)."""
     from auditor.services.ingest import ImportOptions
 
@@ -40,7 +46,8 @@ def import_cmd(ctx: Context, paths, site, tz, profile, estimate_gaps, strict, dr
     if inbox is None and not paths:
         raise click.UsageError("give at least one file to import (or --inbox DIR)")
     options = ImportOptions(site=site, timezone=tz, profile_path=str(profile) if profile else None,
-                            estimate_gaps=estimate_gaps, strict=strict, dry_run=dry_run)
+                            estimate_gaps=estimate_gaps, strict=strict, dry_run=dry_run, force=force, move=move,
+                            max_kw=max_kw)
     if inbox is not None:
         from auditor.services.inbox import run_inbox
 
@@ -58,7 +65,7 @@ def import_cmd(ctx: Context, paths, site, tz, profile, estimate_gaps, strict, dr
                     skipped = f"{skipped.get('path', '')} ({skipped.get('reason', '')})"
                 ctx.say(f"skipped   {skipped}")
             _print_checks(ctx, checks)
-        return 1 if any(f["status"] == "rejected" for f in files) else 0
+        return 1 if any(f["status"] in ("rejected", "older") for f in files) else 0
     from auditor.services.ingest import import_files
 
     store = ctx.store
@@ -81,7 +88,7 @@ def import_cmd(ctx: Context, paths, site, tz, profile, estimate_gaps, strict, dr
     else:
         _print_outcomes(ctx, files)
         _print_checks(ctx, checks)
-    return 1 if any(o.status == "rejected" for o in outcomes) else 0
+    return 1 if any(o.status in ("rejected", "older") for o in outcomes) else 0
 
 
 def _checks_after(ctx: Context, files: list[dict], options) -> dict | None:
@@ -105,7 +112,7 @@ def _print_outcomes(ctx: Context, files: list[dict], message: str | None = None)
     if message:
         ctx.say(message)
     for f in files:
-        rejected = f["status"] == "rejected"
+        rejected = f["status"] in ("rejected", "older")  # an older file changed nothing: said like a rejection
         line = f"{f['status']:<9} {f['path']}"
         if f.get("rows"):
             line += f"  ({f['rows']:,} rows"

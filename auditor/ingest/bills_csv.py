@@ -16,7 +16,10 @@ account and invoice numbers as printed (text, kept as written: leading zeros and
 at most 64 characters, no control characters). An unknown or repeated column, a bad date or
 number, an end not after the start, or two rows for the same meter and period are errors
 naming the file, line and column; all problems of a file are collected (the first 50) before
-anything is stored. Whether the meter exists is checked where the store is known
+anything is stored. So is a period longer than ``MAX_BILL_DAYS`` (400 days: an annual bill with
+some slack) or with a date outside ``EARLIEST_BILL`` (1990-01-01) to 400 days after today — a
+stray or mistyped date, such as 0001-01-01 to 9999-12-31 — and a number or date written with
+digits other than ASCII 0-9 (full-width digits pasted from elsewhere). Whether the meter exists is checked where the store is known
 (:mod:`auditor.services.bills`: an unknown meter is an error there).
 
 Bill profiles (TOML; every key checked, unknown keys are errors naming them)
@@ -67,6 +70,9 @@ UNITS = {
     "reactive_charge": {"currency": 1.0, "cents": 1e-2},
     "total": {"currency": 1.0, "cents": 1e-2},
 }
+# Plausible bill periods (module docstring)
+MAX_BILL_DAYS = 400
+EARLIEST_BILL = date(1990, 1, 1)
 _TOP = ("name", "description", "file", "meter", "period", "fields")
 _FILE = ("delimiter", "decimal", "thousands", "encoding", "header_line")
 _METER = ("column", "id")
@@ -162,9 +168,12 @@ def load_bill_profile(path: str | Path) -> BillProfile:
         raise ProfileError("file.thousands", f"must be one character other than the decimal mark, not {thousands!r}", file)
     encoding = _text(f, "file", "encoding", file, default="utf-8")
     try:
-        codecs.lookup(encoding)
+        codec = codecs.lookup(encoding)
     except LookupError:
         raise ProfileError("file.encoding", f"unknown encoding {encoding!r}", file) from None
+    if not getattr(codec, "_is_text_encoding", True):
+        raise ProfileError("file.encoding", f"{encoding!r} is not a text encoding; use a character set such as "
+                                            "utf-8, cp1252 or latin-1", file)
     header_line = f.get("header_line", 1)
     if isinstance(header_line, bool) or not isinstance(header_line, int) or header_line < 1:
         raise ProfileError("file.header_line", f"must be a whole number of at least 1, not {header_line!r}", file)
@@ -221,6 +230,8 @@ def load_bill_profile(path: str | Path) -> BillProfile:
 # --------------------------------------------------------------------------------------------
 def parse_date(text: str, fmt: str = "iso") -> date:
     text = text.strip()
+    if not text.isascii():
+        raise ValueError("digits other than ASCII")
     if fmt == "iso":
         return date.fromisoformat(text) if len(text) == 10 else _bad_date()
     return datetime.strptime(text, fmt).date()
@@ -232,6 +243,8 @@ def _bad_date():
 
 def parse_number(text: str, decimal: str = ".", thousands: str | None = None) -> float:
     t = text.strip().replace("\u00a0", "").replace(" ", "")
+    if not t.isascii():
+        raise ValueError("digits other than ASCII")  # float() would read full-width digits
     if thousands:
         t = t.replace(thousands, "")
     if decimal == ",":
@@ -276,6 +289,16 @@ def _row_record(cells: dict[str, str], line: int, profile: BillProfile, file: st
         shown = "last day" if profile.end_inclusive else "end"
         problems.append(Problem(f"period {shown} {cells.get(profile.end_column, '').strip()} is not after its start "
                                 f"{dates['start'].isoformat()}", line, profile.end_column))
+    elif len(dates) == 2:
+        latest = date.today() + timedelta(days=MAX_BILL_DAYS)
+        for role, col in (("start", profile.start_column), ("end", profile.end_column)):
+            if not EARLIEST_BILL <= dates[role] <= latest:
+                problems.append(Problem(f"period {role} {dates[role].isoformat()} is outside the plausible range "
+                                        f"{EARLIEST_BILL.isoformat()} to {latest.isoformat()}", line, col))
+        days = (dates["end"] - dates["start"]).days
+        if days > MAX_BILL_DAYS:
+            problems.append(Problem(f"a bill period of {days:,} days; a bill covers at most {MAX_BILL_DAYS} days",
+                                    line, profile.end_column))
     values: dict[str, float | None] = {}
     for name, col in profile.columns.items():
         text = cells.get(col)
@@ -359,8 +382,9 @@ def read_bills(path: str | Path, profile: BillProfile | None = None) -> BillsRea
     enc = "utf-8-sig" if p.encoding.lower().replace("_", "-") in ("utf-8", "utf8") else p.encoding
     try:
         text = raw.decode(enc)
-    except UnicodeDecodeError as exc:
-        raise InputError(file, Problem(f"not {p.encoding} text (byte {exc.start})")) from None
+    except UnicodeError as exc:
+        where = f" (byte {exc.start})" if isinstance(exc, UnicodeDecodeError) else f" ({exc})"
+        raise InputError(file, Problem(f"not {p.encoding} text{where}", None, "file.encoding")) from None
     lines = text.splitlines()
     if len(lines) < p.header_line or not lines[p.header_line - 1].strip():
         raise InputError(file, Problem("no header row", p.header_line))

@@ -14,6 +14,13 @@ CANONICAL_COLUMNS = ("meter", "start", "kwh", "kvarh_lag", "kvarh_lead", "kwh_re
 ALLOWED_INTERVALS = (5, 15, 30, 60)
 MAX_PROBLEMS = 50
 
+# Plausible timestamps (README, "What is checked"): a screen for stray or mistyped dates. Interval
+# data from before 1990 is rare enough that such a date is far more often a typing or export
+# error than a reading (common practice); a reading cannot start later than a day after its
+# import (a day of slack for clocks and time zones).
+EARLIEST = "1990-01-01"
+AHEAD_SECONDS = 86_400
+
 
 @dataclass
 class ReadInfo:
@@ -39,6 +46,65 @@ class ReadOptions:
     timezone: str | None = None
     profile: object | None = None  # auditor.ingest.profile.Profile
     chunk_rows: int = 250_000
+    # plausible interval starts, UTC epoch seconds (lowest, highest), as the pipeline passes
+    # them (plausible_window()); None: only the years a reader can place in time (READABLE)
+    window: tuple[int, int] | None = None
+
+    def time_window(self) -> tuple[int, int]:
+        return self.window if self.window is not None else READABLE
+
+
+# The years any reader can place in time (local time zones, pandas' calendar), for readers used
+# without a plausibility window.
+READABLE = (int(np.datetime64("1900-01-01", "s").astype("int64")), int(np.datetime64("2200-01-01", "s").astype("int64")))
+
+
+def plausible_window(earliest: str = EARLIEST, now: float | None = None) -> tuple[int, int]:
+    """The (lowest, highest) plausible interval start in UTC epoch seconds: ``earliest`` at
+    midnight UTC up to one day after ``now`` (default: the moment of the import)."""
+    import time
+
+    lo = int(np.datetime64(earliest, "s").astype("int64"))
+    return lo, int(time.time() if now is None else now) + AHEAD_SECONDS
+
+
+def fmt_epoch(epoch) -> str:
+    """An epoch second as ``YYYY-MM-DD HH:MM UTC`` for messages; never fails, whatever the year."""
+    try:
+        value = float(epoch)
+        if not np.isfinite(value) or abs(value) > 9e15:
+            return f"{value:g} (epoch seconds)"
+        text = str(np.datetime64(int(value), "s"))
+        day, _, clock = text.partition("T")
+        return f"{day} {clock[:5]} UTC"
+    except (TypeError, ValueError, OverflowError):
+        return f"{epoch!r} (epoch seconds)"
+
+
+def window_text(window: tuple[int, int]) -> str:
+    return f"{fmt_epoch(window[0])[:10]} to {fmt_epoch(window[1])[:16]} UTC"
+
+
+def check_window(epochs: np.ndarray, lines: np.ndarray, column: str, file: str,
+                 window: tuple[int, int], margin: int = 0, shown=None) -> None:
+    """Reject interval starts outside the plausible window (README, "What is checked").
+
+    ``epochs`` may be float (a reader's raw numbers) or int64; ``margin`` widens the window on
+    both sides (wall times checked before localising are up to 14 hours off UTC); ``shown``
+    gives the cell text to quote instead of the time.
+    """
+    lo, hi = window[0] - margin, window[1] + margin
+    e = np.asarray(epochs)
+    with np.errstate(invalid="ignore"):
+        bad = ~((e >= lo) & (e <= hi))
+    if not bad.any():
+        return
+    problems = []
+    for i in np.flatnonzero(bad)[:MAX_PROBLEMS]:
+        what = repr(str(shown[i])[:40]) if shown is not None else fmt_epoch(e[i])
+        problems.append(Problem(f"timestamp {what} is outside the plausible range {window_text(window)} "
+                                "(a stray or mistyped date)", int(lines[i]), column))
+    raise InputError(file, problems)
 
 
 def canonical(meter, start, kwh, kvarh_lag, kvarh_lead, kwh_received=None, estimated=None, line=None) -> pd.DataFrame:

@@ -1,15 +1,27 @@
-"""File → reader → canonical frame → validation → one transaction.
+"""File → reader → canonical chunks → rows by meter → validation → one transaction.
 
-``import_file`` is the only way readings enter the database. A file is imported whole or not
-at all: readers and validation run before anything is written; the write itself is one
-transaction, rolled back on any error (a crash mid-write leaves the database as it was, which
-SQLite's journal and PostgreSQL guarantee). A rejected file leaves only its import-batch record
-(status ``rejected`` with the errors), written in a transaction of its own.
+``import_file`` is the only way readings enter the database. It streams the file: the reader
+yields chunks, each chunk's rows are grouped by meter into a :class:`MeterPartition` (compact
+numpy records in memory up to ``ImportOptions.memory_rows``, spilled to a temporary file past
+that), and then, meter by meter, the rows are validated as a whole and written, all in one
+transaction. Peak memory is therefore bounded by the partition's budget plus one meter's rows,
+whatever the size of the file, and every validation rule (gaps, duplicates, the grid, spikes)
+sees all of a meter's rows wherever the reader's chunks began and ended.
+
+A file is imported whole or not at all: the write is one transaction, rolled back on any error,
+an invalid meter included (a crash mid-write leaves the database as it was, which SQLite's
+journal and PostgreSQL guarantee). A rejected file leaves only its import-batch record (status
+``rejected`` with the errors), written in a transaction of its own.
+
+Revisions are decided by content and age (``store/write.py``): a file whose rows were all
+stored before is ``unchanged`` whatever its bytes; a file older than the file that wrote values
+it would change is ``older`` and changes nothing unless ``force``.
 """
 from __future__ import annotations
 
 import hashlib
 import json
+import tempfile
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -19,17 +31,22 @@ import pandas as pd
 from sqlalchemy import delete, select
 from sqlalchemy.exc import IntegrityError, SQLAlchemyError
 
-from auditor.errors import AuditorError, InputError, Problem, StoreError
+from auditor.errors import AuditorError, InputError, Problem, StoreError, UsageError
 from auditor.ingest import readers
-from auditor.ingest.frame import ReadOptions
-from auditor.ingest.validate import Validated, validate
+from auditor.ingest.frame import ReadOptions, plausible_window
+from auditor.ingest.validate import DEFAULT_MAX_KW, MeterRows, check_meter_ids, validate_meter
 from auditor.store import Store
 from auditor.store.models import QUANTITIES, Channel, ImportBatch, Meter, QualityFlag, Site
 from auditor.store.queries import now_utc
-from auditor.store.write import WriteCounts, write_meter
+from auditor.store.write import WriteCounts, import_session, write_meter
 
 DEFAULT_SITE = "default"
 STORE_ATTEMPTS = 3
+# Rows of a file held in memory before the partition spills to a temporary file: 49 bytes a row,
+# so about 75 MB (the 200 meter-year benchmark then peaks well under 400 MB).
+MEMORY_ROWS = 1_500_000
+# The largest --max-kw accepted: 100 GW is beyond any single metering point.
+MAX_KW_CEILING = 1e8
 
 
 @dataclass(frozen=True)
@@ -41,12 +58,17 @@ class ImportOptions:
     strict: bool = False
     dry_run: bool = False
     chunk_rows: int = 250_000
+    force: bool = False  # apply superseded values and files older than the stored data
+    move: bool = False  # move a known meter to ``site`` instead of warning
+    max_kw: float | None = None  # the meters' plausible maximum average power, kept on the meter
+    memory_rows: int = MEMORY_ROWS
+    window: tuple[int, int] | None = None  # plausible interval starts; None: frame.plausible_window()
 
 
 @dataclass
 class FileOutcome:
     path: str
-    status: str  # imported | unchanged | revised | rejected
+    status: str  # imported | unchanged | revised | older | rejected (changed: see import_file)
     rows: int = 0
     format: str | None = None
     batch_id: int | None = None
@@ -54,18 +76,34 @@ class FileOutcome:
     inserted: int = 0
     revised: int = 0
     unchanged_rows: int = 0
+    superseded: int = 0  # intervals whose incoming values later imports had replaced: kept
+    older: int = 0  # intervals an older file would have changed: nothing stored
     errors: list[Problem] = field(default_factory=list)
     warnings: list[Problem] = field(default_factory=list)
     message: str = ""
+    detail: str = ""  # for a bug report (an inbox run's error file); not in as_dict
 
     def as_dict(self) -> dict:
         return {
             "path": self.path, "status": self.status, "rows": self.rows, "format": self.format,
             "batch_id": self.batch_id, "meters": self.meters, "inserted": self.inserted,
             "revised": self.revised, "unchanged_rows": self.unchanged_rows,
+            "superseded": self.superseded, "older": self.older,
             "errors": [p.as_dict() for p in self.errors],
             "warnings": [p.as_dict() for p in self.warnings], "message": self.message,
         }
+
+
+class _Changed(Exception):
+    """The file changed while it was being imported (a writer still at work): rolled back."""
+
+
+class _Older(Exception):
+    """Raised inside the write transaction to roll an older file back."""
+
+    def __init__(self, counts: WriteCounts):
+        super().__init__("older")
+        self.counts = counts
 
 
 def sha256_of(path: Path) -> str:
@@ -76,52 +114,194 @@ def sha256_of(path: Path) -> str:
     return h.hexdigest()
 
 
-def _read_all(path: Path, options: ImportOptions, progress: Callable[[int], None] | None):
-    ropts = ReadOptions(timezone=options.timezone, chunk_rows=options.chunk_rows)
-    if options.profile_path:
-        from auditor.ingest.profile import load_profile
+# --------------------------------------------------------------------------------------------
+# Rows grouped by meter
+# --------------------------------------------------------------------------------------------
+COLUMNS = (("start", np.dtype("<i8")), ("kwh", np.dtype("<f8")), ("kvarh_lag", np.dtype("<f8")),
+           ("kvarh_lead", np.dtype("<f8")), ("kwh_received", np.dtype("<f8")), ("estimated", np.dtype("?")),
+           ("line", np.dtype("<i8")))
+ROW_BYTES = sum(d.itemsize for _, d in COLUMNS)  # 49
+
+
+class MeterPartition:
+    """A file's canonical rows grouped by meter, in arrival order within each meter.
+
+    Each meter's rows are kept as contiguous column arrays (49 bytes a row); when more than
+    ``memory_rows`` are held, every meter's rows so far are appended to one temporary file, column
+    after column, and memory is freed. :meth:`take` returns all of a meter's rows (from the file,
+    then memory) and forgets them.
+    """
+
+    def __init__(self, memory_rows: int = MEMORY_ROWS):
+        self.memory_rows = max(int(memory_rows), 1)
+        self.names: dict[str, int] = {}
+        self.first_line: list[int] = []
+        self.rows: list[int] = []
+        self._mem: list[list[dict[str, np.ndarray]]] = []
+        self._held = 0
+        self._spill = None
+        self._spilled: list[list[tuple[int, int]]] = []  # per meter: (byte offset, rows)
+        self._spill_at = 0
+        self.total = 0
+
+    def add(self, chunk: pd.DataFrame) -> None:
+        if not len(chunk):
+            return
+        local, uniq = pd.factorize(chunk["meter"].to_numpy(dtype=object))
+        lines = chunk["line"].to_numpy()
+        new = [i for i, u in enumerate(uniq) if u not in self.names]
+        first_rows = np.zeros(len(uniq), dtype=np.int64)
+        if new:
+            # the line where each new meter first appears, for located messages about its id
+            order = np.argsort(local, kind="stable")
+            first_rows = order[np.searchsorted(local[order], np.arange(len(uniq)))]
+            check_meter_ids([uniq[i] for i in new], lines[first_rows[new]], "")
+        codes = np.empty(len(uniq), dtype=np.int64)
+        for i, u in enumerate(uniq):
+            code = self.names.get(u)
+            if code is None:
+                code = self.names.setdefault(u, len(self.names))
+                self._mem.append([])
+                self._spilled.append([])
+                self.first_line.append(int(lines[first_rows[i]]))
+                self.rows.append(0)
+            codes[i] = code
+        code = codes[local]
+        cols = {name: chunk[name].to_numpy(dtype=dtype) for name, dtype in COLUMNS}
+        if len(uniq) > 1 and not (code[1:] >= code[:-1]).all():
+            order = np.argsort(code, kind="stable")
+            code = code[order]
+            cols = {name: v[order] for name, v in cols.items()}
+        edges = np.r_[0, np.flatnonzero(np.diff(code)) + 1, len(code)]
+        for lo, hi in zip(edges[:-1].tolist(), edges[1:].tolist(), strict=True):
+            c = int(code[lo])
+            self._mem[c].append({name: v[lo:hi].copy() for name, v in cols.items()})
+            self.rows[c] += hi - lo
+        self._held += len(code)
+        self.total += len(code)
+        if self._held > self.memory_rows:
+            self._spill_all()
+
+    def _spill_all(self) -> None:
+        if self._spill is None:
+            self._spill = tempfile.TemporaryFile(prefix="auditor-import-")
+        self._spill.seek(self._spill_at)
+        for c, parts in enumerate(self._mem):
+            if not parts:
+                continue
+            n = sum(len(p["start"]) for p in parts)
+            for name, _ in COLUMNS:
+                block = np.concatenate([p[name] for p in parts]) if len(parts) > 1 else parts[0][name]
+                block.tofile(self._spill)
+            self._spilled[c].append((self._spill_at, n))
+            self._spill_at += n * ROW_BYTES
+            self._mem[c] = []
+        self._held = 0
+
+    def meters(self) -> list[str]:
+        return list(self.names)
+
+    def take(self, meter: str) -> dict[str, np.ndarray]:
+        c = self.names[meter]
+        parts: list[dict[str, np.ndarray]] = []
+        for at, n in self._spilled[c]:
+            self._spill.seek(at)
+            parts.append({name: np.fromfile(self._spill, dtype=dtype, count=n) for name, dtype in COLUMNS})
+        parts += self._mem[c]
+        self._held -= sum(len(p["start"]) for p in self._mem[c])
+        self._mem[c] = []
+        self._spilled[c] = []
+        if len(parts) == 1:
+            return parts[0]
+        if not parts:
+            return {name: np.empty(0, dtype=dtype) for name, dtype in COLUMNS}
+        return {name: np.concatenate([p[name] for p in parts]) for name, _ in COLUMNS}
+
+    def close(self) -> None:
+        if self._spill is not None:
+            self._spill.close()
+            self._spill = None
+
+
+# --------------------------------------------------------------------------------------------
+# Reading
+# --------------------------------------------------------------------------------------------
+def _reader_for(path: Path, options: ImportOptions, window: tuple[int, int], profile=None):
+    ropts = ReadOptions(timezone=options.timezone, chunk_rows=options.chunk_rows, window=window, profile=profile)
+    if profile is not None:
         from auditor.ingest.readers import profile_csv
 
-        ropts = ReadOptions(timezone=options.timezone, chunk_rows=options.chunk_rows,
-                            profile=load_profile(options.profile_path))
-        reader = profile_csv
-    else:
-        reader = readers.detect(path)
+        return profile_csv, ropts
+    return readers.detect(path), ropts
+
+
+def _read(path: Path, options: ImportOptions, window: tuple[int, int],
+          progress: Callable[[int], None] | None, profile=None) -> tuple[object, object, MeterPartition]:
+    reader, ropts = _reader_for(path, options, window, profile)
     output = reader.read(path, ropts)
-    # Meter ids become small integer codes at once, so a large file costs ~50 bytes a row.
-    names: dict[str, int] = {}
-    parts = []
-    for chunk in output.chunks:
-        inv, uniq = pd.factorize(chunk["meter"].to_numpy(dtype=object))
-        local = np.array([names.setdefault(u, len(names)) for u in uniq], dtype=np.int32)
-        chunk = chunk.drop(columns="meter")
-        chunk["meter"] = local[inv]
-        parts.append(chunk)
-        if progress:
-            progress(len(chunk))
-    if not parts:
+    part = MeterPartition(options.memory_rows)
+    try:
+        for chunk in output.chunks:
+            try:
+                part.add(chunk)
+            except InputError as exc:  # the meter-id check names no file
+                raise InputError(str(path), exc.problems) from None
+            if progress:
+                progress(len(chunk))
+    except BaseException:
+        part.close()
+        raise
+    if not part.total:
+        part.close()
         raise InputError(str(path), Problem("no data rows after the header"))
-    df = pd.concat(parts, ignore_index=True) if len(parts) > 1 else parts[0]
-    cats = np.array(list(names), dtype=object)
-    df["meter"] = pd.Categorical.from_codes(df["meter"].to_numpy(), categories=cats)
-    return reader, output.info, df
+    return reader, output.info, part
 
 
+def _validated(part: MeterPartition, meter: str, file: str, info, options: ImportOptions,
+               window: tuple[int, int], stored_interval: int | None, max_kw: float | None
+               ) -> tuple[MeterRows, list[Problem]]:
+    rec = part.take(meter)
+    values = {q: rec[q] for q in QUANTITIES}
+    return validate_meter(meter, rec["start"], values, rec["estimated"], rec["line"], file,
+                          interval_minutes=info.interval_minutes, label=info.label,
+                          stored_interval=stored_interval, strict=options.strict,
+                          estimate_gaps=options.estimate_gaps, window=window, max_kw=max_kw)
+
+
+# --------------------------------------------------------------------------------------------
+# The import
+# --------------------------------------------------------------------------------------------
 def import_file(store: Store, path: str | Path, options: ImportOptions = ImportOptions(),
-                progress: Callable[[int], None] | None = None) -> FileOutcome:
-    """Import one file; never raises for a bad file (the outcome says ``rejected``)."""
+                progress: Callable[[int], None] | None = None, *,
+                expect: tuple[int, int] | None = None) -> FileOutcome:
+    """Import one file; never raises for a bad file (the outcome says ``rejected``).
+
+    ``expect`` (size, mtime in ns), when given, is checked before anything is read and again
+    before the transaction commits: a file that changed meanwhile is rolled back and the
+    outcome says ``changed`` (the inbox leaves such a file for its next run).
+    """
     path = Path(path)
     outcome = FileOutcome(str(path), "rejected")
     started = now_utc()
+    window = options.window or plausible_window()
+    _check_options(options)  # a bad option is the caller's error (exit 2), not the file's
     try:
         if not path.is_file():
             raise InputError(str(path), Problem("no such file" if not path.exists() else "not a regular file"))
+        profile = None
+        if options.profile_path:
+            from auditor.ingest.profile import load_profile
+
+            profile = load_profile(options.profile_path)  # a bad profile is reported even for a known file
+        mtime = path.stat().st_mtime
+        guard = _guard(path, expect)
+        guard()
         digest = sha256_of(path)
         with store.session() as s:
             prior = s.scalar(select(ImportBatch).where(
                 ImportBatch.sha256 == digest, ImportBatch.status.in_(("imported", "revised", "unchanged"))
             ).order_by(ImportBatch.id))
-        if prior is not None:
+        if prior is not None and not options.force:
             outcome.status = "unchanged"
             outcome.format = prior.format
             outcome.rows = prior.rows_accepted
@@ -129,34 +309,33 @@ def import_file(store: Store, path: str | Path, options: ImportOptions = ImportO
             if not options.dry_run:
                 _record(store, path, digest, prior.format, outcome, started)
             return outcome
-        reader, info, df = _read_all(path, options, progress)
-        outcome.format = reader.FORMAT
-        outcome.rows = len(df)
-        outcome.warnings.extend(info.warnings)
-        with store.session() as s:
-            known = dict(s.execute(select(Meter.external_id, Meter.interval_minutes).where(
-                Meter.external_id.in_(list(map(str, df["meter"].cat.categories))))).all())
-        checked = validate(df, str(path), interval_minutes=info.interval_minutes, label=info.label,
-                           stored_intervals=known, strict=options.strict, estimate_gaps=options.estimate_gaps)
-        del df
-        outcome.warnings.extend(checked.warnings)
-        outcome.meters = [m.meter for m in checked.meters]
-        if options.dry_run:
-            outcome.status = "imported"
-            outcome.message = "dry run: the file is valid; nothing was written"
-            outcome.inserted = sum(len(m.start) for m in checked.meters)
-            return outcome
         for attempt in range(STORE_ATTEMPTS):
+            reader, info, part = _read(path, options, window, progress, profile)
             try:
-                _store(store, path, digest, reader.FORMAT, info, checked, options, outcome, started)
-                break
+                outcome.format = reader.FORMAT
+                outcome.rows = part.total
+                outcome.warnings = list(info.warnings)
+                outcome.meters = part.meters()
+                if options.dry_run:
+                    _dry_run(store, path, info, part, options, window, outcome)
+                    return outcome
+                _store(store, path, digest, mtime, info, part, options, window, outcome, started, guard)
+                return outcome
             except IntegrityError:
                 # another import committed the same new site, meter or intervals while this one
                 # ran (PostgreSQL lets imports run side by side); its transaction rolled back
-                # whole, and the next attempt sees what the other one stored
+                # whole, and the next attempt reads the file again and sees what the other stored
                 if attempt == STORE_ATTEMPTS - 1:
                     raise
+            finally:
+                part.close()
         return outcome
+    except _Changed:
+        outcome.status = "changed"
+        outcome.message = "the file changed while it was read (still being written?); nothing was stored"
+        return outcome
+    except _Older as older:
+        _older_outcome(outcome, older.counts)
     except AuditorError as exc:
         outcome.status = "rejected"
         outcome.errors = list(exc.problems) if isinstance(exc, InputError) else [Problem(exc.message)]
@@ -177,6 +356,60 @@ def import_file(store: Store, path: str | Path, options: ImportOptions = ImportO
     return outcome
 
 
+def _guard(path: Path, expect: tuple[int, int] | None) -> Callable[[], None]:
+    def check() -> None:
+        if expect is None:
+            return
+        try:
+            st = path.stat()
+        except OSError:
+            raise _Changed() from None
+        if (st.st_size, st.st_mtime_ns) != tuple(expect):
+            raise _Changed()
+    return check
+
+
+def _check_options(options: ImportOptions) -> None:
+    if options.max_kw is not None and not 0 < options.max_kw <= MAX_KW_CEILING:
+        raise UsageError(f"--max-kw must be above 0 and at most {MAX_KW_CEILING:,.0f} kW, not {options.max_kw:g}")
+    if options.move and not options.site:
+        raise UsageError("--move needs --site NAME (the site to move the file's meters to)")
+
+
+def _older_outcome(outcome: FileOutcome, counts: WriteCounts) -> None:
+    batches = ", ".join(str(b) for b in sorted(counts.newer_batches)[:5])
+    outcome.status = "older"
+    outcome.older = counts.older
+    outcome.inserted = outcome.revised = 0
+    outcome.message = (f"older than the stored data: the file was modified before the file(s) of import batch "
+                       f"{batches}, whose values it would change in {counts.older} interval(s); nothing was "
+                       "changed (import it with --force to apply it anyway)")
+    outcome.errors = [Problem(outcome.message)]
+
+
+def _dry_run(store, path, info, part, options, window, outcome) -> None:
+    known = _known_meters(store, part.meters())
+    for meter in part.meters():
+        m = known.get(meter)
+        _, warnings = _validated(part, meter, str(path), info, options, window,
+                                 m[0] if m else None, options.max_kw or (m[1] if m else None))
+        outcome.warnings.extend(warnings)
+        outcome.inserted += part.rows[part.names[meter]]
+    outcome.warnings = outcome.warnings[:200]
+    outcome.status = "imported"
+    outcome.message = "dry run: the file is valid; nothing was written"
+
+
+def _known_meters(store: Store, names: list[str]) -> dict[str, tuple[int | None, float | None]]:
+    out = {}
+    with store.session() as s:
+        for lo in range(0, len(names), 500):
+            out.update({e: (i, k) for e, i, k in s.execute(
+                select(Meter.external_id, Meter.interval_minutes, Meter.max_kw).where(
+                    Meter.external_id.in_(names[lo:lo + 500]))).all()})
+    return out
+
+
 def _db_message(exc: SQLAlchemyError) -> str:
     text = str(exc.orig) if getattr(exc, "orig", None) is not None else str(exc)
     low = text.lower()
@@ -193,10 +426,11 @@ def _record(store: Store, path: Path, digest: str | None, fmt: str, outcome: Fil
     try:
         with store.session() as s:
             batch = ImportBatch(
-                file_name=str(path), sha256=digest or "", format=fmt, rows_accepted=0 if outcome.status == "rejected" else outcome.rows,
-                rows_rejected=outcome.rows if outcome.status == "rejected" else 0, started_at=started,
+                file_name=str(path)[:500], sha256=digest or "", format=fmt,
+                rows_accepted=0 if outcome.status in ("rejected", "older") else outcome.rows,
+                rows_rejected=outcome.rows if outcome.status in ("rejected", "older") else 0, started_at=started,
                 finished_at=now_utc(), status=outcome.status,
-                errors=json.dumps([p.as_dict() for p in outcome.errors]) if outcome.errors else None,
+                errors=json.dumps([p.as_dict() for p in outcome.errors[:50]]) if outcome.errors else None,
             )
             s.add(batch)
             s.flush()
@@ -205,34 +439,43 @@ def _record(store: Store, path: Path, digest: str | None, fmt: str, outcome: Fil
         raise StoreError(f"cannot record the import of {path}: {exc}") from exc
 
 
-def _store(store: Store, path: Path, digest: str, fmt: str, info, checked: Validated, options: ImportOptions,
-           outcome: FileOutcome, started) -> None:
+def _store(store: Store, path: Path, digest: str, mtime: float, info, part: MeterPartition,
+           options: ImportOptions, window: tuple[int, int], outcome: FileOutcome, started,
+           guard: Callable[[], None]) -> None:
     counts = WriteCounts()
-    with store.session() as s:
-        batch = ImportBatch(file_name=str(path), sha256=digest, format=fmt, started_at=started,
-                            status="importing", rows_accepted=0, rows_rejected=0)
+    older: WriteCounts | None = None
+    warnings: list[Problem] = []
+    with import_session(store) as s:
+        batch = ImportBatch(file_name=str(path)[:500], sha256=digest, format=info.format, started_at=started,
+                            status="importing", rows_accepted=0, rows_rejected=0, source_mtime=mtime)
         s.add(batch)
         s.flush()
-        site_cache: dict[str, Site] = {}
+        sites = _Sites(s, options, warnings)
         conn = s.connection()
-        for rows in checked.meters:
-            meter = _meter_for(s, rows.meter, rows.interval_minutes, options, site_cache)
+        for name in part.meters():
+            meter = s.scalar(select(Meter).where(Meter.external_id == name))
+            if meter is not None and options.max_kw is not None:
+                meter.max_kw = options.max_kw
+            max_kw = meter.max_kw if meter is not None else options.max_kw
+            rows, found = _validated(part, name, str(path), info, options, window,
+                                     meter.interval_minutes if meter is not None else None, max_kw)
+            warnings.extend(found)
+            meter = sites.meter(meter, name, rows.interval_minutes)
+            if older is not None:
+                # an older file is rolled back; the other meters are only counted
+                older.add(write_meter(conn, meter.id, rows.start, rows.values, rows.flags, batch.id,
+                                      source_mtime=mtime, apply=False))
+                continue
             _channels(s, meter, info, batch.id)
-            c = write_meter(conn, meter.id, rows.start, rows.values, rows.flags, batch.id)
-            counts.inserted += c.inserted
-            counts.revised += c.revised
-            counts.unchanged += c.unchanged
-            step = rows.interval_minutes * 60
-            if c.revised or c.unchanged:
-                # findings about intervals this file now covers are superseded by its own
-                s.execute(delete(QualityFlag).where(
-                    QualityFlag.meter_id == meter.id, QualityFlag.start >= int(rows.start[0]),
-                    QualityFlag.end <= int(rows.start[-1]) + step))
-            if rows.findings:
-                s.execute(QualityFlag.__table__.insert(), [
-                    {"meter_id": meter.id, "batch_id": batch.id, "kind": f.kind, "start": f.start,
-                     "end": f.end, "intervals": f.intervals, "detail": f.detail[:500]}
-                    for f in rows.findings])
+            c = write_meter(conn, meter.id, rows.start, rows.values, rows.flags, batch.id,
+                            source_mtime=mtime, force=options.force)
+            if c.older:
+                older = c
+                continue
+            counts.add(c)
+            _flags(s, meter, rows, c, batch.id)
+        if older is not None:
+            raise _Older(older)
         if counts.inserted == 0 and counts.revised == 0:
             status = "unchanged"
             outcome.message = "every interval was already stored with the same values; nothing changed"
@@ -243,32 +486,91 @@ def _store(store: Store, path: Path, digest: str, fmt: str, info, checked: Valid
         else:
             status = "imported"
             outcome.message = f"{counts.inserted} interval(s) stored"
+        if counts.superseded:
+            note = (f"{counts.superseded} interval(s) carry values that later imports replaced; the newer stored "
+                    "values are kept (--force applies the file's)")
+            if status == "unchanged":
+                outcome.message = ("every row of the file was imported before; " + note + "; nothing changed")
+            else:
+                warnings.append(Problem(note))
         batch.status = status
         batch.rows_accepted = outcome.rows
         batch.rows_revised = counts.revised
         batch.finished_at = now_utc()
         outcome.batch_id = batch.id
+        guard()  # the file as read is the file as it is now: else roll back
     outcome.status = status
+    outcome.warnings = (outcome.warnings + warnings)[:200]
     outcome.inserted, outcome.revised, outcome.unchanged_rows = counts.inserted, counts.revised, counts.unchanged
+    outcome.superseded = counts.superseded
 
 
-def _meter_for(s, external_id: str, interval_minutes: int, options: ImportOptions, cache) -> Meter:
-    meter = s.scalar(select(Meter).where(Meter.external_id == external_id))
-    if meter is None:
-        site_name = options.site or DEFAULT_SITE
-        site = cache.get(site_name) or s.scalar(select(Site).where(Site.name == site_name))
+def _flags(s, meter: Meter, rows: MeterRows, c: WriteCounts, batch_id: int) -> None:
+    step = rows.interval_minutes * 60
+    if c.revised or c.unchanged or c.superseded:
+        # findings about intervals this file now covers are superseded by its own
+        s.execute(delete(QualityFlag).where(
+            QualityFlag.meter_id == meter.id, QualityFlag.start >= int(rows.start[0]),
+            QualityFlag.end <= int(rows.start[-1]) + step))
+    if rows.findings:
+        s.execute(QualityFlag.__table__.insert(), [
+            {"meter_id": meter.id, "batch_id": batch_id, "kind": f.kind, "start": f.start,
+             "end": f.end, "intervals": f.intervals, "detail": f.detail[:500]}
+            for f in rows.findings])
+
+
+class _Sites:
+    """Sites and meters of one import: new meters go to ``--site`` (or the default site); a known
+    meter named with another ``--site`` is warned about, or moved with ``--move``."""
+
+    def __init__(self, s, options: ImportOptions, warnings: list[Problem]):
+        self.s = s
+        self.options = options
+        self.warnings = warnings
+        self.cache: dict[str, Site] = {}
+
+    def site(self, name: str) -> Site:
+        site = self.cache.get(name) or self.s.scalar(select(Site).where(Site.name == name))
         if site is None:
-            site = Site(name=site_name, timezone=options.timezone or "UTC", created_at=now_utc())
-            s.add(site)
+            tz = self.options.timezone or "UTC"
+            site = Site(name=name, timezone=tz, created_at=now_utc())
+            self.s.add(site)
+            self.s.flush()
+            if self.options.timezone is None:
+                self.warnings.append(Problem(
+                    f"new site {name!r} is billed in UTC, assumed because no --timezone was given: billing "
+                    "periods then begin at midnight UTC. Set the site's zone with auditor sites set "
+                    f"{_quoted(name)} --timezone ZONE (e.g. Europe/Berlin), or import with --timezone ZONE"))
+        self.cache[name] = site
+        return site
+
+    def meter(self, meter: Meter | None, name: str, interval_minutes: int) -> Meter:
+        s, options = self.s, self.options
+        if meter is None:
+            site = self.site(options.site or DEFAULT_SITE)
+            meter = Meter(site_id=site.id, external_id=name, multiplier=1.0, interval_minutes=interval_minutes,
+                          created_at=now_utc(), max_kw=options.max_kw)
+            s.add(meter)
             s.flush()
-        cache[site_name] = site
-        meter = Meter(site_id=site.id, external_id=external_id, multiplier=1.0,
-                      interval_minutes=interval_minutes, created_at=now_utc())
-        s.add(meter)
-        s.flush()
-    elif meter.interval_minutes is None:
-        meter.interval_minutes = interval_minutes
-    return meter
+            return meter
+        if meter.interval_minutes is None:
+            meter.interval_minutes = interval_minutes
+        if options.site and meter.site.name != options.site:
+            if options.move:
+                old = meter.site.name
+                meter.site_id = self.site(options.site).id
+                s.flush()
+                s.refresh(meter)
+                self.warnings.append(Problem(f"meter {name} moved from site {old!r} to {options.site!r} (--move)"))
+            else:
+                self.warnings.append(Problem(
+                    f"meter {name} is on site {meter.site.name!r}, not {options.site!r}: its readings were stored "
+                    f"there; add --move to move it to {options.site!r}"))
+        return meter
+
+
+def _quoted(name: str) -> str:
+    return name if name.replace("-", "").replace("_", "").isalnum() else json.dumps(name)
 
 
 def _channels(s, meter: Meter, info, batch_id: int) -> None:
@@ -277,3 +579,7 @@ def _channels(s, meter: Meter, info, batch_id: int) -> None:
         if q in QUANTITIES and q not in have:
             s.add(Channel(meter_id=meter.id, quantity=q, source_unit=info.source_units.get(q, "kWh"),
                           first_batch_id=batch_id))
+
+
+__all__ = ["DEFAULT_MAX_KW", "DEFAULT_SITE", "FileOutcome", "ImportOptions", "MeterPartition", "import_file",
+           "sha256_of"]

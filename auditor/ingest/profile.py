@@ -14,7 +14,9 @@ Top level
     ``delimiter`` one character, default ``","`` (``"\\t"`` for tab);
     ``decimal`` ``"."`` (default) or ``","``;
     ``thousands`` one character grouping digits (e.g. ``"."`` with decimal commas), default none;
-    ``encoding`` a Python codec name, default ``"utf-8"`` (a byte-order mark is skipped);
+    ``encoding`` a Python text codec, default ``"utf-8"`` (a byte-order mark is skipped);
+    codecs that are not text (rot13, zlib, hex, base64) are refused; ``utf-16`` and ``utf-32``
+    need a byte-order mark at the start of the file (else name the byte order: ``utf-16-le``);
     ``header_line`` 1-based line of the header row, default 1; lines above it are skipped;
     ``0`` means the file has no header and every column is given by position;
     ``skip_after_header`` lines between the header and the first data row (e.g. a units row),
@@ -22,7 +24,8 @@ Top level
 ``[meter]`` (required table)
     exactly one of ``column`` (header name, or 1-based position as an integer) and ``id``
     (a fixed meter id for single-meter files); ``multiplier`` the CT × VT ratio applied to every
-    quantity, a number > 0, default 1.
+    quantity, a number from 1e-6 to 1e8, default 1 (the largest transmission metering has a CT ×
+    VT ratio in the order of 1e7, e.g. 4000/1 A × 400 kV/100 V; from memory).
 ``[time]`` (required table)
     ``column`` one timestamp column, or ``date_column`` and ``time_column`` (joined with one
     space before parsing); ``format`` ``"iso"`` (ISO 8601, default) or a strptime pattern such
@@ -68,6 +71,9 @@ QUANTITY_UNITS = {"kwh": ACTIVE_UNITS, "kwh_received": ACTIVE_UNITS, "kwh_net": 
 # A signed channel stands for the pair it splits into; neither may be mapped beside it.
 NET_SPLITS = {"kwh_net": ("kwh", "kwh_received"), "kvarh_net": ("kvarh_lag", "kvarh_lead")}
 OFFSET = "offset"
+# The range of a multiplier (meter CT × VT, or a channel's own factor such as a pulse weight).
+MIN_MULTIPLIER = 1e-6
+MAX_MULTIPLIER = 1e8
 
 _TOP_KEYS = ("name", "description", "file", "meter", "time", "quantities", "estimated")
 _FILE_KEYS = ("delimiter", "decimal", "thousands", "encoding", "header_line", "skip_after_header")
@@ -165,11 +171,15 @@ class _Checker:
         return value
 
     def positive(self, name: str, default: float = 1.0) -> float:
+        """A multiplier: a number from MIN_MULTIPLIER to MAX_MULTIPLIER."""
         if name not in self.table:
             return default
         value = self.table[name]
         if isinstance(value, bool) or not isinstance(value, int | float) or not value > 0 or value == float("inf"):
             raise self.error(name, f"must be a number > 0, not {value!r}")
+        if not MIN_MULTIPLIER <= value <= MAX_MULTIPLIER:
+            raise self.error(name, f"{value:g} is outside the plausible range of a multiplier "
+                                   f"({MIN_MULTIPLIER:g} to {MAX_MULTIPLIER:g})")
         return float(value)
 
     def boolean(self, name: str, default: bool = False) -> bool:
@@ -254,9 +264,13 @@ def profile_from_dict(data: dict, file: str | None = None, default_name: str = "
                                    f"{decimal!r} nor the delimiter {delimiter!r}; not {thousands!r}")
     encoding = f.text("encoding", "utf-8")
     try:
-        encoding = codecs.lookup(encoding).name
+        info = codecs.lookup(encoding)
     except LookupError:
         raise f.error("encoding", f"unknown text encoding {encoding!r} (e.g. utf-8, cp1252, latin-1)") from None
+    if not getattr(info, "_is_text_encoding", True):
+        raise f.error("encoding", f"{encoding!r} is not a text encoding (it transforms bytes or text); use a "
+                                  "character set such as utf-8, cp1252 or latin-1")
+    encoding = info.name
     header_line = f.integer("header_line", 1, minimum=0)
     skip_after_header = f.integer("skip_after_header", 0, minimum=0)
     positional = header_line == 0

@@ -63,6 +63,7 @@ class CheckSettings:
     """Thresholds of the checks (this program's defaults; see DEVELOPERS.md, "Monitoring")."""
 
     stale_hours: float = 36.0  # a nightly file missed once, plus a few hours of slack
+    watch_days: float = 30.0  # data older than this is an archive being imported, not a meter that stopped
     recent_days: int = 7  # "recent days" against ...
     baseline_days: int = 28  # ... "the four weeks before"
     min_baseline_days: int = 14
@@ -221,13 +222,16 @@ def data_stopped(panel: Panel, settings: CheckSettings | None = None) -> Evaluat
     """No interval newer than ``stale_hours`` before ``as_of``.
 
     ``since`` is the end of the last interval received. Meters that never had data are not
-    judged.
+    judged, nor are meters whose data ended more than ``watch_days`` before ``as_of``: that is an
+    archive being imported (a consultant's year of exports), not a meter that stopped last night.
+    An alert raised while a meter was watched is not resolved by the meter's leaving the window
+    (it is not judged then), so a silence that lasts stays one open alert.
     """
     s = settings or CheckSettings()
     as_of = int(panel.as_of.timestamp())
-    known = panel.last_start >= 0
     end = panel.last_start + panel.interval_minutes * 60
     hours = (as_of - end) / 3600.0
+    known = (panel.last_start >= 0) & (hours <= 24.0 * s.watch_days)
     fire = known & (hours >= s.stale_hours)
     out = []
     for m in np.flatnonzero(fire):

@@ -51,7 +51,7 @@ class Site(Base):
     nominal_voltage_v: Mapped[float | None] = mapped_column(Float)
     transformer_kva: Mapped[float | None] = mapped_column(Float)
     transformer_impedance_percent: Mapped[float | None] = mapped_column(Float)
-    # correction settings (migration 0005): screening settings over the defaults (JSON), the
+    # correction settings (migration 0004): screening settings over the defaults (JSON), the
     # measured harmonic spectrum as read (JSON), the share of the load on six-pulse drives
     screening_settings: Mapped[str | None] = mapped_column(Text)
     harmonic_spectrum: Mapped[str | None] = mapped_column(Text)
@@ -71,6 +71,8 @@ class Meter(Base):
     multiplier: Mapped[float] = mapped_column(Float, default=1.0)
     interval_minutes: Mapped[int | None] = mapped_column(SmallInteger)
     created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
+    # the plausible maximum average power of an interval, kW (None: the import's default bound)
+    max_kw: Mapped[float | None] = mapped_column(Float)
     site: Mapped[Site] = relationship(back_populates="meters")
     channels: Mapped[list[Channel]] = relationship(back_populates="meter")
 
@@ -99,9 +101,12 @@ class ImportBatch(Base):
     rows_revised: Mapped[int] = mapped_column(Integer, default=0)
     started_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
     finished_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True))
-    # imported | unchanged | revised | rejected
+    # imported | unchanged | revised | older | rejected
     status: Mapped[str] = mapped_column(String(16))
     errors: Mapped[str | None] = mapped_column(Text)  # JSON list of {line, column, message}
+    # the file's modification time (epoch seconds): a file clearly older than the one that wrote
+    # a stored value does not revise it without --force (store/write.py)
+    source_mtime: Mapped[float | None] = mapped_column(Float)
 
 
 class Reading(Base):
@@ -165,7 +170,7 @@ class Scenario(Base):
     npv: Mapped[float | None] = mapped_column(Float)
     simple_payback_years: Mapped[float | None] = mapped_column(Float)
     created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))
-    # the case document's cover (migration 0007); empty when not given
+    # the case document's cover (migration 0006); empty when not given
     client: Mapped[str | None] = mapped_column(String(200))
     project: Mapped[str | None] = mapped_column(String(200))
     author: Mapped[str | None] = mapped_column(String(200))

@@ -4,23 +4,41 @@ Volume path: rows go through the DBAPI driver's ``executemany`` with plain tuple
 binary ``COPY`` built by numpy (PostgreSQL), never one ORM object per interval. Everything happens inside the caller's
 transaction, so a file is wholly stored or not at all.
 
-Revisions: an incoming interval that is already stored with the same values is left alone; one
-stored with different values is a revision: the stored row is copied to ``reading_revision``
-(with the batch that superseded it) and replaced by the newer value.
+Revisions are decided by content, interval by interval (README, "Re-imports and revisions"):
+
+* an incoming interval already stored with the same values (and flags) is left alone;
+* one whose incoming values were stored before and later replaced (they are in
+  ``reading_revision``) is *superseded*: the file replays old content, as a re-saved copy of an
+  old export does, and the stored newer values stay (``force`` applies it anyway);
+* one stored with other values is a revision: the stored row is copied to ``reading_revision``
+  (with the batch that superseded it) and replaced by the newer value — unless the file is
+  *older* than the file that wrote the stored value: its modification time is earlier by more
+  than ``OLDER_SLACK_S``. Then nothing of the meter is written and the counts say how many
+  intervals the file would change; the caller rolls the file back (``force`` applies it).
+
+The import pipeline uses only :func:`import_session` (the file's one transaction) and
+:func:`write_meter` (one meter's sorted rows as numpy arrays, returning :class:`WriteCounts`):
+a different storage layout for ``reading`` changes this module, not the pipeline.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from collections.abc import Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 from sqlalchemy import Connection
 from sqlalchemy.exc import DBAPIError
+from sqlalchemy.orm import Session
 
 from auditor.store.models import QUANTITIES
 
 READING_COLUMNS = ("meter_id", "start", *QUANTITIES, "flags", "batch_id")
 BATCH_ROWS = 100_000
+# Files whose modification times are this close are taken as written at the same time (a
+# checkout, an unpacked archive or a copy without preserved times): neither is older.
+OLDER_SLACK_S = 60.0
 
 
 @dataclass
@@ -28,6 +46,43 @@ class WriteCounts:
     inserted: int = 0
     revised: int = 0
     unchanged: int = 0
+    superseded: int = 0  # incoming values a later import already replaced: kept as stored
+    older: int = 0  # intervals an older file would change (nothing written for them)
+    newer_batches: set[int] = field(default_factory=set)  # the batches that wrote those values
+
+    def add(self, other: WriteCounts) -> None:
+        self.inserted += other.inserted
+        self.revised += other.revised
+        self.unchanged += other.unchanged
+        self.superseded += other.superseded
+        self.older += other.older
+        self.newer_batches |= other.newer_batches
+
+
+@contextmanager
+def import_session(store) -> Iterator[Session]:
+    """A session in one transaction for one file's import: committed whole or rolled back.
+
+    On SQLite the connection's foreign-key enforcement is off while the session lasts (it can
+    only change outside a transaction): every row the import writes refers to a meter, site or
+    batch that the same transaction selected or created while holding SQLite's write lock, so
+    the per-row lookup of the parent key, a sixth of the bulk insert's time, can find nothing
+    wrong. Enforcement is back on before the connection returns to the pool; every other writer
+    keeps it. PostgreSQL checks the keys as always.
+    """
+    with store.engine.connect() as conn:
+        raw = conn.connection.driver_connection if conn.dialect.name == "sqlite" else None
+        if raw is not None:
+            raw.execute("PRAGMA foreign_keys=OFF")
+        try:
+            with Session(bind=conn, expire_on_commit=False) as s, s.begin():
+                yield s
+        finally:
+            if raw is not None:
+                try:
+                    raw.execute("PRAGMA foreign_keys=ON")
+                except conn.dialect.loaded_dbapi.Error:
+                    conn.invalidate()  # never back to the pool without enforcement
 
 
 def _ph(conn: Connection, n: int) -> str:
@@ -158,41 +213,64 @@ def _copy_rows(conn, meter_id, start, values, flags, batch_id) -> int:
     return len(start)
 
 
+_EMPTY = pd.DataFrame(columns=["start", *QUANTITIES, "flags", "batch_id"])
+
+
 def existing_rows(conn: Connection, meter_id: int, first: int, last: int) -> pd.DataFrame:
     sql = (f"SELECT start, {', '.join(QUANTITIES)}, flags, batch_id FROM reading "
            f"WHERE meter_id = {_ph(conn, 1)} AND start >= {_ph(conn, 1)} AND start <= {_ph(conn, 1)} ORDER BY start")
     cur = conn.exec_driver_sql(sql, (meter_id, int(first), int(last)))
     rows = cur.fetchall()
+    if not rows:
+        return _EMPTY
     return pd.DataFrame(rows, columns=["start", *QUANTITIES, "flags", "batch_id"]).astype(
         {"start": "int64", **{q: "float64" for q in QUANTITIES}})
 
 
 def write_meter(conn: Connection, meter_id: int, start: np.ndarray, values: dict[str, np.ndarray],
-                flags: np.ndarray, batch_id: int) -> WriteCounts:
-    """Insert new intervals, revise changed ones, leave identical ones; returns the counts."""
+                flags: np.ndarray, batch_id: int, *, source_mtime: float | None = None, force: bool = False,
+                apply: bool = True) -> WriteCounts:
+    """Insert new intervals, revise changed ones, leave identical ones; returns the counts.
+
+    ``start`` is sorted. ``source_mtime`` is the file's modification time (recorded on its batch
+    by the caller); with ``force`` superseded and older values are applied too. When the counts
+    say ``older``, nothing was written for this meter. ``apply=False`` only counts.
+    """
     counts = WriteCounts()
     if not len(start):
         return counts
     old = existing_rows(conn, meter_id, int(start[0]), int(start[-1]))
     if old.empty:
-        counts.inserted = insert_rows(conn, meter_id, start, values, flags, batch_id)
+        counts.inserted = insert_rows(conn, meter_id, start, values, flags, batch_id) if apply else len(start)
         return counts
-    pos = np.searchsorted(start, old["start"].to_numpy())
+    old_start = old["start"].to_numpy()
+    pos = np.searchsorted(start, old_start)
     pos_ok = (pos < len(start))
-    pos_ok[pos_ok] = start[pos[pos_ok]] == old["start"].to_numpy()[pos_ok]
+    pos_ok[pos_ok] = start[pos[pos_ok]] == old_start[pos_ok]
     old = old.loc[pos_ok]
     pos = pos[pos_ok]
     is_old = np.zeros(len(start), bool)
     is_old[pos] = True
-    same = np.ones(len(pos), bool)
-    for q in QUANTITIES:
-        a = old[q].to_numpy()
-        b = values[q][pos]
-        same &= np.isclose(a, b, rtol=1e-12, atol=1e-9, equal_nan=True)
-    same &= old["flags"].to_numpy() == flags[pos]
+    same = _same_rows({q: old[q].to_numpy() for q in QUANTITIES}, old["flags"].to_numpy(),
+                      {q: values[q][pos] for q in QUANTITIES}, flags[pos])
     changed = ~same
     counts.unchanged = int(same.sum())
+    if changed.any() and not force:
+        replayed = _superseded(conn, meter_id, start, values, flags, pos[changed])
+        counts.superseded = int(replayed.sum())
+        keep = np.flatnonzero(changed)[replayed]
+        changed[keep] = False
+        if changed.any() and source_mtime is not None:
+            newer = _newer_batches(conn, old["batch_id"].to_numpy()[changed], source_mtime)
+            if newer:
+                counts.older = int(np.isin(old["batch_id"].to_numpy()[changed], list(newer)).sum())
+                counts.newer_batches = newer
+                return counts
     new_idx = np.flatnonzero(~is_old)
+    counts.revised = int(changed.sum())
+    if not apply:
+        counts.inserted = len(new_idx)
+        return counts
     counts.inserted = insert_rows(conn, meter_id, start[new_idx], {q: v[new_idx] for q, v in values.items()},
                                   flags[new_idx], batch_id)
     if changed.any():
@@ -211,5 +289,44 @@ def write_meter(conn: Connection, meter_id: int, start: np.ndarray, values: dict
         sets = ", ".join(f"{c} = {_ph(conn, 1)}" for c in (*QUANTITIES, "flags", "batch_id"))
         conn.exec_driver_sql(
             f"UPDATE reading SET {sets} WHERE meter_id = {_ph(conn, 1)} AND start = {_ph(conn, 1)}", upd)
-        counts.revised = int(changed.sum())
     return counts
+
+
+def _same_rows(a: dict[str, np.ndarray], a_flags: np.ndarray, b: dict[str, np.ndarray],
+               b_flags: np.ndarray) -> np.ndarray:
+    same = a_flags == b_flags
+    for q in QUANTITIES:
+        same &= np.isclose(a[q].astype("float64"), b[q], rtol=1e-12, atol=1e-9, equal_nan=True)
+    return same
+
+
+def _superseded(conn: Connection, meter_id: int, start: np.ndarray, values: dict[str, np.ndarray],
+                flags: np.ndarray, idx: np.ndarray) -> np.ndarray:
+    """For the incoming rows ``idx`` (which differ from the stored ones): True where the incoming
+    values and flags equal a value stored before and since replaced (in ``reading_revision``)."""
+    out = np.zeros(len(idx), bool)
+    sql = (f"SELECT start, {', '.join(QUANTITIES)}, flags FROM reading_revision WHERE meter_id = {_ph(conn, 1)} "
+           f"AND start >= {_ph(conn, 1)} AND start <= {_ph(conn, 1)}")
+    rows = conn.exec_driver_sql(sql, (meter_id, int(start[idx[0]]), int(start[idx[-1]]))).fetchall()
+    if not rows:
+        return out
+    rev = pd.DataFrame(rows, columns=["start", *QUANTITIES, "flags"]).astype(
+        {"start": "int64", **{q: "float64" for q in QUANTITIES}})
+    where = np.searchsorted(start[idx], rev["start"].to_numpy())
+    ok = where < len(idx)
+    ok[ok] = start[idx][where[ok]] == rev["start"].to_numpy()[ok]
+    at = idx[where[ok]]
+    match = _same_rows({q: rev[q].to_numpy()[ok] for q in QUANTITIES}, rev["flags"].to_numpy()[ok],
+                       {q: values[q][at] for q in QUANTITIES}, flags[at])
+    out[np.isin(idx, at[match])] = True
+    return out
+
+
+def _newer_batches(conn: Connection, batch_ids: np.ndarray, source_mtime: float) -> set[int]:
+    """The batches among ``batch_ids`` whose file was modified clearly after ``source_mtime``."""
+    ids = sorted({int(b) for b in np.unique(batch_ids)})
+    if not ids:
+        return set()
+    sql = f"SELECT id, source_mtime FROM import_batch WHERE id IN ({_ph(conn, len(ids))})"
+    return {int(i) for i, m in conn.exec_driver_sql(sql, tuple(ids)).fetchall()
+            if m is not None and source_mtime < float(m) - OLDER_SLACK_S}

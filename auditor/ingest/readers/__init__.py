@@ -30,12 +30,18 @@ def _register() -> None:
 
 
 HEAD_BYTES = 16_384
+# A first line longer than the head is read whole (up to this) so that detection sees the whole
+# header: a header of millions of columns is then rejected by its reader naming the first unknown
+# column, instead of passing as an unrecognised layout.
+MAX_FIRST_LINE = 64 << 20
 
 
 def read_head(path: Path) -> str:
     try:
         with open(path, "rb") as fh:
             raw = fh.read(HEAD_BYTES)
+            if len(raw) == HEAD_BYTES and b"\n" not in raw and b"\r" not in raw:
+                raw += fh.readline(MAX_FIRST_LINE)
     except OSError as exc:
         raise InputError(str(path), Problem(f"cannot read the file: {exc.strerror}")) from None
     if not raw.strip():

@@ -56,6 +56,7 @@ from auditor.ingest.frame import (
     ReadOptions,
     ReadOutput,
     canonical,
+    check_window,
 )
 
 FORMAT = "espi_xml"
@@ -190,6 +191,10 @@ def _parse(path: Path, file: str) -> list[_Entry]:
         raise InputError(file, Problem(f"malformed XML: {msg}", line, f"char {col + 1}" if col is not None else None)) from None
     except OSError as exc:
         raise InputError(file, Problem(f"cannot read the file: {exc.strerror}")) from None
+    except (LookupError, ValueError) as exc:
+        # expat asks Python for the codec the XML declaration names: an unknown one ends here
+        raise InputError(file, Problem(f"the XML declares an encoding Python cannot read ({exc}); usage feeds "
+                                       "are UTF-8", target.parser.CurrentLineNumber or 1, "encoding")) from None
 
 
 def _int_field(entry: _Entry, name: str, file: str, default: int | None = None) -> int | None:
@@ -232,6 +237,9 @@ def _channel(rt: _Entry, file: str, warnings: list[Problem]) -> _Channel | None:
         raise InputError(file, Problem(
             f"ReadingType flowDirection {flow} for uom {uom} cannot be mapped (known: {allowed})",
             rt.line, "ReadingType/flowDirection"))
+    if length is not None and not 0 < length <= 86_400:
+        raise InputError(file, Problem(f"ReadingType intervalLength {length} s: it must be 300, 900, 1800 or 3600 s",
+                                       rt.line, "ReadingType/intervalLength"))
     if not -12 <= power <= 12:
         raise InputError(file, Problem(f"powerOfTenMultiplier {power} is out of range",
                                        rt.line, "ReadingType/powerOfTenMultiplier"))
@@ -272,11 +280,12 @@ def read(path: Path, options: ReadOptions) -> ReadOutput:
     file = str(path)
     entries = _parse(path, file)
     info = ReadInfo(format=FORMAT)
-    return ReadOutput(info, _chunks(entries, info, file, path.stem))
+    return ReadOutput(info, _chunks(entries, info, file, path.stem, options.time_window()))
 
 
-def _chunks(entries: list[_Entry], info: ReadInfo, file: str, stem: str) -> Iterator[pd.DataFrame]:
-    yield _frame(entries, info, file, stem)
+def _chunks(entries: list[_Entry], info: ReadInfo, file: str, stem: str,
+            window: tuple[int, int]) -> Iterator[pd.DataFrame]:
+    yield _frame(entries, info, file, stem, window)
 
 
 def _numbers(raw: list[str], lines: np.ndarray, column: str, file: str, integer: bool) -> np.ndarray:
@@ -297,7 +306,7 @@ def _scale(values: np.ndarray, power: int) -> np.ndarray:
     return values * 10.0 ** power if power >= 0 else values / 10.0 ** -power
 
 
-def _frame(entries: list[_Entry], info: ReadInfo, file: str, stem: str) -> pd.DataFrame:
+def _frame(entries: list[_Entry], info: ReadInfo, file: str, stem: str, window: tuple[int, int]) -> pd.DataFrame:
     usage_points = [e for e in entries if e.kind == "UsagePoint"]
     meter_readings = [e for e in entries if e.kind == "MeterReading"]
     rt_by_href = {h: e for e in entries if e.kind == "ReadingType" for h in e.href("self")}
@@ -317,6 +326,7 @@ def _frame(entries: list[_Entry], info: ReadInfo, file: str, stem: str) -> pd.Da
             continue
         lines = np.asarray(block.lines, dtype="int64")
         start = _numbers(block.starts, lines, "timePeriod/start", file, True)
+        check_window(start, lines, "timePeriod/start", file, window)  # before the cast to int64
         duration = (_numbers(block.durations, lines, "timePeriod/duration", file, True)
                     if any(block.durations) else np.full(len(lines), np.nan))
         value = _numbers(block.values, lines, "value", file, False)
@@ -325,6 +335,11 @@ def _frame(entries: list[_Entry], info: ReadInfo, file: str, stem: str) -> pd.Da
             raise InputError(file, Problem("IntervalReading has no timePeriod duration and its ReadingType no "
                                            "intervalLength", int(lines[i0]), "timePeriod/duration"))
         duration = np.where(np.isnan(duration), ch.interval_s or 0, duration)
+        odd = np.flatnonzero(~((duration > 0) & (duration <= 86_400)))
+        if len(odd):
+            raise InputError(file, [Problem(f"timePeriod duration {duration[i]:g} s: it must be 300, 900, 1800 or "
+                                            "3600 s", int(lines[i]), "timePeriod/duration")
+                                    for i in odd[:MAX_PROBLEMS]])
         parts.append(pd.DataFrame({
             "meter": _meter_of(block, usage_points, stem), "quantity": ch.quantity,
             "start": start.astype("int64"), "duration": duration.astype("int64"),

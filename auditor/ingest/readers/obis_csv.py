@@ -62,15 +62,17 @@ def parse_code(cell: str) -> tuple[int, int, str | None] | None:
     return int(o.group("c")), int(o.group("d")), (m.group("unit") or None)
 
 
-def _header(head: str) -> list[str]:
-    first = head.lstrip("\ufeff").splitlines()[0] if head.strip() else ""
-    return [c.strip() for c in first.split(",")]
+def _header(head: str, limit: int = -1) -> list[str]:
+    first = head.lstrip("\ufeff").split("\n", 1)[0].rstrip("\r") if head.strip() else ""
+    cols = first.split(",", limit)
+    return [c.strip() for c in (cols[:limit] if limit >= 0 else cols)]
 
 
 def sniff(path: Path, head: str) -> bool:
-    cols = _header(head)
+    cols = _header(head, 256)
     low = [c.lower() for c in cols]
     has_time = "start" in low or "end" in low
+    # an OBIS load profile has a handful of columns: look at the first few only
     return has_time and any(c.lower() not in DEVICE_ID_CODES and parse_code(c) for c in cols)
 
 

@@ -21,7 +21,7 @@ from auditor.ingest.frame import (
     canonical,
     numeric_column,
 )
-from auditor.ingest.timestamps import parse_iso
+from auditor.ingest.timestamps import WallClock, parse_iso
 
 FORMAT = "plain_csv"
 REQUIRED = ("meter", "kwh", "kvarh_lag", "kvarh_lead")
@@ -29,38 +29,50 @@ OPTIONAL = ("kwh_received", "flag")
 TIME_COLUMNS = ("start", "end")
 
 
-def header_of(head: str) -> list[str]:
-    first = head.lstrip("\ufeff").splitlines()[0] if head.strip() else ""
-    return [c.strip().lower() for c in first.split(",")]
+# Detection looks at this many columns: the plain CSV has at most seven.
+SNIFF_COLUMNS = 64
+
+
+def header_of(head: str, limit: int = -1) -> list[str]:
+    """The header's column names, lower case and stripped (the first ``limit + 1`` when given)."""
+    first = head.lstrip("\ufeff").split("\n", 1)[0].rstrip("\r") if head.strip() else ""
+    cols = first.lower().split(",", limit)
+    if limit >= 0:
+        cols = cols[:limit]
+    return [c.strip() for c in cols] if any(c != c.strip() for c in cols) else cols
 
 
 def sniff(path: Path, head: str) -> bool:
-    cols = header_of(head)
+    cols = header_of(head, SNIFF_COLUMNS)
     return "meter" in cols and "kwh" in cols and ("start" in cols or "end" in cols)
 
 
 def check_header(cols: list[str], file: str) -> str:
     problems = []
     seen = set()
+    known = set(REQUIRED) | set(OPTIONAL) | set(TIME_COLUMNS)
+    unknown = 0
     for c in cols:
-        if c in seen:
+        if c in seen and len(problems) < MAX_PROBLEMS:
             problems.append(Problem(f"column {c!r} appears twice", 1, c))
         seen.add(c)
-    known = set(REQUIRED) | set(OPTIONAL) | set(TIME_COLUMNS)
-    for c in cols:
         if c not in known:
-            problems.append(Problem(
-                f"unknown column {c!r}; the plain CSV has meter, start (or end), kwh, kvarh_lag, "
-                "kvarh_lead and optionally kwh_received, flag (use --profile for other layouts)", 1, c))
+            unknown += 1
+            if unknown == 1:
+                problems.insert(0, Problem(
+                    f"unknown column {c[:80]!r}; the plain CSV has meter, start (or end), kwh, kvarh_lag, "
+                    "kvarh_lead and optionally kwh_received, flag (use --profile for other layouts)", 1, c[:80]))
+    if unknown > 1:
+        problems.insert(1, Problem(f"{unknown - 1:,} more unknown column(s) after it ({len(cols):,} columns in all)", 1))
     for c in REQUIRED:
-        if c not in cols:
+        if c not in seen:
             problems.append(Problem(f"missing column {c!r}", 1, c))
-    if "start" in cols and "end" in cols:
+    if "start" in seen and "end" in seen:
         problems.append(Problem("give either 'start' or 'end', not both", 1, "end"))
-    elif "start" not in cols and "end" not in cols:
+    elif "start" not in seen and "end" not in seen:
         problems.append(Problem("missing column 'start' (or 'end' for interval-ending labels)", 1, "start"))
     if problems:
-        raise InputError(file, problems)
+        raise InputError(file, problems[:MAX_PROBLEMS])
     return "start" if "start" in cols else "end"
 
 
@@ -85,6 +97,8 @@ def _chunks(path: Path, cols: list[str], time_col: str, options: ReadOptions, fi
     # index_col=False: a longer row later in the file is a parser error naming its line (pandas
     # would otherwise take surplus leading fields as an index).
     first_line = 2
+    window = options.time_window()
+    clock = WallClock(options.timezone, file, window)
     try:
         # inside the try: pandas reads the first block when the reader is made
         reader = pd.read_csv(
@@ -95,23 +109,34 @@ def _chunks(path: Path, cols: list[str], time_col: str, options: ReadOptions, fi
         for chunk in reader:
             lines = np.arange(first_line, first_line + len(chunk))
             first_line += len(chunk)
-            blank = chunk.isna().all(axis=1).to_numpy()
+            # a blank line is a row of NaN: look at the meter column first, the rest only there
+            blank = chunk["meter"].isna().to_numpy().copy()
+            if blank.any():
+                blank[blank] = chunk.loc[blank].isna().all(axis=1).to_numpy()
             if blank.any():
                 chunk = chunk.loc[~blank]
                 lines = lines[~blank]
             if not len(chunk):
                 continue
-            yield _canonical(chunk, lines, time_col, options, file)
+            yield _canonical(chunk, lines, time_col, options, file, clock, window)
+        clock.finish()
     except pd.errors.ParserError as exc:
         raise InputError(file, Problem(_parser_message(exc))) from None
     except UnicodeDecodeError:
         raise InputError(file, undecodable(path)) from None
 
 
+# A header longer than this is no meter export (the widest layout has a few hundred columns).
+MAX_HEADER_BYTES = 64 << 20
+
+
 def read_header_line(path: Path, file: str) -> str:
     """The first line as text; bytes that are not UTF-8 there are an error naming line 1."""
     with open(path, "rb") as fh:
-        raw = fh.readline()
+        raw = fh.readline(MAX_HEADER_BYTES + 1)
+    if len(raw) > MAX_HEADER_BYTES:
+        raise InputError(file, Problem(f"the header line is longer than {MAX_HEADER_BYTES >> 20} MiB: not a meter "
+                                       "export", 1))
     try:
         return raw.decode("utf-8-sig")
     except UnicodeDecodeError:
@@ -135,14 +160,19 @@ def _check_first_row(path: Path, cols: list[str], file: str) -> None:
     import csv
 
     with open(path, encoding="utf-8-sig", errors="replace", newline="") as fh:
+        fh.readline()
         rows = csv.reader(fh)
-        next(rows, None)
-        for n, row in enumerate(rows, start=2):
-            if not row:
-                continue
-            if len(row) > len(cols):
-                raise InputError(file, Problem(f"{len(row)} fields where the header has {len(cols)}", n))
-            return
+        try:
+            for row in rows:
+                if not row:
+                    continue
+                if len(row) > len(cols):
+                    raise InputError(file, Problem(f"{len(row)} fields where the header has {len(cols)}",
+                                                   rows.line_num + 1))
+                return
+        except csv.Error as exc:
+            # e.g. a field longer than the csv module's limit: that row is no meter reading
+            raise InputError(file, Problem(f"malformed CSV: {exc}", rows.line_num + 1)) from None
 
 
 def _parser_message(exc: Exception) -> str:
@@ -151,7 +181,8 @@ def _parser_message(exc: Exception) -> str:
     return f"malformed CSV: {text}"
 
 
-def _canonical(chunk: pd.DataFrame, lines: np.ndarray, time_col: str, options: ReadOptions, file: str) -> pd.DataFrame:
+def _canonical(chunk: pd.DataFrame, lines: np.ndarray, time_col: str, options: ReadOptions, file: str,
+               clock: WallClock, window: tuple[int, int]) -> pd.DataFrame:
     cat = chunk["meter"].cat
     names = np.array([str(c).strip() for c in cat.categories] + [""], dtype=object)
     codes = cat.codes.to_numpy()
@@ -165,7 +196,7 @@ def _canonical(chunk: pd.DataFrame, lines: np.ndarray, time_col: str, options: R
     if missing.any():
         raise InputError(file, [Problem("empty timestamp", int(lines[i]), time_col)
                                 for i in np.flatnonzero(missing)[:MAX_PROBLEMS]])
-    start = parse_iso(raw_time, lines, time_col, file, options.timezone, meter_ids)
+    start = parse_iso(raw_time, lines, time_col, file, options.timezone, meter_ids, clock=clock, window=window)
     values = {q: numeric_column(chunk[q], lines, q, file) for q in ("kwh", "kvarh_lag", "kvarh_lead")}
     received = (numeric_column(chunk["kwh_received"], lines, "kwh_received", file)
                 if "kwh_received" in chunk.columns else None)

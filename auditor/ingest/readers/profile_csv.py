@@ -9,9 +9,13 @@ labels are shifted to interval starts here, because the profile states the inter
 ``ReadInfo.label`` is therefore always ``"start"``. Wall-time stamps are localised with
 :func:`auditor.ingest.timestamps.localise` (DST-aware, per meter, in file order).
 
-The file is read in chunks of ``ReadOptions.chunk_rows`` rows; the repeated autumn hour is
-resolved within a chunk, so a chunk boundary falling inside that hour of a wall-time export
-is reported as an ambiguous time (raise ``chunk_rows`` or export with UTC offsets).
+The file is read in chunks of ``ReadOptions.chunk_rows`` rows; one
+:class:`~auditor.ingest.timestamps.WallClock` serves the whole file, so the repeated autumn hour
+of a wall-time export is resolved by row order wherever a chunk boundary falls.
+
+Numbers and times must be written with ASCII digits: Python's ``strptime`` (and pandas' parser
+for non-ISO formats) would read full-width or other Unicode digits, which in a meter export are
+a sign of text pasted from elsewhere; such a cell is an error naming its line.
 """
 from __future__ import annotations
 
@@ -29,10 +33,11 @@ from auditor.ingest.frame import (
     ReadOptions,
     ReadOutput,
     canonical,
+    check_window,
     numeric_column,
 )
 from auditor.ingest.profile import NET_SPLITS, OFFSET, Profile
-from auditor.ingest.timestamps import _bad_cells, localise, parse_iso
+from auditor.ingest.timestamps import WallClock, _bad_cells, parse_iso
 
 FORMAT = "profile_csv"
 # "24:00" ends the day in many interval-ending exports; strptime has no hour 24.
@@ -57,15 +62,28 @@ def _header(path: Path, profile: Profile, file: str) -> list[str] | None:
                 if not fh.readline():
                     break
             line = fh.readline()
-    except UnicodeDecodeError as exc:
-        raise InputError(file, Problem(f"not {profile.encoding} text (byte {exc.start}: {exc.reason}); "
-                                       "check file.encoding in the profile")) from None
+    except UnicodeError as exc:
+        raise InputError(file, _undecodable(profile, exc, profile.header_line)) from None
     except OSError as exc:
         raise InputError(file, Problem(f"cannot read the file: {exc.strerror}")) from None
     if not line.strip():
         raise InputError(file, Problem(f"no header on line {profile.header_line} (profile key file.header_line)",
                                        profile.header_line))
-    return [c.strip() for c in next(csv.reader([line], delimiter=profile.delimiter))]
+    try:
+        return [c.strip() for c in next(csv.reader([line], delimiter=profile.delimiter))]
+    except csv.Error as exc:
+        raise InputError(file, Problem(f"malformed header: {exc}", profile.header_line)) from None
+
+
+def _undecodable(profile: Profile, exc: UnicodeError, line: int | None = None) -> Problem:
+    """A decoding failure, naming the profile key that chose the encoding."""
+    where = f" (byte {exc.start}: {exc.reason})" if isinstance(exc, UnicodeDecodeError) else f" ({exc})"
+    hint = ""
+    if profile.encoding in ("utf-16", "utf-32"):
+        hint = (f"; {profile.encoding} without a byte-order mark needs the byte order: "
+                f"{profile.encoding}-le or {profile.encoding}-be")
+    return Problem(f"not {profile.encoding} text{where}; check the profile key file.encoding{hint}", line,
+                   "file.encoding")
 
 
 def _resolve(header: list[str] | None, ref, key: str, profile: Profile, file: str) -> tuple[int, str]:
@@ -149,6 +167,9 @@ def _chunks(path: Path, profile: Profile, columns: dict[str, tuple[int, str]], o
             file: str) -> Iterator[pd.DataFrame]:
     positions = sorted({pos for pos, _ in columns.values()})
     skip = profile.header_line + profile.skip_after_header
+    window = options.time_window()
+    offset_in_string = profile.timezone == OFFSET
+    clock = WallClock(None if offset_in_string else options.timezone or profile.timezone, file, window)
     try:
         reader = pd.read_csv(
             path, sep=profile.delimiter, header=None, skiprows=skip, usecols=positions,
@@ -163,19 +184,31 @@ def _chunks(path: Path, profile: Profile, columns: dict[str, tuple[int, str]], o
             if blank.any():
                 chunk, lines = chunk.loc[~blank], lines[~blank]
             if len(chunk):
-                yield _canonical(chunk, lines, profile, columns, options, file)
+                yield _canonical(chunk, lines, profile, columns, options, file, clock, window)
+        clock.finish()
     except pd.errors.EmptyDataError:
         return
     except pd.errors.ParserError as exc:
         raise InputError(file, Problem("malformed CSV: " + str(exc).strip().splitlines()[-1])) from None
-    except UnicodeDecodeError as exc:
-        raise InputError(file, Problem(f"not {profile.encoding} text (byte {exc.start}: {exc.reason}); "
-                                       "check file.encoding in the profile")) from None
+    except UnicodeError as exc:
+        raise InputError(file, _undecodable(profile, exc)) from None
+    except LookupError as exc:
+        # a codec Python knows that the CSV parser cannot stream
+        raise InputError(file, Problem(f"the encoding {profile.encoding!r} cannot be used for a CSV ({exc})",
+                                       None, "file.encoding")) from None
 
 
 def _cells(chunk: pd.DataFrame, columns: dict[str, tuple[int, str]], role: str) -> tuple[pd.Series, str]:
     pos, name = columns[role]
     return chunk[pos].str.strip(), name
+
+
+def _ascii_only(values: pd.Series, lines: np.ndarray, name: str, file: str) -> None:
+    """Digits and separators must be ASCII: strptime would read full-width or other digits."""
+    bad = ~values.str.isascii().to_numpy(dtype=bool, na_value=True)
+    if bad.any():
+        raise InputError(file, [Problem(f"characters other than ASCII in {values.iloc[i][:40]!r} (write digits "
+                                        "0-9)", int(lines[i]), name) for i in np.flatnonzero(bad)[:MAX_PROBLEMS]])
 
 
 def _required_text(values: pd.Series, lines: np.ndarray, name: str, what: str, file: str) -> None:
@@ -195,14 +228,14 @@ def _numbers(values: pd.Series, profile: Profile) -> pd.Series:
 
 
 def _canonical(chunk: pd.DataFrame, lines: np.ndarray, profile: Profile, columns: dict[str, tuple[int, str]],
-               options: ReadOptions, file: str) -> pd.DataFrame:
+               options: ReadOptions, file: str, clock: WallClock, window: tuple[int, int]) -> pd.DataFrame:
     if profile.meter_id is not None:
         meter = np.repeat(np.array(profile.meter_id, dtype=object), len(chunk))
     else:
         values, name = _cells(chunk, columns, "meter")
         _required_text(values, lines, name, "meter id", file)
         meter = values.to_numpy(dtype=object)
-    start = _starts(chunk, lines, profile, columns, options, meter, file)
+    start = _starts(chunk, lines, profile, columns, meter, file, clock, window)
 
     out: dict[str, np.ndarray] = {}
     for q in profile.quantities:
@@ -224,23 +257,23 @@ def _canonical(chunk: pd.DataFrame, lines: np.ndarray, profile: Profile, columns
 
 
 def _starts(chunk: pd.DataFrame, lines: np.ndarray, profile: Profile, columns: dict[str, tuple[int, str]],
-            options: ReadOptions, meter: np.ndarray, file: str) -> np.ndarray:
+            meter: np.ndarray, file: str, clock: WallClock, window: tuple[int, int]) -> np.ndarray:
     """UTC interval starts, epoch seconds."""
     if "time" in columns:
         raw, name = _cells(chunk, columns, "time")
         _required_text(raw, lines, name, "timestamp", file)
     else:
         day, day_name = _cells(chunk, columns, "date")
-        clock, clock_name = _cells(chunk, columns, "clock")
+        time_of_day, clock_name = _cells(chunk, columns, "clock")
         _required_text(day, lines, day_name, "date", file)
-        _required_text(clock, lines, clock_name, "time", file)
-        raw, name = day + " " + clock, f"{day_name}+{clock_name}"
+        _required_text(time_of_day, lines, clock_name, "time", file)
+        raw, name = day + " " + time_of_day, f"{day_name}+{clock_name}"
     offset_in_string = profile.timezone == OFFSET
-    timezone = None if offset_in_string else options.timezone or profile.timezone
     fmt = profile.timestamp_format
     if fmt == "iso":
-        utc = parse_iso(raw, lines, name, file, timezone)
+        utc = parse_iso(raw, lines, name, file, clock.timezone, meter, clock=clock, window=window)
     else:
+        _ascii_only(raw, lines, name, file)
         is_24 = raw.str.contains(_MIDNIGHT_24, regex=True).to_numpy(dtype=bool, na_value=False)
         text = raw.str.replace(_MIDNIGHT_24, "00", regex=True) if is_24.any() else raw
         parsed = pd.to_datetime(text, format=fmt, errors="coerce", utc=offset_in_string)
@@ -249,8 +282,9 @@ def _starts(chunk: pd.DataFrame, lines: np.ndarray, profile: Profile, columns: d
             parsed = parsed + pd.to_timedelta(is_24.astype("int64"), unit="D")
         if offset_in_string:
             utc = pd.DatetimeIndex(parsed).as_unit("s").asi8
+            check_window(utc, lines, name, file, window)
         else:
-            utc = localise(parsed, lines, name, file, timezone, raw, meters=meter)
+            utc = clock.to_utc(parsed, lines, name, raw, meter)
     if profile.label == "end":
         utc = utc - profile.interval_minutes * 60
     return np.asarray(utc, dtype="int64")

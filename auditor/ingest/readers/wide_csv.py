@@ -44,6 +44,7 @@ work on the value block, with no Python loop over days or intervals.
 """
 from __future__ import annotations
 
+import re
 import warnings
 from collections.abc import Iterator
 from pathlib import Path
@@ -59,6 +60,7 @@ from auditor.ingest.frame import (
     ReadOptions,
     ReadOutput,
     canonical,
+    check_window,
 )
 from auditor.ingest.timestamps import _zone
 
@@ -81,13 +83,14 @@ def _interval_for_columns(n: int) -> int | None:
     return None
 
 
-def _split_header(line: str) -> list[str]:
-    return [c.strip().strip('"').strip().lower() for c in line.lstrip("\ufeff").rstrip("\r\n").split(",")]
+def _split_header(line: str, limit: int = -1) -> list[str]:
+    cells = line.lstrip("\ufeff").rstrip("\r\n").split(",", limit)
+    return [c.strip().strip('"').strip().lower() for c in (cells[:limit] if limit >= 0 else cells)]
 
 
 def sniff(path: Path, head: str) -> bool:
-    lines = head.lstrip("\ufeff").splitlines()
-    return bool(lines) and _split_header(lines[0])[:3] == list(LEADING)
+    first = head.lstrip("\ufeff").split("\n", 1)[0]
+    return _split_header(first, 3) == list(LEADING)
 
 
 def check_header(cols: list[str], file: str) -> tuple[bool, int]:
@@ -188,12 +191,21 @@ def _parse(path: Path, cols: list[str], value_cols: list[str], value_dtype: str,
     return table.drop(columns=_EXTRA)
 
 
+# pandas' C parser reads a float column made only of TRUE/FALSE cells as 1.0/0.0: such a file
+# takes the slow path, which names every cell that is not a number.
+_BOOLEAN_CELL = re.compile(rb"(?im)(?:^|[,\s\"])(?:true|false)(?=[,\s\"]|$)")
+
+
 def _value_block(path: Path, cols: list[str], value_cols: list[str], file: str) -> tuple[pd.DataFrame, np.ndarray]:
     """The table and its value block as float64 (NaN = empty); bad cells raise naming line and column."""
     try:
         # Fast path: the C parser converts the whole block; it refuses any non-numeric cell.
+        if _BOOLEAN_CELL.search(path.read_bytes()):
+            raise ValueError("a TRUE or FALSE cell")
         table = _parse(path, cols, value_cols, "float64", file)
         block = table[value_cols].to_numpy(dtype="float64")
+        if np.isinf(block).any():
+            raise ValueError("a cell too large for a number")  # the slow path quotes the cell as written
         text = None
     except ValueError:
         table = _parse(path, cols, value_cols, "string", file)
@@ -236,11 +248,17 @@ def _read_all(path: Path, cols: list[str], has_unit: bool, minutes: int, options
                                 for i in np.flatnonzero(unknown)[:MAX_PROBLEMS]])
     factor = _unit_factors(table, quantity, lines, has_unit, file, info)
     day_text = _text_column(table, "date", lines, file)
-    day = pd.to_datetime(pd.Series(day_text, dtype="string"), format="%Y-%m-%d", errors="coerce")
+    # strptime-style parsing would read full-width or other Unicode digits: ASCII only
+    ascii_day = np.fromiter((t.isascii() for t in day_text), bool, len(day_text))
+    day = pd.to_datetime(pd.Series(np.where(ascii_day, day_text, ""), dtype="string"), format="%Y-%m-%d",
+                         errors="coerce")
     bad_day = day.isna().to_numpy()
     if bad_day.any():
         raise InputError(file, [Problem(f"not a date (YYYY-MM-DD): {day_text[i]!r}", int(lines[i]), "date")
                                 for i in np.flatnonzero(bad_day)[:MAX_PROBLEMS]])
+    # a local day lies within 14 hours of the same UTC day: checked before it is placed in time
+    check_window(day.to_numpy().astype("datetime64[s]").astype("int64"), lines, "date", file,
+                 options.time_window(), margin=2 * SECONDS_PER_DAY, shown=day_text)
     if options.timezone is None:
         raise InputError(file, Problem(
             "the day-per-row layout holds local days; give --timezone (e.g. Europe/Berlin) to place "

@@ -1,7 +1,7 @@
 """bills: the utility's account and invoice numbers (optional text)
 
-Revision ID: 0008
-Revises: 0005
+Revision ID: 0005
+Revises: 0004
 Create Date: 2026-12-02 09:54:14.541818
 """
 from __future__ import annotations
@@ -9,8 +9,8 @@ from __future__ import annotations
 import sqlalchemy as sa
 from alembic import op
 
-revision = '0008'
-down_revision = '0005'
+revision = '0005'
+down_revision = '0004'
 branch_labels = None
 depends_on = None
 

@@ -1,7 +1,7 @@
 """scenario cover: client, project and author of the case document
 
-Revision ID: 0007
-Revises: 0008
+Revision ID: 0006
+Revises: 0005
 Create Date: 2026-12-09 10:00:00
 """
 from __future__ import annotations
@@ -9,8 +9,8 @@ from __future__ import annotations
 import sqlalchemy as sa
 from alembic import op
 
-revision = '0007'
-down_revision = '0008'
+revision = '0006'
+down_revision = '0005'
 branch_labels = None
 depends_on = None
 

@@ -1,6 +1,6 @@
 """site correction settings: screening settings, measured harmonic spectrum, drive share
 
-Revision ID: 0005
+Revision ID: 0004
 Revises: 0003
 Create Date: 2026-12-08 10:00:00.000000
 """
@@ -9,7 +9,7 @@ from __future__ import annotations
 import sqlalchemy as sa
 from alembic import op
 
-revision = '0005'
+revision = '0004'
 down_revision = '0003'
 branch_labels = None
 depends_on = None

@@ -2,8 +2,8 @@
 
 Rows of meter_tariff, monitor_day and alert belong to their meter (ON DELETE CASCADE).
 
-Revision ID: 0006
-Revises: 0007
+Revision ID: 0007
+Revises: 0006
 Create Date: 2026-12-02 10:10:01.777114
 """
 from __future__ import annotations
@@ -11,8 +11,8 @@ from __future__ import annotations
 import sqlalchemy as sa
 from alembic import op
 
-revision = '0006'
-down_revision = '0007'
+revision = '0007'
+down_revision = '0006'
 branch_labels = None
 depends_on = None
 
