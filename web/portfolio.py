@@ -3,27 +3,25 @@ from __future__ import annotations
 
 from importlib import resources
 
-from flask import Blueprint, render_template, send_file
+from flask import Blueprint, render_template, request, send_file
 
-from auditor.services.portfolio import portfolio_summary, tariff_threshold_pf
+from auditor.services.portfolio import portfolio_page, tariff_threshold_pf
 from auditor.web.helpers import chosen_tariff, store, tariff_choices
 
 bp = Blueprint("portfolio", __name__)
 
 
+PER_PAGE = 50
+
+
 @bp.get("/")
 def index():
     name, tariff = chosen_tariff()
-    rows = portfolio_summary(store(), tariff)
-    totals = {
-        "meters": len(rows),
-        "sites": len({r["site"] for r in rows}),
-        "reactive_12m": sum(r["reactive_12m"] or 0.0 for r in rows),
-        "savings": sum(r["best"]["annual_savings"] for r in rows
-                       if r["best"] and (r["best"]["npv"] or 0) > 0 and r["best"]["tariff"] == tariff.name),
-    }
-    return render_template("portfolio.html", rows=rows, totals=totals, tariff=tariff, tariff_name=name,
-                           tariffs=tariff_choices(), thresholds=tariff_threshold_pf(tariff))
+    page = portfolio_page(store(), tariff, query=request.args.get("q", ""), site=request.args.get("site") or None,
+                          page=request.args.get("page", 1, type=int) or 1,
+                          per_page=request.args.get("per_page", PER_PAGE, type=int) or PER_PAGE)
+    return render_template("portfolio.html", rows=page.rows, totals=page.totals, listing=page, tariff=tariff,
+                           tariff_name=name, tariffs=tariff_choices(), thresholds=tariff_threshold_pf(tariff))
 
 
 @bp.get("/vendor/plotly.min.js")

@@ -24,6 +24,7 @@ from auditor.ingest import readers
 from auditor.ingest.frame import ReadOptions
 from auditor.ingest.validate import Validated, validate
 from auditor.store import Store
+from auditor.store.meter_data import record_write
 from auditor.store.models import QUANTITIES, Channel, ImportBatch, Meter, QualityFlag, Site
 from auditor.store.queries import now_utc
 from auditor.store.write import WriteCounts, write_meter
@@ -219,6 +220,8 @@ def _store(store: Store, path: Path, digest: str, fmt: str, info, checked: Valid
             meter = _meter_for(s, rows.meter, rows.interval_minutes, options, site_cache)
             _channels(s, meter, info, batch.id)
             c = write_meter(conn, meter.id, rows.start, rows.values, rows.flags, batch.id)
+            record_write(conn, meter.id, batch.id, inserted=c.inserted, revised=c.revised,
+                         first_start=int(rows.start[0]), last_start=int(rows.start[-1]))
             counts.inserted += c.inserted
             counts.revised += c.revised
             counts.unchanged += c.unchanged

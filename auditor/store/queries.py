@@ -4,7 +4,7 @@ from __future__ import annotations
 from datetime import UTC, datetime
 from typing import TYPE_CHECKING
 
-from sqlalchemy import func, select
+from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from auditor.errors import NotFoundError
@@ -15,7 +15,6 @@ from auditor.store.models import (
     ImportBatch,
     Meter,
     QualityFlag,
-    Reading,
     Site,
 )
 
@@ -83,14 +82,16 @@ def interval_frame(rows: list[tuple], multiplier: float = 1.0) -> pd.DataFrame:
 
 
 def meter_summaries(session: Session) -> list[dict]:
-    stats = (
-        select(Reading.meter_id, func.min(Reading.start), func.max(Reading.start), func.count())
-        .group_by(Reading.meter_id)
-    )
-    by_meter = {m: (lo, hi, n) for m, lo, hi, n in session.execute(stats)}
+    """Every meter by site with the span, count and coverage of its readings (from
+    ``meter_data``: one row per meter, no scan of ``reading``)."""
+    from auditor.store.meter_data import ensure_current, versions
+
+    conn = session.connection()
+    ensure_current(conn)
+    by_meter = versions(conn)
     out = []
     for meter, site in session.execute(select(Meter, Site).join(Site).order_by(Site.name, Meter.external_id)):
-        lo, hi, n = by_meter.get(meter.id, (None, None, 0))
+        _, lo, hi, n = by_meter.get(meter.id, (None, None, None, 0))
         step = (meter.interval_minutes or 15) * 60
         expected = (hi - lo) // step + 1 if n else 0
         out.append({
