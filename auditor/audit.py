@@ -464,7 +464,7 @@ def _select_intervals(frame: pd.DataFrame, ps: list[BillingPeriod], tz: str, int
     """Step 3: the intervals of the periods and their boundaries (period k is
     ``[bounds[k], bounds[k+1])``)."""
     sel, bounds = segment_bounds(frame.index, ps, tz)
-    f = frame[sel]
+    f = frame if sel.all() else frame[sel]  # usually every interval is in some period: no copy
     index = f.index.tz_convert("UTC")
     kwh = f["kwh"].to_numpy(dtype=float)
     est = f["estimated"].to_numpy(dtype=bool) if "estimated" in f.columns else np.zeros(len(f), dtype=bool)
@@ -514,8 +514,10 @@ def _tariff_windows(tariff: Tariff, sel: _Selected, tz: str) -> _Windows:
     n = len(sel.bounds) - 1
     cal = local_calendar(sel.index, tz, tariff.calendar)
     e_idx = energy_window_index(tariff.energy, cal)
-    onehot = (e_idx[None, :] == np.arange(len(tariff.energy.windows) + 1)[:, None]).astype(float)
-    energy_kwh = segment_sum(onehot * sel.kwh, sel.bounds)
+    # kWh per (energy window, period) in one pass: bin = window × periods + period
+    period_of = np.repeat(np.arange(n), np.diff(sel.bounds))
+    energy_kwh = np.bincount(e_idx * n + period_of, weights=sel.kwh,
+                             minlength=(len(tariff.energy.windows) + 1) * n).reshape(-1, n)
     masks, rows = [], []
     for m in tariff.reactive:
         ws = mechanism_windows(m)
