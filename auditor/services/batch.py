@@ -119,13 +119,15 @@ _EMPTY_ROW = {"site": None, "meter": None, "currency": None, "kwh": None, "pf": 
               "total": None, "coverage": None, "worst_period": None, "worst_pf": None, "error": None}
 
 
-def meter_row(result, document: dict) -> dict:
-    """The batch table's row of one audit: site, kWh, energy PF, reactive charges, total,
-    coverage (intervals present / expected over all periods) and the worst month (the period
-    with the lowest energy PF, lagging kvarh)."""
-    periods = result.periods
-    expected = sum(p.expected_intervals for p in periods)
-    present = sum(p.intervals for p in periods)
+def meter_row(audit, document: dict) -> dict:
+    """The batch table's row of one audit (a :class:`~auditor.services.audit.MeterAudit`): site,
+    kWh, energy PF, reactive charges, total, coverage (intervals present / expected from the
+    first interval read to the last, as ``auditor meters`` counts it) and the worst month (the
+    period with the lowest energy PF, lagging kvarh)."""
+    periods = audit.result.periods
+    index = audit.data.frame.index
+    present = len(index)
+    expected = ((index[-1] - index[0]).total_seconds() // (audit.data.interval_minutes * 60) + 1) if present else 0
     with_pf = [p for p in periods if p.intervals and math.isfinite(p.pf)]
     worst = min(with_pf, key=lambda p: p.pf) if with_pf else None
     t = document["totals"]
@@ -158,7 +160,7 @@ def _audit_one(store: Store, meter: str, tariff: Tariff | str, options: dict) ->
     try:
         a = audit_meter(store, meter, tariff, **options)
         doc = a.to_dict()
-        return MeterOutcome(meter, document=doc, row=meter_row(a.result, doc))
+        return MeterOutcome(meter, document=doc, row=meter_row(a, doc))
     except AuditorError as exc:
         return MeterOutcome(meter, error=exc.message)
     except Exception as exc:  # a bug: reported with the meter, the batch goes on, exit 3 at the end

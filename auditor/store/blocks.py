@@ -116,20 +116,34 @@ def unpack(rows: list[tuple], interval_minutes: int, start_utc: int | None = Non
     cols = list(zip(*rows, strict=True))
     starts = np.fromiter(cols[0], dtype=np.int64, count=nb)
     nq = len(QUANTITIES)
-    values = {q: np.frombuffer(b"".join(x if x is not None else _NAN_BLOCK for x in cols[1 + i]), _F8)
-              .reshape(nb, BLOCK) for i, q in enumerate(QUANTITIES)}
-    flags = np.frombuffer(b"".join(x if x is not None else _PRESENT_BLOCK for x in cols[1 + nq]), _I2).reshape(nb, BLOCK)
+    start = (starts[:, None] + np.arange(BLOCK, dtype=np.int64) * step).ravel()
+    # which slots to keep: those holding an interval (every slot when no block has flags) in range
+    flag_col = cols[1 + nq]
+    if any(x is not None for x in flag_col):
+        flags = np.frombuffer(b"".join(x if x is not None else _PRESENT_BLOCK for x in flag_col), _I2)
+        keep = flags != ABSENT
+    else:
+        flags, keep = None, None
+    if start_utc is not None or end_utc is not None:
+        lo = start >= start_utc if start_utc is not None else np.ones(len(start), dtype=bool)
+        inside = lo & (start < end_utc) if end_utc is not None else lo
+        keep = inside if keep is None else keep & inside
+    n = int(keep.sum()) if keep is not None else len(start)
+
+    def take(a: np.ndarray) -> np.ndarray:
+        return a if keep is None else a[keep]
+
+    values = {}
+    for i, q in enumerate(QUANTITIES):
+        col = cols[1 + i]
+        if all(x is None for x in col):  # a quantity the meter does not record: no bytes to join
+            values[q] = np.full(n, np.nan)
+        else:
+            values[q] = take(np.frombuffer(b"".join(x if x is not None else _NAN_BLOCK for x in col), _F8))
     batch_of_block = np.fromiter(cols[2 + nq], dtype=np.int64, count=nb)
     if any(x is not None for x in cols[3 + nq]):
         batch = np.frombuffer(b"".join(x if x is not None else np.full(BLOCK, b0, _I4).tobytes()
                                        for x, b0 in zip(cols[3 + nq], batch_of_block, strict=True)), _I4)
     else:
         batch = np.repeat(batch_of_block.astype(_I4), BLOCK)
-    start = (starts[:, None] + np.arange(BLOCK, dtype=np.int64) * step).ravel()
-    keep = flags.ravel() != ABSENT
-    if start_utc is not None:
-        keep &= start >= start_utc
-    if end_utc is not None:
-        keep &= start < end_utc
-    return Intervals(start[keep], {q: v.ravel()[keep] for q, v in values.items()}, flags.ravel()[keep],
-                     batch.reshape(-1)[keep])
+    return Intervals(take(start), values, take(flags) if flags is not None else np.zeros(n, _I2), take(batch))

@@ -103,8 +103,7 @@ def _read_pg_copy(conn, sql: str, params: list):
 
     raw = conn.connection.driver_connection
     with raw.cursor() as cur:
-        query = cur.mogrify(sql, params) if params else sql
-        with cur.copy(f"COPY ({query}) TO STDOUT (FORMAT BINARY)") as copy:
+        with cur.copy(f"COPY ({sql}) TO STDOUT (FORMAT BINARY)", params) as copy:
             data = b"".join(bytes(block) for block in copy)
     ext = int.from_bytes(data[15:19], "big")
     body = memoryview(data)[19 + ext:len(data) - 2]
@@ -163,7 +162,8 @@ def _frame(start, vals, flags, multiplier: float = 1.0) -> pd.DataFrame:
     import numpy as np  # here, not at the top: listing meters does without them
     import pandas as pd
 
-    vals = np.nan_to_num(vals, nan=0.0) * multiplier
+    vals = np.asarray(vals, dtype=np.float64) * multiplier
+    vals[np.isnan(vals)] = 0.0  # an absent value counts as zero energy
     index = pd.DatetimeIndex(pd.to_datetime(start, unit="s", utc=True), name="start")
     frame = pd.DataFrame({q: vals[:, i] for i, q in enumerate(QUANTITIES)}, index=index, copy=False)
     frame["estimated"] = (flags & (FLAG_ESTIMATED | FLAG_FILLED)) != 0
