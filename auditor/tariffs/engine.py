@@ -24,6 +24,7 @@ References
 """
 from __future__ import annotations
 
+import functools
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 
@@ -99,13 +100,10 @@ def local_calendar(index_utc: pd.DatetimeIndex, tz: str, calendar: Calendar | No
     day_range = np.arange(first, last + 1).astype("datetime64[D]")
     month_of_day = (day_range.astype("datetime64[M]").astype(np.int64) % 12 + 1).astype(np.int8)
     if calendar is not None:
-        import holidays  # the trusted source of public holidays
-
-        years = range(int(np.datetime64(first, "D").astype("datetime64[Y]").astype(int)) + 1970,
-                      int(np.datetime64(last, "D").astype("datetime64[Y]").astype(int)) + 1971)
-        found = holidays.country_holidays(calendar.country, subdiv=calendar.subdivision, years=years)
-        if found:
-            hol = np.array(sorted(found.keys()), dtype="datetime64[D]").astype(np.int64)
+        years = (int(np.datetime64(first, "D").astype("datetime64[Y]").astype(int)) + 1970,
+                 int(np.datetime64(last, "D").astype("datetime64[Y]").astype(int)) + 1970)
+        hol = _holiday_days(calendar.country, calendar.subdivision, years)
+        if len(hol):
             hol = hol[(hol >= first) & (hol <= last)]
             lut = np.zeros(last - first + 1, dtype=bool)
             lut[hol - first] = True
@@ -116,6 +114,18 @@ def local_calendar(index_utc: pd.DatetimeIndex, tz: str, calendar: Calendar | No
         month=month_of_day[days - first],
         holiday=holiday,
     )
+
+
+@functools.lru_cache(maxsize=64)
+def _holiday_days(country: str, subdivision: str | None, years: tuple[int, int]) -> np.ndarray:
+    """Public holidays of the years ``years[0]..years[1]`` as days since 1970-01-01, from the
+    ``holidays`` library (the trusted source); cached, since every meter of a batch asks again."""
+    import holidays
+
+    found = holidays.country_holidays(country, subdiv=subdivision, years=range(years[0], years[1] + 1))
+    days = np.array(sorted(found.keys()), dtype="datetime64[D]").astype(np.int64)
+    days.flags.writeable = False
+    return days
 
 
 def window_mask(window: Window, cal: LocalCalendar) -> np.ndarray:
