@@ -134,13 +134,16 @@ def duck_table(work: Path, csv: Path, n: int):
     return con, path
 
 
-def duck_monthly(con, repeat: int) -> tuple[float, list]:
-    times, rows = [], []
+def duck_monthly(con, repeat: int) -> tuple[float, float, list]:
+    """Median wall seconds and CPU seconds (every thread of this process) of the monthly query."""
+    times, cpus, rows = [], [], []
     for _ in range(repeat):
+        c0 = time.process_time()
         t0 = time.perf_counter()
         rows = con.execute(DUCK_QUERY).fetchall()
         times.append(time.perf_counter() - t0)
-    return statistics.median(times), rows
+        cpus.append(time.process_time() - c0)
+    return statistics.median(times), statistics.median(cpus), rows
 
 
 def check_figures(audit_json: Path, reference: list) -> dict:
@@ -250,7 +253,8 @@ def audit_all(url: str, work: Path, tag: str, repeat: int, reference: list | Non
             sys.exit(f"audit --all failed on {tag}:\n{r['stderr']}")
         times.append(r["wall"])
         cpus.append(r["cpu"] / r["wall"] / cpu_count())
-    out = {"median_s": statistics.median(times), "cpu_busy": statistics.median(cpus)}
+    out = {"median_s": statistics.median(times), "cpu_busy": statistics.median(cpus),
+           "cpu_s": statistics.median(x * y * cpu_count() for x, y in zip(times, cpus, strict=True))}
     if reference is not None:
         js = work / f"audit-{tag}.json"
         r = run_timed(auditor_cmd("audit", "--all", "--tariff", TARIFF, "--json"), env_for(url), js)
@@ -382,15 +386,16 @@ def main() -> None:
                   f"/ {imp['auditor_mb']:.0f} MB ({fmt_ratio(imp['auditor_s'], imp['floor_s'])} the floor)", flush=True)
         url = f"sqlite:///{db}"
         duck, duck_path = duck_table(work, csv, n)
-        r["duckdb_s"], reference = duck_monthly(duck, a.repeat)
+        r["duckdb_s"], r["duckdb_cpu_s"], reference = duck_monthly(duck, a.repeat)
         duck.close()
         r["bytes_per_meter_year"] = {"sqlite": sqlite_bytes(db) / n, "duckdb": duck_path.stat().st_size / n}
-        print(f"  reference engine monthly figures: {r['duckdb_s']:.2f} s", flush=True)
+        print(f"  reference engine monthly figures: {r['duckdb_s']:.2f} s ({r['duckdb_cpu_s']:.2f} CPU s)", flush=True)
         r["split_rows"] = read_and_compute(url, n)
         r["audit_rows"] = audit_all(url, work, f"rows{n}", a.repeat, reference)
         ar = r["audit_rows"]
-        print(f"  audit --all (rows): {ar['median_s']:.1f} s, {fmt_ratio(ar['median_s'], r['duckdb_s'])} the reference, "
-              f"cores {100 * ar['cpu_busy']:.0f} % busy; figures: {ar['check']}", flush=True)
+        print(f"  audit --all (rows): {ar['median_s']:.1f} s, {fmt_ratio(ar['median_s'], r['duckdb_s'])} the reference; "
+              f"{ar['cpu_s']:.1f} CPU s, {fmt_ratio(ar['cpu_s'], r['duckdb_cpu_s'])} its CPU; cores {100 * ar['cpu_busy']:.0f} % "
+              f"busy; figures: {ar['check']}", flush=True)
         bdb = work / f"blocks{n}.sqlite3"
         if not bdb.exists() or bdb.stat().st_mtime < db.stat().st_mtime:
             t0 = time.perf_counter()
@@ -401,8 +406,9 @@ def main() -> None:
         r["split_blocks"] = read_and_compute(burl, n)
         r["audit_blocks"] = audit_all(burl, work, f"blocks{n}", a.repeat, reference)
         ab = r["audit_blocks"]
-        print(f"  audit --all (blocks): {ab['median_s']:.1f} s, {fmt_ratio(ab['median_s'], r['duckdb_s'])} the reference, "
-              f"cores {100 * ab['cpu_busy']:.0f} % busy; figures: {ab['check']}", flush=True)
+        print(f"  audit --all (blocks): {ab['median_s']:.1f} s, {fmt_ratio(ab['median_s'], r['duckdb_s'])} the reference; "
+              f"{ab['cpu_s']:.1f} CPU s, {fmt_ratio(ab['cpu_s'], r['duckdb_cpu_s'])} its CPU; cores {100 * ab['cpu_busy']:.0f} % "
+              f"busy; figures: {ab['check']}", flush=True)
         page_db = work / f"page{n}.sqlite3"  # the page step imports a revision: on a copy
         for x in work.glob(f"page{n}.sqlite3*"):
             x.unlink()
@@ -426,7 +432,8 @@ def main() -> None:
                 r["postgresql"] = pg
                 print(f"  PostgreSQL: import {pg['import_s']:.1f} s / {pg['import_mb']:.0f} MB, "
                       f"{pg['bytes_per_meter_year'] / 1e6:.2f} MB per meter-year, audit --all {pg['audit']['median_s']:.1f} s "
-                      f"({fmt_ratio(pg['audit']['median_s'], r['duckdb_s'])} the reference), page cold "
+                      f"({fmt_ratio(pg['audit']['median_s'], r['duckdb_s'])} the reference; {pg['audit']['cpu_s']:.1f} CPU s, "
+                      f"{fmt_ratio(pg['audit']['cpu_s'], r['duckdb_cpu_s'])} its CPU), page cold "
                       f"{pg['page']['cold_s']:.1f} s / warm {pg['page']['warm_ms']:.0f} ms", flush=True)
             finally:
                 pg_drop(a.pg, schema)
@@ -434,7 +441,7 @@ def main() -> None:
 
     print("\n== side by side ==")
     head = (f"{'meter-years':>11} {'import s':>9} {'floor s':>8} {'ratio':>6} {'peak MB':>8} {'floor MB':>8} "
-            f"{'ref s':>6} {'rows s':>7} {'ratio':>6} {'blocks s':>8} {'ratio':>6} {'busy':>5} "
+            f"{'ref s':>6} {'rows s':>7} {'ratio':>6} {'blocks s':>8} {'ratio':>6} {'cpu×':>5} {'busy':>5} "
             f"{'page cold s':>11} {'warm ms':>8} {'MB/my':>6} {'blocks':>6} {'ref':>5}")
     print(head)
     for r in results:
@@ -444,6 +451,7 @@ def main() -> None:
               f"{i.get('auditor_mb', float('nan')):>8.0f} {i.get('floor_mb', float('nan')):>8.0f} "
               f"{r['duckdb_s']:>6.2f} {r['audit_rows']['median_s']:>7.1f} {r['audit_rows']['median_s'] / r['duckdb_s']:>6.1f} "
               f"{r['audit_blocks']['median_s']:>8.1f} {r['audit_blocks']['median_s'] / r['duckdb_s']:>6.1f} "
+              f"{r['audit_blocks']['cpu_s'] / r['duckdb_cpu_s']:>5.1f} "
               f"{100 * r['audit_blocks']['cpu_busy']:>4.0f}% {r['page']['cold_s']:>11.1f} {r['page']['warm_ms']:>8.0f} "
               f"{b['sqlite'] / 1e6:>6.2f} {b['sqlite_blocks'] / 1e6:>6.2f} {b['duckdb'] / 1e6:>5.2f}")
     print("\nper meter-year in one process (CPU ms): read / compute")

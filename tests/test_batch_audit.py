@@ -187,3 +187,23 @@ def test_cli_unknown_site_exit_1(fleet):
     store, _ = fleet
     r = cli(store.url, "audit", "--site", "Nowhere", "--tariff", TARIFF)
     assert r.returncode == 1 and "no site 'Nowhere'" in r.stderr
+
+
+def test_report_for_a_site(fleet, tmp_path):
+    store, sums = fleet
+    out = tmp_path / "north.html"
+    r = cli(store.url, "report", "--site", "North Works", "--tariff", TARIFF, "--out", str(out))
+    assert r.returncode == 0, r.stderr
+    html = out.read_text(encoding="utf-8")
+    assert "Site portfolio — North Works" in html and "3 of 3" in html
+    assert all(m in html for m in ("BX-01", "BX-02", "BX-03")) and "BX-04" not in html
+    assert f"{sums['BX-02'][0]:,.0f}" in html  # the meter's kWh, from the file
+    csv_out = tmp_path / "shed.csv"
+    r = cli(store.url, "report", "--site", "Empty Shed", "--tariff", TARIFF, "--out", str(csv_out))
+    assert r.returncode == 1 and "meter BX-EMPTY has no readings" in r.stderr
+    with open(csv_out, newline="", encoding="utf-8") as fh:
+        assert [x["error"] for x in csv.DictReader(fh)] == ["meter BX-EMPTY has no readings"]
+    assert cli(store.url, "report", "--site", "North Works", "--meter", "BX-01", "--tariff", TARIFF,
+               "--out", str(out)).returncode == 2
+    assert cli(store.url, "report", "--site", "North Works", "--tariff", TARIFF,
+               "--out", str(tmp_path / "x.xlsx")).returncode == 2

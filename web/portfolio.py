@@ -20,7 +20,8 @@ def index():
     page = portfolio_page(store(), tariff, query=request.args.get("q", ""), site=request.args.get("site") or None,
                           page=request.args.get("page", 1, type=int) or 1,
                           per_page=request.args.get("per_page", PER_PAGE, type=int) or PER_PAGE)
-    return render_template("portfolio.html", rows=page.rows, totals=page.totals, listing=page, tariff=tariff,
+    return render_template("portfolio.html", rows=page.rows, totals=page.totals, listing=page,
+                           per_page_arg=page.per_page if page.per_page != PER_PAGE else None, tariff=tariff,
                            tariff_name=name, tariffs=tariff_choices(), thresholds=tariff_threshold_pf(tariff))
 
 

@@ -42,7 +42,7 @@ def batch_table(rows: list[dict]) -> str:
     out = []
     for r in rows:
         worst = f"{r['worst_period']} (PF {r['worst_pf']:.3f})" if r["worst_period"] else ("failed" if r["error"] else "-")
-        line = [r["site"] or "-", r["meter"], r["kwh"], None if r["pf"] is None else round(r["pf"], 3),
+        line = [r["site"] or "-", r["meter"], r["kwh"], "-" if r["pf"] is None else f"{r['pf']:.3f}",
                 r["reactive_total"], r["total"], None if r["coverage"] is None else 100 * r["coverage"], worst]
         if len(currencies) > 1:
             line.insert(6, r["currency"] or "-")
@@ -50,12 +50,10 @@ def batch_table(rows: list[dict]) -> str:
     return table(headers, out, digits=2)
 
 
-CSV_COLUMNS = ("site", "meter", "currency", "kwh", "pf", "reactive_total", "total", "coverage", "worst_period",
-               "worst_pf", "error")
-
-
 def write_batch_csv(rows: list[dict], path) -> None:
     import csv
+
+    from auditor.services.batch import CSV_COLUMNS
 
     with open(path, "w", newline="", encoding="utf-8") as fh:
         w = csv.writer(fh)

@@ -24,7 +24,7 @@ from auditor.errors import AuditorError, NotFoundError, UsageError
 from auditor.store import Store
 from auditor.tariffs import Tariff
 
-__all__ = ["BatchAudit", "MeterOutcome", "TariffFor", "audit_meters", "default_workers", "meter_row",
+__all__ = ["CSV_COLUMNS", "BatchAudit", "MeterOutcome", "TariffFor", "audit_meters", "default_workers", "meter_row",
            "same_tariff", "select_meters"]
 
 #: The tariff of a meter (raise an :class:`~auditor.errors.AuditorError` when it has none).
@@ -115,6 +115,10 @@ class BatchAudit:
         return {"audits": self.audits, "failed": self.failed}
 
 
+#: The columns of the one-row-per-meter table as CSV (``audit --csv``, the site report).
+CSV_COLUMNS = ("site", "meter", "currency", "kwh", "pf", "reactive_total", "total", "coverage", "worst_period",
+               "worst_pf", "error")
+
 _EMPTY_ROW = {"site": None, "meter": None, "currency": None, "kwh": None, "pf": None, "reactive_total": None,
               "total": None, "coverage": None, "worst_period": None, "worst_pf": None, "error": None}
 
@@ -198,24 +202,40 @@ def audit_meters(store: Store, meters: list[str], tariff_for: TariffFor, *, work
     n = len(meters)
     workers = min(workers or default_workers(), max(n, 1))
     results: dict[str, MeterOutcome] = {}
-    if workers == 1 or n < POOL_FROM or store.url.endswith(":memory:"):
-        for i, m in enumerate(meters):
-            results[m] = _audit_one(store, m, tariffs[m], options)
-            if progress:
-                progress(i + 1, n)
-    else:
-        from concurrent.futures import ProcessPoolExecutor, as_completed
+    done = 0
 
-        with ProcessPoolExecutor(max_workers=workers, mp_context=_pool_context(), initializer=_init_worker,
-                                 initargs=(store.url,)) as pool:
-            futures = {pool.submit(_audit_in_worker, m, tariffs[m], options): m for m in meters}
-            for i, f in enumerate(as_completed(futures)):
-                m = futures[f]
-                try:
-                    results[m] = f.result()
-                except Exception as exc:  # a worker died (killed, out of memory): the meter fails
-                    results[m] = MeterOutcome(m, error=f"internal error: {type(exc).__name__}: {exc}",
-                                              internal=True)
-                if progress:
-                    progress(i + 1, n)
+    def finish(m: str, outcome: MeterOutcome) -> None:
+        nonlocal done
+        results[m] = outcome
+        done += 1
+        if progress:
+            progress(done, n)
+
+    import multiprocessing
+
+    nested = multiprocessing.parent_process() is not None  # never a pool inside a worker
+    if workers > 1 and n >= POOL_FROM and not nested and not store.url.endswith(":memory:"):
+        from concurrent.futures import ProcessPoolExecutor, as_completed
+        from concurrent.futures.process import BrokenProcessPool
+
+        try:
+            with ProcessPoolExecutor(max_workers=workers, mp_context=_pool_context(), initializer=_init_worker,
+                                     initargs=(store.url,)) as pool:
+                futures = {pool.submit(_audit_in_worker, m, tariffs[m], options): m for m in meters}
+                for f in as_completed(futures):
+                    m = futures[f]
+                    try:
+                        finish(m, f.result())
+                    except BrokenProcessPool:
+                        raise
+                    except Exception as exc:  # the task itself failed to travel: the meter fails
+                        finish(m, MeterOutcome(m, error=f"internal error: {type(exc).__name__}: {exc}",
+                                               internal=True))
+        except BrokenProcessPool:
+            # a worker died (killed, out of memory, or could not start): the meters left are
+            # audited here, one after the other
+            pass
+    for m in meters:
+        if m not in results:
+            finish(m, _audit_one(store, m, tariffs[m], options))
     return BatchAudit([results[m] for m in meters])
