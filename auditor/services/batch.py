@@ -5,7 +5,9 @@ unchanged) for every meter named, in a pool of worker processes. Each worker ope
 itself from its URL: a database connection never crosses a process boundary. Workers come from
 the ``forkserver`` start method — a clean server process (no threads, no open connections, the
 audit modules already imported) forks them — so a pool can be started safely from the
-dashboard's threads as well as from the command line. A meter whose audit fails is reported
+dashboard's threads as well as from the command line. From a process with a single thread (the
+command line) the workers are forked directly instead, after the store's pooled connections are
+closed: they start at once with the audit already imported. A meter whose audit fails is reported
 with its error and the rest go on.
 
 The tariff of each meter comes from one function, ``tariff_for(meter) -> Tariff``; a single
@@ -176,13 +178,23 @@ def _audit_in_worker(meter: str, tariff: Tariff | str, options: dict) -> MeterOu
     return _audit_one(_worker_store, meter, tariff, options)
 
 
-def _pool_context():
+def _pool_context(store: Store):
+    """``fork`` from a process with one thread (the command line), after closing the store's
+    pooled connections, so workers start at once with everything imported and inherit no
+    connection; ``forkserver`` otherwise (the dashboard's threads make forking unsafe), its
+    server importing the audit once for all the workers it forks."""
     import multiprocessing
+    import threading
 
-    ctx = multiprocessing.get_context("forkserver")
-    # the server imports the audit once; every worker forked from it starts with it loaded
-    ctx.set_forkserver_preload(["auditor.services.batch", "auditor.services.audit"])
-    return ctx
+    methods = multiprocessing.get_all_start_methods()
+    if "fork" in methods and threading.active_count() == 1:
+        store.engine.dispose()  # the pool reopens connections on the next use, here only
+        return multiprocessing.get_context("fork")
+    if "forkserver" in methods:
+        ctx = multiprocessing.get_context("forkserver")
+        ctx.set_forkserver_preload(["auditor.services.batch", "auditor.services.audit"])
+        return ctx
+    return multiprocessing.get_context("spawn")
 
 
 def audit_meters(store: Store, meters: list[str], tariff_for: TariffFor, *, workers: int | None = None,
@@ -219,7 +231,7 @@ def audit_meters(store: Store, meters: list[str], tariff_for: TariffFor, *, work
         from concurrent.futures.process import BrokenProcessPool
 
         try:
-            with ProcessPoolExecutor(max_workers=workers, mp_context=_pool_context(), initializer=_init_worker,
+            with ProcessPoolExecutor(max_workers=workers, mp_context=_pool_context(store), initializer=_init_worker,
                                      initargs=(store.url,)) as pool:
                 futures = {pool.submit(_audit_in_worker, m, tariffs[m], options): m for m in meters}
                 for f in as_completed(futures):

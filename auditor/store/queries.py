@@ -117,17 +117,16 @@ def _read_pg_copy(conn, sql: str, params: list):
     return rec["start"].astype(np.int64), vals, rec["flags"].astype(np.int64)
 
 
-_block_tables: dict[int, bool] = {}
-
-
 def has_blocks(conn) -> bool:
-    """Whether the store keeps readings in the block layout (``reading_block``), asked once per engine."""
-    key = id(conn.engine)
-    if key not in _block_tables:
+    """Whether the store keeps readings in the block layout (``reading_block``), asked once per
+    engine (the answer is kept on the engine itself)."""
+    engine = conn.engine
+    found = engine.__dict__.get("_auditor_has_blocks")
+    if found is None:
         from sqlalchemy import inspect
 
-        _block_tables[key] = inspect(conn).has_table("reading_block")
-    return _block_tables[key]
+        found = engine.__dict__["_auditor_has_blocks"] = inspect(conn).has_table("reading_block")
+    return found
 
 
 def _read_blocks(conn, meter: Meter, start_utc: int | None, end_utc: int | None) -> pd.DataFrame:
