@@ -147,3 +147,32 @@ def test_local_calendar_holidays_are_the_holidays_librarys():
     days = holidays.country_holidays("DE", subdiv="BY", years=[2025, 2026])
     expected = np.array([d in days for d in idx.tz_convert("Europe/Berlin").date])
     np.testing.assert_array_equal(cal.holiday, expected)
+
+
+# --------------------------------------------------------------------------------------------
+# what meters with the same interval index share in an audit
+# --------------------------------------------------------------------------------------------
+def test_meters_sharing_an_index_get_the_audit_computed_afresh():
+    """Audits that reuse the shared per-index parts equal audits computed with nothing kept,
+    for meters with the same index, another time zone, another tariff and a gap."""
+    import auditor.audit as audit_module
+    from auditor.audit import audit
+    from auditor.services.audit import resolve_tariff
+    from tests.audit_helpers import interval_frame
+
+    tou, pf = resolve_tariff("harrowgate_industrial_tou"), resolve_tariff("millbrook_commercial_pf")
+    rng = np.random.default_rng(5)
+    base = interval_frame("2025-01-01", "2025-04-01", minutes=15)
+    frames = []
+    for _ in range(3):
+        f = base.copy()
+        f["kwh"] = rng.uniform(5, 50, len(f))
+        f["kvarh_lag"] = f["kwh"] * rng.uniform(0.2, 0.9, len(f))
+        frames.append(f)
+    frames.append(frames[0].drop(frames[0].index[100:140]))  # a gap: its own index
+    cases = [(f, t, tz) for f in frames for t in (tou, pf) for tz in ("Europe/Berlin", "America/Chicago")]
+    kept = [audit(f, t, tz=tz, interval_minutes=15).to_dict() for f, t, tz in cases]
+    assert len(audit_module._shared) > 0
+    for (f, t, tz), got in zip(cases, kept, strict=True):
+        audit_module._shared.clear()
+        assert audit(f, t, tz=tz, interval_minutes=15).to_dict() == got
