@@ -106,7 +106,11 @@ def auditor_cmd(*args: str) -> list[str]:
 
 
 def env_for(url: str) -> dict:
-    return dict(os.environ, AUDITOR_DB_URL=url)
+    """The command's environment: the database, and byte-code caching as an installed package
+    has it (a shell that sets PYTHONDONTWRITEBYTECODE would compile every module at each start)."""
+    env = dict(os.environ, AUDITOR_DB_URL=url)
+    env.pop("PYTHONDONTWRITEBYTECODE", None)
+    return env
 
 
 # --------------------------------------------------------------------------------------------

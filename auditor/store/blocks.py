@@ -119,7 +119,7 @@ def unpack(rows: list[tuple], interval_minutes: int, start_utc: int | None = Non
     start = (starts[:, None] + np.arange(BLOCK, dtype=np.int64) * step).ravel()
     # which slots to keep: those holding an interval (every slot when no block has flags) in range
     flag_col = cols[1 + nq]
-    if any(x is not None for x in flag_col):
+    if flag_col.count(None) < nb:  # tuple.count runs in C
         flags = np.frombuffer(b"".join(x if x is not None else _PRESENT_BLOCK for x in flag_col), _I2)
         keep = flags != ABSENT
     else:
@@ -136,12 +136,12 @@ def unpack(rows: list[tuple], interval_minutes: int, start_utc: int | None = Non
     values = {}
     for i, q in enumerate(QUANTITIES):
         col = cols[1 + i]
-        if all(x is None for x in col):  # a quantity the meter does not record: no bytes to join
+        if col.count(None) == nb:  # a quantity the meter does not record: no bytes to join
             values[q] = np.full(n, np.nan)
         else:
             values[q] = take(np.frombuffer(b"".join(x if x is not None else _NAN_BLOCK for x in col), _F8))
     batch_of_block = np.fromiter(cols[2 + nq], dtype=np.int64, count=nb)
-    if any(x is not None for x in cols[3 + nq]):
+    if cols[3 + nq].count(None) < nb:
         batch = np.frombuffer(b"".join(x if x is not None else np.full(BLOCK, b0, _I4).tobytes()
                                        for x, b0 in zip(cols[3 + nq], batch_of_block, strict=True)), _I4)
     else:

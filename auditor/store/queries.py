@@ -153,20 +153,22 @@ def _read_blocks(conn, meter: Meter, start_utc: int | None, end_utc: int | None)
     finally:
         cur.close()
     iv = unpack(rows, minutes, start_utc, end_utc)
-    vals = np.column_stack([iv.values[q] for q in QUANTITIES]) if len(iv.start) else np.empty((0, len(QUANTITIES)))
-    return _frame(iv.start, vals, iv.flags.astype(np.int64), meter.multiplier)
+    return _frame(iv.start, iv.values, iv.flags.astype(np.int64), meter.multiplier)
 
 
 def _frame(start, vals, flags, multiplier: float = 1.0) -> pd.DataFrame:
+    """The interval frame from starts, values (an (n, 4) array or one array per quantity) and flags."""
     import numpy as np  # here, not at the top: listing meters does without them
     import pandas as pd
 
-    vals = np.asarray(vals, dtype=np.float64) * multiplier
-    vals[np.isnan(vals)] = 0.0  # an absent value counts as zero energy
+    columns = {}
+    for i, q in enumerate(QUANTITIES):
+        v = (vals[q] if isinstance(vals, dict) else vals[:, i]) * multiplier  # a new array
+        v[np.isnan(v)] = 0.0  # an absent value counts as zero energy
+        columns[q] = v
+    columns["estimated"] = (flags & (FLAG_ESTIMATED | FLAG_FILLED)) != 0
     index = pd.DatetimeIndex(pd.to_datetime(start, unit="s", utc=True), name="start")
-    frame = pd.DataFrame({q: vals[:, i] for i, q in enumerate(QUANTITIES)}, index=index, copy=False)
-    frame["estimated"] = (flags & (FLAG_ESTIMATED | FLAG_FILLED)) != 0
-    return frame
+    return pd.DataFrame(columns, index=index, copy=False)
 
 
 def interval_frame(rows: list[tuple], multiplier: float = 1.0) -> pd.DataFrame:
