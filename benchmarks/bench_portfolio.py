@@ -368,6 +368,9 @@ def main() -> None:
     ap.add_argument("--page-repeat", type=int, default=11, help="warm portfolio requests (median)")
     ap.add_argument("--no-import-timing", action="store_true",
                     help="reuse the imported SQLite database of an earlier run (skip the import and floor timing)")
+    ap.add_argument("--layouts", nargs="+", choices=("rows", "blocks"), default=["rows", "blocks"],
+                    help="SQLite layouts to run audit --all on (default both)")
+    ap.add_argument("--no-page", action="store_true", help="skip the portfolio page")
     ap.add_argument("--pg", metavar="URL", help="also measure on this PostgreSQL server")
     ap.add_argument("--pg-meters", type=int, nargs="+", help="sizes to measure on PostgreSQL (default: --meters)")
     ap.add_argument("--floor")
@@ -394,12 +397,13 @@ def main() -> None:
         duck.close()
         r["bytes_per_meter_year"] = {"sqlite": sqlite_bytes(db) / n, "duckdb": duck_path.stat().st_size / n}
         print(f"  reference engine monthly figures: {r['duckdb_s']:.2f} s ({r['duckdb_cpu_s']:.2f} CPU s)", flush=True)
-        r["split_rows"] = read_and_compute(url, n)
-        r["audit_rows"] = audit_all(url, work, f"rows{n}", a.repeat, reference)
-        ar = r["audit_rows"]
-        print(f"  audit --all (rows): {ar['median_s']:.1f} s, {fmt_ratio(ar['median_s'], r['duckdb_s'])} the reference; "
-              f"{ar['cpu_s']:.1f} CPU s, {fmt_ratio(ar['cpu_s'], r['duckdb_cpu_s'])} its CPU; cores {100 * ar['cpu_busy']:.0f} % "
-              f"busy; figures: {ar['check']}", flush=True)
+        if "rows" in a.layouts:
+            r["split_rows"] = read_and_compute(url, n)
+            r["audit_rows"] = audit_all(url, work, f"rows{n}", a.repeat, reference)
+            ar = r["audit_rows"]
+            print(f"  audit --all (rows): {ar['median_s']:.1f} s, {fmt_ratio(ar['median_s'], r['duckdb_s'])} the reference; "
+                  f"{ar['cpu_s']:.1f} CPU s, {fmt_ratio(ar['cpu_s'], r['duckdb_cpu_s'])} its CPU; cores "
+                  f"{100 * ar['cpu_busy']:.0f} % busy; figures: {ar['check']}", flush=True)
         bdb = work / f"blocks{n}.sqlite3"
         if not bdb.exists() or bdb.stat().st_mtime < db.stat().st_mtime:
             t0 = time.perf_counter()
@@ -407,23 +411,25 @@ def main() -> None:
             r["blocks_build_s"] = time.perf_counter() - t0
         burl = f"sqlite:///{bdb}"
         r["bytes_per_meter_year"]["sqlite_blocks"] = sqlite_bytes(bdb) / n
-        r["split_blocks"] = read_and_compute(burl, n)
-        r["audit_blocks"] = audit_all(burl, work, f"blocks{n}", a.repeat, reference)
-        ab = r["audit_blocks"]
-        print(f"  audit --all (blocks): {ab['median_s']:.1f} s, {fmt_ratio(ab['median_s'], r['duckdb_s'])} the reference; "
-              f"{ab['cpu_s']:.1f} CPU s, {fmt_ratio(ab['cpu_s'], r['duckdb_cpu_s'])} its CPU; cores {100 * ab['cpu_busy']:.0f} % "
-              f"busy; figures: {ab['check']}", flush=True)
-        page_db = work / f"page{n}.sqlite3"  # the page step imports a revision: on a copy
-        for x in work.glob(f"page{n}.sqlite3*"):
-            x.unlink()
-        shutil.copyfile(db, page_db)
-        r["page"] = page_times(f"sqlite:///{page_db}", work, a.page_repeat)
-        for x in work.glob(f"page{n}.sqlite3*"):
-            x.unlink()
-        p = r["page"]
-        print(f"  portfolio page: cold {p['cold_s']:.1f} s, warm {p['warm_ms']:.0f} ms "
-              f"({fmt_ratio(p['warm_ms'], PAGE_BUDGET_MS)} the budget), after a one-meter import "
-              f"{p['after_import_s']:.2f} s ({p['recomputed']} meter audited again)", flush=True)
+        if "blocks" in a.layouts:
+            r["split_blocks"] = read_and_compute(burl, n)
+            r["audit_blocks"] = audit_all(burl, work, f"blocks{n}", a.repeat, reference)
+            ab = r["audit_blocks"]
+            print(f"  audit --all (blocks): {ab['median_s']:.1f} s, {fmt_ratio(ab['median_s'], r['duckdb_s'])} the reference; "
+                  f"{ab['cpu_s']:.1f} CPU s, {fmt_ratio(ab['cpu_s'], r['duckdb_cpu_s'])} its CPU; cores "
+                  f"{100 * ab['cpu_busy']:.0f} % busy; figures: {ab['check']}", flush=True)
+        if not a.no_page:
+            page_db = work / f"page{n}.sqlite3"  # the page step imports a revision: on a copy
+            for x in work.glob(f"page{n}.sqlite3*"):
+                x.unlink()
+            shutil.copyfile(db, page_db)
+            r["page"] = page_times(f"sqlite:///{page_db}", work, a.page_repeat)
+            for x in work.glob(f"page{n}.sqlite3*"):
+                x.unlink()
+            p = r["page"]
+            print(f"  portfolio page: cold {p['cold_s']:.1f} s, warm {p['warm_ms']:.0f} ms "
+                  f"({fmt_ratio(p['warm_ms'], PAGE_BUDGET_MS)} the budget), after a one-meter import "
+                  f"{p['after_import_s']:.2f} s ({p['recomputed']} meter audited again)", flush=True)
         if a.pg and n in (a.pg_meters or a.meters):
             schema, purl = pg_schema(a.pg)
             try:
@@ -444,28 +450,28 @@ def main() -> None:
         results.append(r)
 
     print("\n== side by side ==")
-    head = (f"{'meter-years':>11} {'import s':>9} {'floor s':>8} {'ratio':>6} {'peak MB':>8} {'floor MB':>8} "
-            f"{'ref s':>6} {'rows s':>7} {'ratio':>6} {'blocks s':>8} {'ratio':>6} {'cpu×':>5} {'busy':>5} "
-            f"{'page cold s':>11} {'warm ms':>8} {'MB/my':>6} {'blocks':>6} {'ref':>5}")
-    print(head)
+    nan = float("nan")
+    print(f"{'meter-years':>11} {'import s':>9} {'floor s':>8} {'ratio':>6} {'peak MB':>8} {'floor MB':>8} "
+          f"{'ref s':>6} {'rows s':>7} {'ratio':>6} {'blocks s':>8} {'ratio':>6} {'cpu×':>5} "
+          f"{'page cold s':>11} {'warm ms':>8} {'MB/my':>6} {'blocks':>6} {'ref':>5}")
     for r in results:
         i, b = r["import"], r["bytes_per_meter_year"]
-        print(f"{r['meter_years']:>11} {i.get('auditor_s', float('nan')):>9.1f} {i.get('floor_s', float('nan')):>8.1f} "
-              f"{i.get('auditor_s', float('nan')) / i.get('floor_s', float('nan')):>6.2f} "
-              f"{i.get('auditor_mb', float('nan')):>8.0f} {i.get('floor_mb', float('nan')):>8.0f} "
-              f"{r['duckdb_s']:>6.2f} {r['audit_rows']['median_s']:>7.1f} {r['audit_rows']['median_s'] / r['duckdb_s']:>6.1f} "
-              f"{r['audit_blocks']['median_s']:>8.1f} {r['audit_blocks']['median_s'] / r['duckdb_s']:>6.1f} "
-              f"{r['audit_blocks']['cpu_s'] / r['duckdb_cpu_s']:>5.1f} "
-              f"{100 * r['audit_blocks']['cpu_busy']:>4.0f}% {r['page']['cold_s']:>11.1f} {r['page']['warm_ms']:>8.0f} "
-              f"{b['sqlite'] / 1e6:>6.2f} {b['sqlite_blocks'] / 1e6:>6.2f} {b['duckdb'] / 1e6:>5.2f}")
+        rows, blocks, page = r.get("audit_rows", {}), r.get("audit_blocks", {}), r.get("page", {})
+        print(f"{r['meter_years']:>11} {i.get('auditor_s', nan):>9.1f} {i.get('floor_s', nan):>8.1f} "
+              f"{i.get('auditor_s', nan) / i.get('floor_s', nan):>6.2f} {i.get('auditor_mb', nan):>8.0f} "
+              f"{i.get('floor_mb', nan):>8.0f} {r['duckdb_s']:>6.2f} {rows.get('median_s', nan):>7.1f} "
+              f"{rows.get('median_s', nan) / r['duckdb_s']:>6.1f} {blocks.get('median_s', nan):>8.1f} "
+              f"{blocks.get('median_s', nan) / r['duckdb_s']:>6.1f} {blocks.get('cpu_s', nan) / r['duckdb_cpu_s']:>5.1f} "
+              f"{page.get('cold_s', nan):>11.1f} {page.get('warm_ms', nan):>8.0f} {b['sqlite'] / 1e6:>6.2f} "
+              f"{b['sqlite_blocks'] / 1e6:>6.2f} {b['duckdb'] / 1e6:>5.2f}")
     print("\nper meter-year in one process (CPU ms): read / compute")
     for r in results:
-        s, k = r["split_rows"], r["split_blocks"]
-        line = (f"  {r['meter_years']:>4}: rows {s['read_ms']:.1f} / {s['compute_ms']:.1f}; "
-                f"blocks {k['read_ms']:.1f} / {k['compute_ms']:.1f}")
+        parts = [f"{name} {r[key]['read_ms']:.1f} / {r[key]['compute_ms']:.1f}"
+                 for name, key in (("rows", "split_rows"), ("blocks", "split_blocks")) if key in r]
         if "postgresql" in r:
-            line += f"; PostgreSQL rows {r['postgresql']['split']['read_ms']:.1f} / {r['postgresql']['split']['compute_ms']:.1f}"
-        print(line)
+            parts.append(f"PostgreSQL rows {r['postgresql']['split']['read_ms']:.1f} / "
+                         f"{r['postgresql']['split']['compute_ms']:.1f}")
+        print(f"  {r['meter_years']:>4}: " + "; ".join(parts))
     print(json.dumps(results, default=float))
 
 

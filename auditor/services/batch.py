@@ -173,9 +173,16 @@ def _audit_one(store: Store, meter: str, tariff: Tariff | str, options: dict) ->
         return MeterOutcome(meter, error=f"internal error: {type(exc).__name__}: {exc}", internal=True)
 
 
-def _audit_in_worker(meter: str, tariff: Tariff | str, options: dict) -> MeterOutcome:
+def _audit_in_worker(work: list[tuple[str, Tariff | str]], options: dict) -> list[MeterOutcome]:
+    """A few meters per task: one message each way for all of them, and a tariff shared by
+    them travels once (pickle keeps one copy of an object within a message)."""
     assert _worker_store is not None
-    return _audit_one(_worker_store, meter, tariff, options)
+    return [_audit_one(_worker_store, meter, tariff, options) for meter, tariff in work]
+
+
+def _chunks(meters: list[str], workers: int) -> list[list[str]]:
+    size = max(1, min(16, len(meters) // (workers * 4)))
+    return [meters[i:i + size] for i in range(0, len(meters), size)]
 
 
 def _pool_context(store: Store):
@@ -233,16 +240,18 @@ def audit_meters(store: Store, meters: list[str], tariff_for: TariffFor, *, work
         try:
             with ProcessPoolExecutor(max_workers=workers, mp_context=_pool_context(store), initializer=_init_worker,
                                      initargs=(store.url,)) as pool:
-                futures = {pool.submit(_audit_in_worker, m, tariffs[m], options): m for m in meters}
+                futures = {pool.submit(_audit_in_worker, [(m, tariffs[m]) for m in chunk], options): chunk
+                           for chunk in _chunks(meters, workers)}
                 for f in as_completed(futures):
-                    m = futures[f]
                     try:
-                        finish(m, f.result())
+                        outcomes = f.result()
                     except BrokenProcessPool:
                         raise
-                    except Exception as exc:  # the task itself failed to travel: the meter fails
-                        finish(m, MeterOutcome(m, error=f"internal error: {type(exc).__name__}: {exc}",
-                                               internal=True))
+                    except Exception as exc:  # the task itself failed to travel: its meters fail
+                        outcomes = [MeterOutcome(m, error=f"internal error: {type(exc).__name__}: {exc}", internal=True)
+                                    for m in futures[f]]
+                    for o in outcomes:
+                        finish(o.meter, o)
         except BrokenProcessPool:
             # a worker died (killed, out of memory, or could not start): the meters left are
             # audited here, one after the other
