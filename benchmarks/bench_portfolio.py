@@ -371,6 +371,7 @@ def main() -> None:
     ap.add_argument("--layouts", nargs="+", choices=("rows", "blocks"), default=["rows", "blocks"],
                     help="SQLite layouts to run audit --all on (default both)")
     ap.add_argument("--no-page", action="store_true", help="skip the portfolio page")
+    ap.add_argument("--import-only", action="store_true", help="measure only the import against the floor")
     ap.add_argument("--pg", metavar="URL", help="also measure on this PostgreSQL server")
     ap.add_argument("--pg-meters", type=int, nargs="+", help="sizes to measure on PostgreSQL (default: --meters)")
     ap.add_argument("--floor")
@@ -391,6 +392,11 @@ def main() -> None:
         if imp.get("floor_s"):
             print(f"  import: floor {imp['floor_s']:.1f} s / {imp['floor_mb']:.0f} MB; auditor {imp['auditor_s']:.1f} s "
                   f"/ {imp['auditor_mb']:.0f} MB ({fmt_ratio(imp['auditor_s'], imp['floor_s'])} the floor)", flush=True)
+        if a.import_only:
+            r["bytes_per_meter_year"] = {"sqlite": sqlite_bytes(db) / n}
+            print(f"  database: {r['bytes_per_meter_year']['sqlite'] / 1e6:.2f} MB per meter-year", flush=True)
+            results.append(r)
+            continue
         url = f"sqlite:///{db}"
         duck, duck_path = duck_table(work, csv, n)
         r["duckdb_s"], r["duckdb_cpu_s"], reference = duck_monthly(duck, a.repeat)
@@ -449,6 +455,9 @@ def main() -> None:
                 pg_drop(a.pg, schema)
         results.append(r)
 
+    if a.import_only:
+        print(json.dumps(results, default=float))
+        return
     print("\n== side by side ==")
     nan = float("nan")
     print(f"{'meter-years':>11} {'import s':>9} {'floor s':>8} {'ratio':>6} {'peak MB':>8} {'floor MB':>8} "
