@@ -41,7 +41,7 @@ def read_intervals(session: Session, meter: Meter, start_utc: int | None = None,
 
     No Python object per interval where the driver allows it: the block layout
     (:mod:`auditor.store.blocks`, used when the store has ``reading_block``) reads one row per
-    block; PostgreSQL streams the rows as binary ``COPY``, parsed by numpy in one piece; SQLite
+    block; PostgreSQL sends each column packed into one ``bytea``, which numpy reads whole; SQLite
     rows come through the driver's own cursor (SQLAlchemy's per-row processing skipped) into
     one flat numpy array.
     """
@@ -50,11 +50,11 @@ def read_intervals(session: Session, meter: Meter, start_utc: int | None = None,
         return _read_blocks(conn, meter, start_utc, end_utc)
     where, params = _range_where(conn, meter, start_utc, end_utc)
     # COALESCE keeps NULLs (absent channels) out of the rows: numpy converts every value in C,
-    # and on PostgreSQL every binary row has the same length.
+    # and on PostgreSQL every packed value has the same length.
     cols = ", ".join(f"COALESCE({q}, 0)" for q in QUANTITIES)
     sql = f"SELECT start, {cols}, flags FROM reading WHERE {where} ORDER BY start"
     if conn.dialect.name == "postgresql":
-        start, vals, flags = _read_pg_copy(conn, sql, params)
+        start, vals, flags = _read_pg_packed(conn, sql, params)
     else:
         start, vals, flags = _read_rows(conn, sql, params)
     return _frame(start, vals, flags, meter.multiplier)
@@ -91,30 +91,38 @@ def _read_rows(conn, sql: str, params: list):
     return arr[:, 0].astype(np.int64), arr[:, 1:1 + len(QUANTITIES)], arr[:, -1].astype(np.int64)
 
 
-def _read_pg_copy(conn, sql: str, params: list):
-    """Rows of ``sql`` (int8 start, float8 quantities, int2 flags, never NULL) through
-    PostgreSQL's binary ``COPY ... TO STDOUT``, parsed as one numpy record array.
+def _read_pg_packed(conn, sql: str, params: list):
+    """Rows of ``sql`` (int8 start, float8 quantities, int2 flags, never NULL) as one packed
+    ``bytea`` per column: the server concatenates each value's binary form (``int8send``,
+    ``float8send``, ``int2send``) with ``string_agg``, and numpy reads each column in one piece
+    (big-endian, PostgreSQL's binary format). The client builds no object per row; binary
+    ``COPY`` would, since the driver hands over one message per row.
 
-    Each row is an int16 field count, then per field an int32 length and the big-endian value;
-    the stream starts with an 11-byte signature, int32 flags and an int32 header-extension
-    length, and ends with the int16 -1 (PostgreSQL documentation, "COPY", "Binary Format").
+    The aggregates read a subquery sorted by start, which PostgreSQL's documentation says
+    "usually" keeps the order; the starts are checked and the arrays sorted if it did not.
     """
     import numpy as np
 
+    n = len(QUANTITIES)
+    names = ["start", *[f"q{i}" for i in range(n)], "flags"]
+    inner = sql.replace(f"SELECT start, {', '.join(f'COALESCE({q}, 0)' for q in QUANTITIES)}, flags",
+                        "SELECT start, " + ", ".join(f"COALESCE({q}, 0) AS q{i}" for i, q in enumerate(QUANTITIES))
+                        + ", flags", 1)
+    send = {"start": "int8send", "flags": "int2send"}
+    packed = ", ".join(f"string_agg({send.get(c, 'float8send')}({c}), ''::bytea)" for c in names)
     raw = conn.connection.driver_connection
-    with raw.cursor() as cur:
-        with cur.copy(f"COPY ({sql}) TO STDOUT (FORMAT BINARY)", params) as copy:
-            data = b"".join(bytes(block) for block in copy)
-    ext = int.from_bytes(data[15:19], "big")
-    body = memoryview(data)[19 + ext:len(data) - 2]
-    fields = [("n", ">i2"), ("l0", ">i4"), ("start", ">i8")]
-    for i, _ in enumerate(QUANTITIES):
-        fields += [(f"l{i + 1}", ">i4"), (f"q{i}", ">f8")]
-    fields += [("lf", ">i4"), ("flags", ">i2")]
-    rec = np.frombuffer(body, dtype=np.dtype(fields))
-    vals = np.column_stack([rec[f"q{i}"].astype(np.float64) for i in range(len(QUANTITIES))]) if len(rec) \
-        else np.empty((0, len(QUANTITIES)))
-    return rec["start"].astype(np.int64), vals, rec["flags"].astype(np.int64)
+    with raw.cursor(binary=True) as cur:
+        cur.execute(f"SELECT {packed} FROM ({inner}) AS rows_in_order", params)
+        row = cur.fetchone()
+    if row is None or row[0] is None:
+        return np.empty(0, np.int64), np.empty((0, n)), np.empty(0, np.int64)
+    start = np.frombuffer(row[0], ">i8").astype(np.int64)
+    vals = np.column_stack([np.frombuffer(row[1 + i], ">f8") for i in range(n)]).astype(np.float64)
+    flags = np.frombuffer(row[-1], ">i2").astype(np.int64)
+    if len(start) > 1 and not (np.diff(start) > 0).all():
+        order = np.argsort(start, kind="stable")
+        start, vals, flags = start[order], vals[order], flags[order]
+    return start, vals, flags
 
 
 def has_blocks(conn) -> bool:
