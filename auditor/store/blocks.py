@@ -136,10 +136,12 @@ def unpack(rows: list[tuple], interval_minutes: int, start_utc: int | None = Non
     values = {}
     for i, q in enumerate(QUANTITIES):
         col = cols[1 + i]
-        if col.count(None) == nb:  # a quantity the meter does not record: no bytes to join
+        missing = col.count(None)
+        if missing == nb:  # a quantity the meter does not record: no bytes to join
             values[q] = np.full(n, np.nan)
         else:
-            values[q] = take(np.frombuffer(b"".join(x if x is not None else _NAN_BLOCK for x in col), _F8))
+            parts = col if not missing else [x if x is not None else _NAN_BLOCK for x in col]
+            values[q] = take(np.frombuffer(b"".join(parts), _F8))
     batch_of_block = np.fromiter(cols[2 + nq], dtype=np.int64, count=nb)
     if cols[3 + nq].count(None) < nb:
         batch = np.frombuffer(b"".join(x if x is not None else np.full(BLOCK, b0, _I4).tobytes()
