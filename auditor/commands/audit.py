@@ -132,7 +132,10 @@ def _many_meters(ctx: Context, meters: list[str], all_meters: bool, site: str | 
     tariff_for = same_tariff(tariff)
     names = select_meters(ctx.store, all_meters=all_meters, site=site, meters=meters)
     if not names:
-        raise click.UsageError(f"site {site!r} has no meters" if site else "the database has no meters")
+        from auditor.errors import NotFoundError
+
+        raise NotFoundError(f"site {site!r} has no meters" if site else "the database has no meters",
+                            cli_hint=None if site else "auditor import FILE")
     bar = None
     if not ctx.quiet and sys.stderr.isatty():
         bar = click.progressbar(length=len(names), label="auditing", file=sys.stderr, show_pos=True, show_eta=True)

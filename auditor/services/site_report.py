@@ -7,7 +7,7 @@ from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
 
-from auditor.errors import UsageError
+from auditor.errors import NotFoundError, UsageError
 from auditor.services.batch import BatchAudit, audit_meters, same_tariff, select_meters
 from auditor.store import Store
 from auditor.tariffs import Tariff
@@ -49,7 +49,7 @@ def build_site_report(store: Store, site: str, tariff: str | Path | Tariff, *, w
     tariff_for = same_tariff(tariff)
     meters = select_meters(store, site=site)
     if not meters:
-        raise UsageError(f"site {site!r} has no meters")
+        raise NotFoundError(f"site {site!r} has no meters")
     batch = audit_meters(store, meters, tariff_for, workers=workers)
     return SiteReport(site=site, tariff_name=tariff_for(meters[0]).name,
                       generated_at=datetime.now(UTC).isoformat(timespec="seconds"), batch=batch)
