@@ -11,6 +11,8 @@ figures themselves come from :mod:`auditor.quantities` (one copy, shared with
 from __future__ import annotations
 
 import math
+import threading
+from collections import OrderedDict
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from datetime import date
@@ -467,20 +469,72 @@ class _Selected:
     kvarh_lag: np.ndarray
     kvarh_lead: np.ndarray
     estimated: np.ndarray
+    shared_key: tuple | None = None  # set when the index is one other meters may share
+
+
+# Meters audited one after another usually share their interval index (a year of 15-minute
+# intervals without gaps) and their billing periods: what depends only on those — which
+# intervals fall in which period, their local calendar, the tariff's window masks — is kept
+# for the last few such indexes. A regular index (no gaps) is known by its first start and
+# length; any other index is computed afresh.
+_SHARED_MAX = 8
+_shared: OrderedDict = OrderedDict()
+_shared_lock = threading.Lock()
+
+
+def _regular_index_key(index: pd.DatetimeIndex, interval_minutes: int) -> tuple | None:
+    n = len(index)
+    if n < 2:
+        return None
+    seconds = index.as_unit("s").asi8
+    if int(seconds[-1] - seconds[0]) != (n - 1) * interval_minutes * 60:
+        return None  # gaps: this meter's own index
+    return (int(seconds[0]), n, int(interval_minutes))
+
+
+def _read_only(value):
+    """Shared arrays are frozen, so that no caller can change another meter's audit."""
+    for a in value if isinstance(value, tuple) else (value,):
+        if isinstance(a, np.ndarray):
+            a.flags.writeable = False
+    return value
+
+
+def _shared_value(key: tuple | None, make):
+    if key is None:
+        return make()
+    with _shared_lock:
+        if key in _shared:
+            _shared.move_to_end(key)
+            return _shared[key]
+    value = _read_only(make())
+    with _shared_lock:
+        _shared[key] = value
+        while len(_shared) > _SHARED_MAX:
+            _shared.popitem(last=False)
+    return value
 
 
 def _select_intervals(frame: pd.DataFrame, ps: list[BillingPeriod], tz: str, interval_minutes: int) -> _Selected:
     """Step 3: the intervals of the periods and their boundaries (period k is
     ``[bounds[k], bounds[k+1])``)."""
-    sel, bounds = segment_bounds(frame.index, ps, tz)
-    f = frame[sel]
-    index = f.index.tz_convert("UTC")
+    regular = _regular_index_key(frame.index, interval_minutes)
+
+    def positions():
+        sel, bounds = segment_bounds(frame.index, ps, tz)
+        index = frame.index[sel].tz_convert("UTC")
+        return sel, bounds, index, index.tz_convert(tz)
+
+    sel, bounds, index, local_index = _shared_value(
+        None if regular is None else ("select", regular, tz, tuple(ps)), positions)
+    f = frame if sel.all() else frame[sel]  # usually every interval is in some period: no copy
     kwh = f["kwh"].to_numpy(dtype=float)
     est = f["estimated"].to_numpy(dtype=bool) if "estimated" in f.columns else np.zeros(len(f), dtype=bool)
-    return _Selected(bounds=bounds, index=index, local_index=index.tz_convert(tz), kwh=kwh,
+    return _Selected(bounds=bounds, index=index, local_index=local_index, kwh=kwh,
                      kw=demand_from_energy(kwh, interval_minutes),
                      kvarh_lag=f["kvarh_lag"].to_numpy(dtype=float),
-                     kvarh_lead=f["kvarh_lead"].to_numpy(dtype=float), estimated=est)
+                     kvarh_lead=f["kvarh_lead"].to_numpy(dtype=float), estimated=est,
+                     shared_key=None if regular is None else (regular, tz, tuple(ps)))
 
 
 @dataclass(frozen=True, eq=False)
@@ -522,25 +576,35 @@ def _tariff_windows(tariff: Tariff, sel: _Selected, tz: str, interval_minutes: i
     """Step 5: kWh per energy window, and the local-time masks of the reactive clauses that
     count energy inside windows (:func:`auditor.tariffs.engine.mechanism_windows`)."""
     n = len(sel.bounds) - 1
-    cal = local_calendar(sel.index, tz, tariff.calendar)
-    e_idx = energy_window_index(tariff.energy, cal)
-    onehot = (e_idx[None, :] == np.arange(len(tariff.energy.windows) + 1)[:, None]).astype(float)
-    energy_kwh = segment_sum(onehot * sel.kwh, sel.bounds)
-    masks, rows = [], []
-    for m in tariff.reactive:
-        ws = mechanism_windows(m)
-        if ws:
-            mask = np.zeros(len(sel.index), dtype=bool)
-            for w in ws:
-                mask |= window_mask(w, cal)
-            rows.append(len(masks))
-            masks.append(mask.astype(float))
-        else:
-            rows.append(None)
-    window_masks = np.vstack(masks) if masks else np.zeros((0, len(sel.index)))
+
+    def calendar_parts():
+        cal = local_calendar(sel.index, tz, tariff.calendar)
+        masks, rows = [], []
+        for m in tariff.reactive:
+            ws = mechanism_windows(m)
+            if ws:
+                mask = np.zeros(len(sel.index), dtype=bool)
+                for w in ws:
+                    mask |= window_mask(w, cal)
+                rows.append(len(masks))
+                masks.append(mask.astype(float))
+            else:
+                rows.append(None)
+        return (tariff, energy_window_index(tariff.energy, cal), np.repeat(np.arange(n), np.diff(sel.bounds)),
+                np.vstack(masks) if masks else np.zeros((0, len(sel.index))), tuple(rows), cal)
+
+    key = None if sel.shared_key is None else ("windows", sel.shared_key, id(tariff))
+    parts = _shared_value(key, calendar_parts)
+    if parts[0] is not tariff:  # another tariff object took the same id: compute afresh
+        parts = calendar_parts()
+    _, e_idx, period_of, window_masks, rows, cal = parts
+    # kWh per (energy window, period) in one pass: bin = window × periods + period
+    energy_kwh = np.bincount(e_idx * n + period_of, weights=sel.kwh,
+                             minlength=(len(tariff.energy.windows) + 1) * n).reshape(-1, n)
+    masks = window_masks.shape[0]
     window_kwh = segment_sum(window_masks * sel.kwh, sel.bounds) if masks else np.zeros((0, n))
     plan = plan_intervals(tariff, cal, sel.bounds, interval_minutes, sel.kwh)
-    return _Windows(energy_kwh, window_masks, window_kwh, tuple(rows), plan)
+    return _Windows(energy_kwh, window_masks, window_kwh, rows, plan)
 
 
 def _coverage_and_warnings(frame: pd.DataFrame, ps: list[BillingPeriod], clipped: list[bool], tz: str,

@@ -16,6 +16,7 @@ References
 from __future__ import annotations
 
 import calendar
+import functools
 from collections.abc import Sequence
 from dataclasses import dataclass
 from datetime import date
@@ -341,6 +342,13 @@ def local_bounds_utc(dates: Sequence[date], tz: str) -> pd.DatetimeIndex:
     Where midnight itself does not exist locally (a few zones change clocks at 00:00) the day
     starts at the first existing instant; where it occurs twice, at the first occurrence.
     """
+    return _local_bounds_utc(tuple(dates), tz)
+
+
+@functools.lru_cache(maxsize=256)
+def _local_bounds_utc(dates: tuple[date, ...], tz: str) -> pd.DatetimeIndex:
+    # cached: every meter audited over the same billing periods asks for the same instants
+    # (pandas indexes are immutable, so sharing one is safe)
     naive = pd.DatetimeIndex(pd.to_datetime([pd.Timestamp(d) for d in dates]))
     local = naive.tz_localize(tz, ambiguous=np.ones(len(naive), dtype=bool), nonexistent="shift_forward")
     return local.tz_convert("UTC")

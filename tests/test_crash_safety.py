@@ -85,7 +85,8 @@ def _reset(url: str) -> None:
     store = open_store(url)
     try:
         with store.engine.begin() as c:
-            for t in ("reading_revision", "reading", "quality_flag", "channel", "meter", "site", "import_batch"):
+            for t in ("reading_revision", "reading", "quality_flag", "channel", "meter_summary", "meter_data", "meter",
+                      "site", "import_batch"):
                 c.exec_driver_sql(f"DELETE FROM {t}")
     finally:
         store.dispose()

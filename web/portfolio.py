@@ -5,30 +5,30 @@ from importlib import resources
 
 from flask import Blueprint, render_template, request, send_file
 
-from auditor.services.portfolio import portfolio_summary, tariff_threshold_pf
+from auditor.services.portfolio import portfolio_page, tariff_threshold_pf
 from auditor.web.helpers import chosen_tariff, store, tariff_choices
 
 bp = Blueprint("portfolio", __name__)
+
+
+PER_PAGE = 50
 
 
 @bp.get("/")
 def index():
     name, tariff = chosen_tariff()
     # without a tariff asked for, each meter with a tariff of its own is audited under it
-    rows = portfolio_summary(store(), tariff, own_tariffs=not request.args.get("tariff"))
-    totals = {
-        "meters": len(rows),
-        "sites": len({r["site"] for r in rows}),
-        "reactive_12m": sum(r["reactive_12m"] or 0.0 for r in rows if r["currency"] == tariff.currency),
-        "other_currency": sum(1 for r in rows if r["currency"] != tariff.currency),
-        "savings": sum(r["best"]["annual_savings"] for r in rows
-                       if r["best"] and (r["best"]["npv"] or 0) > 0 and r["best"]["tariff"] == tariff.name),
-    }
+    asked = bool(request.args.get("tariff"))
+    page = portfolio_page(store(), tariff, query=request.args.get("q", ""), site=request.args.get("site") or None,
+                          page=request.args.get("page", 1, type=int) or 1,
+                          per_page=request.args.get("per_page", PER_PAGE, type=int) or PER_PAGE,
+                          own_tariffs=not asked)
     from auditor.web.alerts import portfolio_badges
 
-    return render_template("portfolio.html", rows=rows, totals=totals, tariff=tariff, tariff_name=name,
-                           tariffs=tariff_choices(), thresholds=tariff_threshold_pf(tariff),
-                           alerts=portfolio_badges())
+    return render_template("portfolio.html", rows=page.rows, totals=page.totals, listing=page,
+                           per_page_arg=page.per_page if page.per_page != PER_PAGE else None, tariff=tariff,
+                           tariff_name=name, tariff_asked=name if asked else None, tariffs=tariff_choices(),
+                           thresholds=tariff_threshold_pf(tariff), alerts=portfolio_badges())
 
 
 @bp.get("/vendor/plotly.min.js")

@@ -33,8 +33,8 @@ def timezone_option(help: str):
     return click.option("--timezone", "tz", metavar="TZ", callback=_check_timezone, help=help)
 
 
-def meter_option(help: str = "Meter id as imported.", required: bool = True):
-    return click.option("--meter", "meter", required=required, metavar="M", help=help)
+def meter_option(help: str = "Meter id as imported.", required: bool = True, multiple: bool = False):
+    return click.option("--meter", "meter", required=required, metavar="M", help=help, multiple=multiple)
 
 
 def tariff_option(required: bool = True, help: str = "Tariff TOML file (or the name of a shipped example)."):

@@ -15,6 +15,9 @@ SUFFIXES = (".html", ".htm", ".pdf", ".xlsx", ".csv")
 
 @click.command("report")
 @meter_option(required=False, help="Meter id as imported (not needed with --scenario).")
+@click.option("--site", metavar="NAME",
+              help="Write the site's portfolio instead: every meter of site NAME audited, one row per meter "
+                   "(.html or .csv).")
 @tariff_option(required=False, help="Tariff TOML file or a shipped example's name "
                                     "(default with --scenario: the tariff stored with the scenario).")
 @click.option("--scenario", metavar="NAME", help="The saved scenario NAME (auditor size --save NAME): the case document.")
@@ -25,14 +28,19 @@ SUFFIXES = (".html", ".htm", ".pdf", ".xlsx", ".csv")
               help="Paper size of the printed document (.html print stylesheet and .pdf).")
 @cover_options
 @pass_ctx
-def report_cmd(ctx: Context, meter: str | None, tariff: str | None, scenario: str | None, out: Path,
-               paper: str, **kwargs):
-    """Write the case document of a saved scenario (or the audit report of a meter)."""
+def report_cmd(ctx: Context, meter: str | None, site: str | None, tariff: str | None, scenario: str | None,
+               out: Path, paper: str, **kwargs):
+    """Write the case document of a saved scenario, the audit report of a meter, or with --site
+    the portfolio of a site's meters."""
     from dataclasses import replace
 
     from auditor.services import report as rp
 
+    if meter and site:
+        raise click.UsageError("give either --meter M or --site NAME")
     cover = cover_of(kwargs)
+    if site is not None:
+        return _site_report(ctx, site, tariff, scenario, out, cover)
     if out.suffix.lower() not in SUFFIXES:
         raise click.BadParameter(f"{out.name}: the file name must end in .html, .pdf, .xlsx or .csv",
                                  param_hint="--out")
@@ -46,8 +54,12 @@ def report_cmd(ctx: Context, meter: str | None, tariff: str | None, scenario: st
         else:
             report = rp.build_case(ctx.store, scenario, tariff, with_profile=fmt in ("html", "pdf"))
     else:
-        if not meter or not tariff:
-            raise click.UsageError("give --scenario NAME (a saved case), or --meter M with --tariff FILE")
+        if not meter:
+            raise click.UsageError("give --scenario NAME (a saved case), --meter M or --site NAME")
+        if not tariff:  # the meter's own tariff (auditor meters set-tariff), or a usage error saying so
+            from auditor.services.meter_tariff import tariff_for_meter
+
+            tariff = tariff_for_meter(ctx.store, meter, None)
         report = rp.build_report(ctx.store, meter, tariff, with_profile=fmt in ("html", "pdf"))
         if cover:
             report = replace(report, cover=cover)
@@ -60,6 +72,25 @@ def _scenario_tariff(ctx: Context, scenario: str) -> str:
     from auditor.services.correction import get_scenario
 
     return get_scenario(ctx.store, scenario)["request"].get("tariff")
+
+
+def _site_report(ctx: Context, site: str, tariff: str | None, scenario: str | None, out: Path, cover: dict) -> int:
+    from auditor.services.site_report import SITE_FORMATS, write_site_report
+
+    if scenario or cover:
+        raise click.UsageError("--scenario and the cover options belong to a case document, not a site's portfolio")
+    if tariff is None:
+        raise click.UsageError("give --tariff FILE for the site's meters")
+    if out.suffix.lower().lstrip(".") not in (*SITE_FORMATS, "htm"):
+        raise click.BadParameter(f"{out.name}: a site report file name must end in .html or .csv", param_hint="--out")
+    path, report = write_site_report(ctx.store, site, tariff, out)
+    ctx.say(f"wrote {path} ({path.stat().st_size:,} bytes; {report.totals['audited']} of "
+            f"{report.totals['meters']} meters audited)")
+    for f in report.batch.failed:
+        click.echo(f"error: meter {f['meter']}: {f['error']}", err=True)
+    if report.batch.internal_error:
+        return 3
+    return 1 if report.batch.failed else 0
 
 
 commands = [report_cmd]

@@ -36,6 +36,7 @@ from auditor.ingest import readers
 from auditor.ingest.frame import ReadOptions, plausible_window
 from auditor.ingest.validate import DEFAULT_MAX_KW, MeterRows, check_meter_ids, validate_meter
 from auditor.store import Store
+from auditor.store.meter_data import record_write
 from auditor.store.models import QUANTITIES, Channel, ImportBatch, Meter, QualityFlag, Site
 from auditor.store.queries import now_utc
 from auditor.store.write import WriteCounts, import_session, write_meter
@@ -472,6 +473,9 @@ def _store(store: Store, path: Path, digest: str, mtime: float, info, part: Mete
             if c.older:
                 older = c
                 continue
+            # the meter's data version and span, in the same transaction (portfolio summaries)
+            record_write(conn, meter.id, batch.id, inserted=c.inserted, revised=c.revised,
+                         first_start=int(rows.start.min()), last_start=int(rows.start.max()))
             counts.add(c)
             _flags(s, meter, rows, c, batch.id)
         if older is not None:

@@ -59,8 +59,10 @@ def load_meter(store: Store, meter: str, start: date | None = None, end: date | 
     if start and end and end <= start:
         raise UsageError(f"the end date {end} must be after the start date {start}")
     with store.session() as s:
-        m = get_meter(s, meter)
-        site = m.site
+        row = s.execute(select(Meter, Site).join(Site).where(Meter.external_id == meter)).first()
+        if row is None:
+            get_meter(s, meter)  # raises the error that names the known meters
+        m, site = row  # one query for the meter and its site
         frame = read_intervals(s, m, _local_midnight_utc(start, site.timezone), _local_midnight_utc(end, site.timezone))
         return MeterData(m.external_id, site.name, site.timezone, m.interval_minutes or 15, m.multiplier,
                          site.nominal_voltage_v, site.transformer_kva, site.transformer_impedance_percent, frame)

@@ -320,3 +320,30 @@ class Notification(Base):
     alerts: Mapped[int] = mapped_column(Integer)
     status: Mapped[str] = mapped_column(String(16))  # sent, failed
     error: Mapped[str | None] = mapped_column(Text)
+# Per-meter data versions and portfolio summaries (kept so that hundreds of meters list fast)
+# --------------------------------------------------------------------------------------------
+class MeterData(Base):
+    """What a meter's stored readings are: their span, their count, and the import batch that
+    last changed them (the meter's *data version*). Written by the import in the same
+    transaction as the readings (:func:`auditor.store.meter_data.record_write`), so listing
+    meters and keeping portfolio summaries never scans ``reading``."""
+
+    __tablename__ = "meter_data"
+    meter_id: Mapped[int] = mapped_column(ForeignKey("meter.id"), primary_key=True)
+    data_batch_id: Mapped[int] = mapped_column(Integer)
+    first_start: Mapped[int] = mapped_column(BigInteger)  # UTC epoch seconds of the first interval
+    last_start: Mapped[int] = mapped_column(BigInteger)  # and of the last one
+    intervals: Mapped[int] = mapped_column(Integer)
+
+
+class MeterSummary(Base):
+    """One meter's audit summary under one tariff (the portfolio row and the batch table's
+    figures, as JSON), valid while ``data_key`` matches the meter's data version, multiplier,
+    interval and time zone; ``tariff_digest`` is the SHA-256 of the tariff's content."""
+
+    __tablename__ = "meter_summary"
+    meter_id: Mapped[int] = mapped_column(ForeignKey("meter.id"), primary_key=True)
+    tariff_digest: Mapped[str] = mapped_column(String(64), primary_key=True)
+    data_key: Mapped[str] = mapped_column(String(64))
+    summary: Mapped[str] = mapped_column(Text)
+    computed_at: Mapped[datetime] = mapped_column(DateTime(timezone=True))

@@ -36,6 +36,7 @@ References
 """
 from __future__ import annotations
 
+import functools
 from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 
@@ -112,27 +113,47 @@ def local_calendar(index_utc: pd.DatetimeIndex, tz: str, calendar: Calendar | No
     Public holidays come from the ``holidays`` library for the tariff's country and subdivision;
     without a calendar no day is a holiday.
     """
-    local = pd.DatetimeIndex(index_utc).tz_convert(tz)
+    # Wall-clock seconds once (pandas converts the whole index in C), then every feature by
+    # integer arithmetic: pandas' per-field accessors would each convert the index again.
+    local = pd.DatetimeIndex(index_utc).tz_convert(tz).tz_localize(None).as_unit("s").asi8
+    days = local // 86400
     holiday = np.zeros(len(local), dtype=bool)
-    if calendar is not None and len(local):
-        import holidays  # the trusted source of public holidays
-
-        years = range(int(local.year.min()), int(local.year.max()) + 1)
-        days = holidays.country_holidays(calendar.country, subdiv=calendar.subdivision, years=years)
-        if days:
-            hol = np.array(sorted(days.keys()), dtype="datetime64[D]")
-            local_days = local.tz_localize(None).to_numpy().astype("datetime64[D]")
-            holiday = np.isin(local_days, hol)
-    hour = local.hour.to_numpy(dtype=np.int16)
-    wall = local.tz_localize(None).as_unit("s").asi8 // 60 if len(local) else np.zeros(0, dtype=np.int64)
+    if not len(local):
+        empty = np.zeros(0, dtype=np.int8)
+        return LocalCalendar(weekday=empty, hour=empty, month=empty, holiday=holiday)
+    # per calendar day of the range (a few hundred), then gathered for every interval
+    first, last = int(days.min()), int(days.max())
+    day_range = np.arange(first, last + 1).astype("datetime64[D]")
+    month_of_day = (day_range.astype("datetime64[M]").astype(np.int64) % 12 + 1).astype(np.int8)
+    if calendar is not None:
+        years = (int(np.datetime64(first, "D").astype("datetime64[Y]").astype(int)) + 1970,
+                 int(np.datetime64(last, "D").astype("datetime64[Y]").astype(int)) + 1970)
+        hol = _holiday_days(calendar.country, calendar.subdivision, years)
+        if len(hol):
+            hol = hol[(hol >= first) & (hol <= last)]
+            lut = np.zeros(last - first + 1, dtype=bool)
+            lut[hol - first] = True
+            holiday = lut[days - first]
     return LocalCalendar(
-        weekday=local.day_of_week.to_numpy(dtype=np.int8),
-        hour=hour.astype(np.int8),
-        month=local.month.to_numpy(dtype=np.int8),
+        weekday=((days + 3) % 7).astype(np.int8),  # 1970-01-01 was a Thursday; Monday = 0
+        hour=((local // 3600) % 24).astype(np.int8),
+        month=month_of_day[days - first],
         holiday=holiday,
-        minute=(hour * 60 + local.minute.to_numpy(dtype=np.int16)).astype(np.int16),
-        wall_minutes=np.asarray(wall, dtype=np.int64),
+        minute=((local // 60) % 1440).astype(np.int16),
+        wall_minutes=local // 60,
     )
+
+
+@functools.lru_cache(maxsize=64)
+def _holiday_days(country: str, subdivision: str | None, years: tuple[int, int]) -> np.ndarray:
+    """Public holidays of the years ``years[0]..years[1]`` as days since 1970-01-01, from the
+    ``holidays`` library (the trusted source); cached, since every meter of a batch asks again."""
+    import holidays
+
+    found = holidays.country_holidays(country, subdiv=subdivision, years=range(years[0], years[1] + 1))
+    days = np.array(sorted(found.keys()), dtype="datetime64[D]").astype(np.int64)
+    days.flags.writeable = False
+    return days
 
 
 def window_mask(window: Window, cal: LocalCalendar) -> np.ndarray:
@@ -145,8 +166,13 @@ def window_mask(window: Window, cal: LocalCalendar) -> np.ndarray:
     weekday = cal.weekday
     if window.holidays == "as_sunday":
         weekday = np.where(cal.holiday, 6, weekday)
-    day_ok = np.isin(weekday, np.array(window.days, dtype=np.int8))
-    month_ok = np.isin(cal.month, np.array(window.months, dtype=np.int8))
+    # look-up tables: np.isin would sort the interval array for each window
+    day_lut = np.zeros(7, dtype=bool)
+    day_lut[list(window.days)] = True
+    month_lut = np.zeros(13, dtype=bool)
+    month_lut[list(window.months)] = True
+    day_ok = day_lut[weekday]
+    month_ok = month_lut[cal.month]
     m = cal.minute if len(cal.minute) == len(cal.hour) else cal.hour.astype(np.int16) * 60
     if window.start_minute < window.end_minute:
         time_ok = (m >= window.start_minute) & (m < window.end_minute)
