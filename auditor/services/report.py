@@ -142,18 +142,21 @@ def scenario_rows(case: dict) -> tuple[list[Column], list[list]]:
 
 
 def candidate_columns(cur: str) -> list[Column]:
+    """The optimiser's candidates, headline first (design, NPV, payback, screening), as the
+    dashboard shows them."""
     return [
         Column("Rank", lambda c: c["rank"], "int"),
         Column("Design", lambda c: c["label"]),
-        Column("Total (kvar)", lambda c: c["total_kvar"], "power"),
-        Column(f"Capex ({cur})", lambda c: c["capex"], "money"),
-        Column(f"Saving a year ({cur})", lambda c: c["annual_savings"], "money"),
         Column(f"NPV ({cur})", lambda c: c["npv"], "money"),
         Column("Payback (years)", lambda c: c["simple_payback_years"], "power"),
+        Column("Screening", lambda c: "passed" if c["passed_screening"] else
+               ("fails " + ", ".join(str(r).replace("_", " ") for r in c["failed_rules"])
+                if c.get("failed_rules") else "not passed")),
+        Column(f"Saving a year ({cur})", lambda c: c["annual_savings"], "money"),
+        Column(f"Capex ({cur})", lambda c: c["capex"], "money"),
+        Column("Total (kvar)", lambda c: c["total_kvar"], "power"),
         Column("PF after", lambda c: c["pf_after"], "pf"),
         Column("Resonance order h", lambda c: c.get("resonance_order"), "power"),
-        Column("Screening", lambda c: "passed" if c["passed_screening"] else
-               ("fails " + ", ".join(c["failed_rules"]) if c.get("failed_rules") else "not passed")),
     ]
 
 
