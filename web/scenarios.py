@@ -244,7 +244,7 @@ def index():
     return render_template("scenarios.html", saved=list_scenarios(store()), delete_form=DeleteForm())
 
 
-@bp.get("/scenarios/<path:name>")
+@bp.get("/scenarios/<scenario:name>")
 def show(name: str):
     saved = get_scenario(store(), name)
     form = _form()
@@ -252,6 +252,13 @@ def show(name: str):
     from auditor.web.report import cover_form
 
     return _page(form, **_case_context(saved["result"]), scenario=saved, cover_form=cover_form(name))
+
+
+@bp.get("/scenarios/<path:name>")
+def show_old_address(name: str):
+    """An address from before names were written as one segment ("/scenarios/Bay 3/west"):
+    to the scenario's own address."""
+    return redirect(url_for("scenarios.show", name=name), 308)
 
 
 @bp.post("/scenarios/delete")
