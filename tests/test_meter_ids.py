@@ -165,7 +165,7 @@ def test_the_saved_scenario_of_an_odd_meter_and_its_exports(client):
     links = local_links(page)
     # the case document's exports name the scenario in the query string (no path converter needed)
     exports = [u for u in links if u.startswith("/case.")]
-    assert len(exports) == 5 and all("scenario=odd" in u for u in exports), exports
+    assert len(exports) == 7 and all("scenario=odd" in u for u in exports), exports
     for url in links:
         # the PDF is Chromium's print of the HTML below; the cover form is posted, not fetched
         if not url.startswith(("/case.pdf", "/case/cover")):

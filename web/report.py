@@ -94,10 +94,14 @@ def case(fmt: str):
         tariff = None
     report = rp.build_case(store(), name, tariff, with_profile=fmt in ("html", "pdf"), saved=saved)
     paper = _paper()
+    table = request.args.get("table") or "periods"
+    if table not in rp.CSV_TABLES:
+        raise UsageError(f"unknown table {table!r}: choose one of {', '.join(rp.CSV_TABLES)}")
     nonce = secrets.token_urlsafe(16)
     body = rp.render_html(report, nonce=nonce, paper=paper).encode("utf-8") if fmt == "html" \
-        else rp.render(report, fmt, paper)
-    return _download(body, fmt, f"{saved['meter']}_{name}", nonce)
+        else rp.render(report, fmt, paper, table if fmt == "csv" else "periods")
+    suffix = f"_{table}" if fmt == "csv" and table != "periods" else ""
+    return _download(body, fmt, f"{saved['meter']}_{name}{suffix}", nonce)
 
 
 @bp.post("/case/cover")

@@ -15,7 +15,7 @@ from auditor.commands.case import (
 )
 from auditor.commands.context import Context, pass_ctx
 from auditor.commands.options import NounGroup, wide_option
-from auditor.render import WIDTH, echo_json, fmt, table, wrap
+from auditor.render import echo_json, fmt, table, wrap, wrapped_table
 
 STATUS_WORD = {"pass": "pass", "caution": "CAUTION", "fail": "FAIL"}
 
@@ -81,31 +81,6 @@ def _candidate_row(c: dict) -> list:
     return [c["rank"], c["label"], c["total_kvar"], c["capex"], c["annual_savings"], c["npv"],
             c["simple_payback_years"], c["pf_after"],
             "ok" if c["passed_screening"] else "FAIL " + ", ".join(c.get("failed_rules", []))]
-
-
-def wrapped_table(headers: list[str], rows: list[list[str]], wrap_cols: dict[int, int], wide: bool = False) -> str:
-    """A table of text whose long cells continue on the next lines instead of being cut (the
-    specification: every word of a rating or a note matters). ``wrap_cols`` maps a column to
-    the narrowest width it may be wrapped to; the last of them takes what the line leaves."""
-    if wide:
-        return table(headers, rows, wide=True)
-    import textwrap
-
-    widths = [max([len(headers[i])] + [len(str(r[i])) for r in rows]) for i in range(len(headers))]
-    fixed = sum(w for i, w in enumerate(widths) if i not in wrap_cols) + 2 * (len(headers) - 1)
-    room = WIDTH - fixed
-    cols = sorted(wrap_cols)
-    for i in cols[:-1]:  # the first wrapped columns get up to their share, the last the rest
-        widths[i] = max(wrap_cols[i], min(widths[i], room // len(cols)))
-    last = cols[-1]
-    widths[last] = max(wrap_cols[last], min(widths[last], room - sum(widths[i] for i in cols[:-1])))
-    out = []
-    for r in rows:
-        parts = [textwrap.wrap(str(v), widths[i], break_on_hyphens=False) or [""] if i in wrap_cols else [str(v)]
-                 for i, v in enumerate(r)]
-        for k in range(max(len(p) for p in parts)):
-            out.append([p[k] if k < len(p) else "" for p in parts])
-    return table(headers, out, width=None)
 
 
 def render_case(d: dict, wide: bool = False) -> str:
