@@ -160,5 +160,6 @@ def test_cli_errors_are_one_line(tmp_path):
     audit = json.loads(run(db, "audit", "--meter", "M1", "--json", rc=0).stdout)
     assert audit["tariff"] == "Millbrook General Service PF" and audit["periods"][0]["start"] == "2025-01-05"
     assert "removed" in run(db, "meters", "set-tariff", "M1", "--clear", rc=0).stdout
-    alerts = json.loads(run(db, "alerts", "--json", rc=0).stdout)
+    # as of two days after the one interval: the meter stopped (a fixed date, not the clock's)
+    alerts = json.loads(run(db, "alerts", "--as-of", "2025-01-08", "--json", rc=0).stdout)
     assert [a["kind"] for a in alerts["alerts"]] == ["data_stopped"] and alerts["run"]["meters"] == 1

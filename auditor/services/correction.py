@@ -123,7 +123,8 @@ def design_of(req: ScenarioRequest) -> BankDesign | None:
                           req.reactor_kvar is not None, req.switch_off_kvar is not None) if x]
     if len(chosen) != 1:
         raise UsageError("choose exactly one of the designs: a fixed bank, an automatic bank's steps, a reactor, "
-                         "existing capacitance to switch off, or the optimiser")
+                         "existing capacitance to switch off, or the optimiser",
+                         cli_hint="one of --fixed, --bank, --reactor, --switch-off, --optimise")
     if req.fixed_kvar is not None:
         return BankDesign.fixed(req.fixed_kvar, detuning_percent=req.detuning_percent,
                                 capacitor_rated_voltage_v=req.capacitor_rated_voltage_v)
@@ -431,7 +432,8 @@ def scenario_for_site(store: Store, site: str, req: ScenarioRequest, mode: str =
     bank = design_of(req)
     if bank is None:
         if mode != "central":
-            raise UsageError("the optimiser works on the meters' sum of a site (central correction)")
+            raise UsageError("the optimiser works on the meters' sum of a site: central correction, not per meter",
+                             cli_hint="--optimise with --mode central")
         total, warnings = sum_meters(frames)
         out = optimise(total, t, **common).to_dict()
         out["warnings"] = list(warnings) + out["warnings"]
