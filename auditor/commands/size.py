@@ -339,9 +339,10 @@ def scenarios_list(ctx: Context, meter, json_out):
     if json_out:
         echo_json({"scenarios": rows})
         return 0
-    click.echo(table(["name", "meter", "tariff", "saving/yr", "NPV", "payback y"],
-                     [[r["name"], r["meter"], r["tariff"], r["annual_savings"], r["npv"], r["simple_payback_years"]]
-                      for r in rows]))
+    verdict = {True: "passes", False: "FAILS", None: "-"}
+    click.echo(table(["name", "meter", "tariff", "saving/yr", "NPV", "payback y", "screening"],
+                     [[r["name"], r["meter"], r["tariff"], r["annual_savings"], r["npv"], r["simple_payback_years"],
+                       verdict[r["recommended"]]] for r in rows]))
     return 0
 
 
