@@ -289,6 +289,13 @@ class BankDesign:
                 body = "automatic " + ",".join(f"{s:.4g}" for s in self.steps_kvar) + " kvar"
         return body + (f", {self.detuning_percent:g} % detuned" if self.detuned else "")
 
+    @property
+    def short_label(self) -> str:
+        """The label for a narrow table column: the same design in fewer words."""
+        if self.kind == "switch_off":
+            return f"switch {self.total_kvar:g} kvar off (existing)"
+        return self.label.replace(" kvar, switched", " kvar").replace("shunt reactor", "reactor")
+
     def output_factor(self, system_voltage_v: float | None = None) -> float:
         """Effective kvar at the system voltage per kvar of rating (1 for absorbing designs,
         which are rated at the system voltage)."""
@@ -312,6 +319,7 @@ class BankDesign:
             ),
             "capacitor_rated_voltage_v": self.capacitor_rated_voltage_v,
             "label": self.label,
+            "short_label": self.short_label,
             "family": self.family,
         }
 

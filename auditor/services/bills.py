@@ -13,6 +13,7 @@ stored as given; a later file or entry without them keeps the numbers already st
 from __future__ import annotations
 
 import hashlib
+import textwrap
 from importlib import resources
 from pathlib import Path
 
@@ -21,6 +22,7 @@ from sqlalchemy import select
 from auditor.bills import BILL_FIELDS, FIELD_DIGITS, BillRecord, Tolerances, cause_label, check
 from auditor.errors import InputError, Problem, UsageError
 from auditor.ingest.bills_csv import NUMBER_FIELDS, load_bill_profile, read_bills, validate_bill
+from auditor.render import WIDTH
 from auditor.services.audit import resolve_tariff
 from auditor.services.meters import load_meter
 from auditor.store import Store
@@ -326,9 +328,11 @@ def demo_bill_check(store: Store) -> dict:
                 continue
             fields = [f for f in c["findings"] if f["period_start"] == b["period_start"]]
             causes = ", ".join(b["cause_labels"]) or "unexplained"
-            lines.append(f"    {b['period_start']}..{b['period_end']}: {', '.join(f['field'] for f in fields)}"
-                         f" (cause: {causes}; {b['disputable']:,.2f} {cur})")
-            lines.append(f"      {fields[0]['explanation']}")
+            lines += textwrap.wrap(f"{b['period_start']}..{b['period_end']}: {', '.join(f['field'] for f in fields)}"
+                                   f" (cause: {causes}; {b['disputable']:,.2f} {cur})", WIDTH,
+                                   initial_indent="    ", subsequent_indent="      ")
+            lines += textwrap.wrap(fields[0]["explanation"], WIDTH, initial_indent="      ",
+                                   subsequent_indent="      ")
     total = sum(c["total_disputable"] for c in checks.values())
     lines.append(f"  Total in question: {total:,.2f} {cur} (auditor bills dispute --meter M --tariff "
                  f"{DEMO_TARIFF} --out query.html)")

@@ -1,7 +1,9 @@
 """The savings case the demo prints: the optimiser on each demo meter, saved by name."""
 from __future__ import annotations
 
-from auditor.render import fmt, table
+import textwrap
+
+from auditor.render import WIDTH, fmt, table
 from auditor.services.correction import ScenarioRequest, save_scenario, scenario_for_meter
 from auditor.services.demo import DEMO_TARIFF
 from auditor.services.ingest import list_meters
@@ -15,7 +17,7 @@ def _verdict(d: dict) -> str:
     if not d["npv"] or d["npv"] <= 0:
         return "no design pays back"
     status = d["screening"].get("status")
-    text = "recommended" if status == "pass" else "recommended, with cautions"
+    text = "recommended" if status == "pass" else "recommended (cautions)"
     return text + (" (nearest that passes)" if o.get("status") == "nearest_passing" else "")
 
 
@@ -32,12 +34,13 @@ def savings_case(store) -> dict:
         data[m["meter"]]["optimiser"] = {k: d["optimiser"][k] for k in ("status", "message")}
         cautions = d["cautions"]
         s = d["screening"]
-        rows.append([m["meter"], d["bank"]["label"], d["annual_savings"], d["capex"], d["simple_payback_years"],
+        rows.append([m["meter"], d["bank"]["short_label"], d["annual_savings"], d["capex"], d["simple_payback_years"],
                      d["npv"], fmt(s.get("resonance_order"), 1), _verdict(d)])
     text = "\n".join([
-        "Correction case (optimiser, target PF 0.95, demo cost assumptions; only designs that pass screening "
-        "are recommended; saved as '<meter> optimised'):",
-        table(["meter", "design", "saving/yr", "capex", "payback y", "NPV", "resonance h", "verdict"], rows),
-        "Cautions:", *[f"  - {c}" for c in cautions],
+        *textwrap.wrap("Correction case (optimiser, target PF 0.95, demo cost assumptions; only designs that "
+                       "pass screening are recommended; saved as '<meter> optimised'):", WIDTH),
+        table(["meter", "design", "saving/yr", "capex", "payback y", "NPV", "h res.", "verdict"], rows,
+              right=[False, False, True, True, True, True, True, False]),
+        "Cautions:", *[line for c in cautions for line in textwrap.wrap(c, WIDTH, initial_indent="  - ", subsequent_indent="    ")],
     ])
     return {"data": {"meters": data, "cautions": cautions}, "text": text}
