@@ -10,7 +10,6 @@ import html
 import io
 import posixpath
 import re
-import threading
 from pathlib import Path
 from urllib.parse import unquote, urlsplit
 
@@ -240,40 +239,19 @@ def test_the_converter_round_trips_any_text():
 # --------------------------------------------------------------------------------------------
 @pytest.mark.browser
 def test_a_browser_follows_odd_meter_links(odd_db, tmp_path):
-    from tests.test_web_browser import CHROMIUM_ARGS, chromium_path
+    from tests.test_web_browser import served_page
 
-    path = chromium_path()
-    from playwright.sync_api import sync_playwright
-
-    from auditor.commands.serve import make_server
-
-    srv = make_server(odd_db, "127.0.0.1", 0, config={"INSTANCE_PATH": str(tmp_path / "i"), "WARM_CACHE": False,
-                                                    "DEFAULT_TARIFF": TARIFF})
-    thread = threading.Thread(target=srv.run, daemon=True)
-    thread.start()
-    base = f"http://127.0.0.1:{srv.effective_port}"
-    try:
-        with sync_playwright() as p:
-            browser = p.chromium.launch(executable_path=path, headless=True, args=CHROMIUM_ARGS)
-            ctx = browser.new_context(accept_downloads=True, viewport={"width": 1280, "height": 800})
-            page = ctx.new_page()
-            page.set_default_timeout(60_000)
-            errors: list[str] = []
-            page.on("pageerror", lambda e: errors.append(str(e)))
-            for meter in ("PLANT/7", "..", "q?x=1&y=2", "Zählpunkt-電"):
-                page.goto(f"{base}/", wait_until="domcontentloaded")
-                page.get_by_role("link", name=meter, exact=True).first.click()
-                page.wait_for_load_state("domcontentloaded")
-                assert page.locator("h1").inner_text().startswith(f"Meter {meter}"), page.url
-                with page.expect_download() as dl:
-                    page.get_by_role("link", name="Periods CSV").click()
-                saved = tmp_path / f"dl-{ODD_IDS.index(meter)}.csv"
-                dl.value.save_as(saved)
-                rows = list(csv.DictReader(io.StringIO(Path(saved).read_text(encoding="utf-8"))))
-                assert sum(float(x["Energy (kWh)"]) for x in rows) == pytest.approx(total_kwh(meter))
-            page.screenshot(path=str(tmp_path / "odd-meter.png"))
-            assert errors == []
-            browser.close()
-    finally:
-        srv.close()
-        thread.join(timeout=10)
+    with served_page(odd_db, tmp_path / "i", DEFAULT_TARIFF=TARIFF) as (page, base, errors):
+        for meter in ("PLANT/7", "..", "q?x=1&y=2", "Zählpunkt-電"):
+            page.goto(f"{base}/", wait_until="domcontentloaded")
+            page.get_by_role("link", name=meter, exact=True).first.click()
+            page.wait_for_load_state("domcontentloaded")
+            assert page.locator("h1").inner_text().startswith(f"Meter {meter}"), page.url
+            with page.expect_download() as dl:
+                page.get_by_role("link", name="Periods CSV").click()
+            saved = tmp_path / f"dl-{ODD_IDS.index(meter)}.csv"
+            dl.value.save_as(saved)
+            rows = list(csv.DictReader(io.StringIO(Path(saved).read_text(encoding="utf-8"))))
+            assert sum(float(x["Energy (kWh)"]) for x in rows) == pytest.approx(total_kwh(meter))
+        page.screenshot(path=str(tmp_path / "odd-meter.png"))
+        assert errors == []

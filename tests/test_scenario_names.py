@@ -212,36 +212,15 @@ def test_command_line_exports_of_an_odd_name(names_db, tmp_path, name):
 # --------------------------------------------------------------------------------------------
 @pytest.mark.browser
 def test_a_browser_follows_odd_scenario_links(names_db, tmp_path):
-    import threading
+    from tests.test_web_browser import served_page
 
-    from playwright.sync_api import sync_playwright
-
-    from auditor.commands.serve import make_server
-    from tests.test_web_browser import CHROMIUM_ARGS, chromium_path
-
-    path = chromium_path()
-    srv = make_server(names_db, "127.0.0.1", 0, config={"INSTANCE_PATH": str(tmp_path / "i"), "WARM_CACHE": False,
-                                                      "DEFAULT_TARIFF": TARIFF})
-    thread = threading.Thread(target=srv.run, daemon=True)
-    thread.start()
-    base = f"http://127.0.0.1:{srv.effective_port}"
-    try:
-        with sync_playwright() as p:
-            browser = p.chromium.launch(executable_path=path, headless=True, args=CHROMIUM_ARGS)
-            page = browser.new_page(viewport={"width": 1280, "height": 800})
-            page.set_default_timeout(60_000)
-            errors: list[str] = []
-            page.on("pageerror", lambda e: errors.append(str(e)))
-            for name in ("..", "back\\slash", "Case #2", "Zählpunkt 電 — 7 %", "Bay 3 / west"):
-                page.goto(f"{base}/scenarios", wait_until="domcontentloaded")
-                page.get_by_role("link", name=name, exact=True).first.click()
-                page.wait_for_load_state("domcontentloaded")
-                assert page.locator("h1").inner_text() == f"Scenario “{name}”", page.url
-                with page.expect_download() as dl:
-                    page.locator("#export-xlsx").click()
-                assert dl.value.suggested_filename.endswith(".xlsx")
-            assert errors == []
-            browser.close()
-    finally:
-        srv.close()
-        thread.join(timeout=10)
+    with served_page(names_db, tmp_path / "i", DEFAULT_TARIFF=TARIFF) as (page, base, errors):
+        for name in ("..", "back\\slash", "Case #2", "Zählpunkt 電 — 7 %", "Bay 3 / west"):
+            page.goto(f"{base}/scenarios", wait_until="domcontentloaded")
+            page.get_by_role("link", name=name, exact=True).first.click()
+            page.wait_for_load_state("domcontentloaded")
+            assert page.locator("h1").inner_text() == f"Scenario “{name}”", page.url
+            with page.expect_download() as dl:
+                page.locator("#export-xlsx").click()
+            assert dl.value.suggested_filename.endswith(".xlsx")
+        assert errors == []

@@ -10,6 +10,7 @@ import os
 import shutil
 import tempfile
 import threading
+from contextlib import contextmanager
 from pathlib import Path
 from urllib.parse import quote
 
@@ -38,6 +39,36 @@ def chromium_path() -> str:
             pytest.fail(reason + " but AUDITOR_REQUIRE_BROWSER=1 demands the browser tests")
         pytest.skip(reason)
     return path
+
+
+@contextmanager
+def served_page(store, instance: Path, **config):
+    """The dashboard (waitress) on ``store`` and a free port, and one Chromium page of 1280 × 800
+    that accepts downloads and collects the page's script errors: yields ``(page, base_url,
+    errors)``; everything is closed afterwards."""
+    from playwright.sync_api import sync_playwright
+
+    from auditor.commands.serve import make_server
+
+    path = chromium_path()
+    srv = make_server(store, "127.0.0.1", 0, config={"INSTANCE_PATH": str(instance), "WARM_CACHE": False, **config})
+    thread = threading.Thread(target=srv.run, daemon=True)
+    thread.start()
+    try:
+        with sync_playwright() as p:
+            browser = p.chromium.launch(executable_path=path, headless=True, args=CHROMIUM_ARGS)
+            try:
+                ctx = browser.new_context(accept_downloads=True, viewport={"width": 1280, "height": 800})
+                page = ctx.new_page()
+                page.set_default_timeout(60_000)
+                errors: list[str] = []
+                page.on("pageerror", lambda e: errors.append(str(e)))
+                yield page, f"http://127.0.0.1:{srv.effective_port}", errors
+            finally:
+                browser.close()
+    finally:
+        srv.close()
+        thread.join(timeout=10)
 
 
 @pytest.fixture(scope="module")
