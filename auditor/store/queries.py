@@ -1,6 +1,7 @@
 """Queries that return DataFrames or plain dicts for the service layer."""
 from __future__ import annotations
 
+from dataclasses import dataclass
 from datetime import UTC, datetime
 from typing import TYPE_CHECKING
 
@@ -37,131 +38,209 @@ def get_meter(session: Session, external_id: str) -> Meter:
 
 def read_intervals(session: Session, meter: Meter, start_utc: int | None = None,
                    end_utc: int | None = None) -> pd.DataFrame:
-    """The interval frame of one meter (DEVELOPERS.md): UTC index, multiplier applied.
+    """The interval frame of one meter (DEVELOPERS.md): UTC index, multiplier applied."""
+    got = read_arrays(session.connection(), [MeterSpan(meter.id, meter.interval_minutes or 15, start_utc, end_utc)])
+    return _frame(*got[0], meter.multiplier)
 
-    No Python object per interval where the driver allows it: the block layout
-    (:mod:`auditor.store.blocks`, used when the store has ``reading_block``) reads one row per
-    block; PostgreSQL sends each column packed into one ``bytea``, which numpy reads whole; SQLite
-    rows come through the driver's own cursor (SQLAlchemy's per-row processing skipped) into
-    one flat numpy array.
+
+@dataclass(frozen=True)
+class MeterSpan:
+    """What to read of one meter: its id, its interval and the UTC range (None: open)."""
+
+    meter_id: int
+    interval_minutes: int
+    start_utc: int | None = None
+    end_utc: int | None = None
+
+
+def read_arrays(conn, spans: list[MeterSpan]) -> list[tuple]:
+    """Each span's intervals as ``(start, values, flags)`` (UTC epoch seconds, one float64
+    array per quantity with NaN where there is no value, int16 flags), in the order of
+    ``spans``, read with one query for them all (a few for hundreds of scattered ranges).
+
+    No Python object per interval: a block is one row whose columns numpy reads whole
+    (:mod:`auditor.store.blocks`). SQLite rows come through the driver's own cursor
+    (SQLAlchemy's per-row processing skipped), and every column of every block read is joined
+    and decoded in one piece. PostgreSQL concatenates each meter's blocks on the server
+    (``string_agg`` ordered by ``block_start``), so the client gets one row per meter.
+    Spans of one meter that overlap give their common intervals twice.
     """
-    conn = session.connection()
-    if has_blocks(conn):
-        return _read_blocks(conn, meter, start_utc, end_utc)
-    where, params = _range_where(conn, meter, start_utc, end_utc)
-    # COALESCE keeps NULLs (absent channels) out of the rows: numpy converts every value in C,
-    # and on PostgreSQL every packed value has the same length.
-    cols = ", ".join(f"COALESCE({q}, 0)" for q in QUANTITIES)
-    sql = f"SELECT start, {cols}, flags FROM reading WHERE {where} ORDER BY start"
-    if conn.dialect.name == "postgresql":
-        start, vals, flags = _read_pg_packed(conn, sql, params)
-    else:
-        start, vals, flags = _read_rows(conn, sql, params)
-    return _frame(start, vals, flags, meter.multiplier)
-
-
-def _range_where(conn, meter: Meter, start_utc: int | None, end_utc: int | None) -> tuple[str, list]:
-    mark = "?" if conn.dialect.paramstyle == "qmark" else "%s"
-    where = [f"meter_id = {mark}"]
-    params: list = [meter.id]
-    if start_utc is not None:
-        where.append(f"start >= {mark}")
-        params.append(int(start_utc))
-    if end_utc is not None:
-        where.append(f"start < {mark}")
-        params.append(int(end_utc))
-    return " AND ".join(where), params
-
-
-def _read_rows(conn, sql: str, params: list):
-    import itertools
-
     import numpy as np
 
+    from auditor.store.blocks import BLOCK, Intervals, block_seconds, in_order, slots_kept
+
+    if not spans:
+        return []
+    bounds: dict[int, tuple[int | None, int | None]] = {}
+    for sp in spans:  # per meter, the loosest block bounds of its spans: each span is cut exactly below
+        lo = None if sp.start_utc is None else int(sp.start_utc) - block_seconds(sp.interval_minutes)
+        hi = None if sp.end_utc is None else int(sp.end_utc)
+        if sp.meter_id in bounds:
+            a, b = bounds[sp.meter_id]
+            lo = None if a is None or lo is None else min(a, lo)
+            hi = None if b is None or hi is None else max(b, hi)
+        bounds[sp.meter_id] = (lo, hi)
+    fetch = _pg_blocks if conn.dialect.name == "postgresql" else _sqlite_blocks
+    by_meter = fetch(conn, bounds)
+    out = []
+    for sp in spans:
+        found = by_meter.get(sp.meter_id)
+        if found is None:
+            out.append((np.empty(0, np.int64), {q: np.empty(0) for q in QUANTITIES}, np.empty(0, np.int16)))
+            continue
+        block_start, values, flags = found
+        step = 60 * int(sp.interval_minutes)
+        start = (block_start[:, None] + np.arange(BLOCK, dtype=np.int64) * step).ravel()
+        keep = slots_kept(start, flags, sp.start_utc, sp.end_utc)
+        if keep is not None:
+            start, values = start[keep], {q: v[keep] for q, v in values.items()}
+            flags = flags[keep] if flags is not None else None
+        flags = flags if flags is not None else np.zeros(len(start), np.int16)
+        iv = in_order(Intervals(start, values, flags, flags))
+        out.append((iv.start, iv.values, iv.flags))
+    return out
+
+
+_SPANS_PER_QUERY = 200  # meters with bounds of their own per query (an OR of key ranges)
+
+
+def _where(bounds: dict[int, tuple[int | None, int | None]], mark: str, any_array: bool) -> list[tuple[str, list]]:
+    """WHERE clauses (with their parameters) selecting the blocks of ``bounds``: one list of
+    meters when they share their bounds (a batch audit), else an OR of key ranges in chunks."""
+    ids = sorted(bounds)
+    shared = set(bounds.values())
+    if len(shared) == 1:
+        lo, hi = next(iter(shared))
+        if any_array:
+            where, params = ["meter_id = ANY(%s)"], [ids]
+        else:
+            where, params = [f"meter_id IN ({', '.join([mark] * len(ids))})"], list(ids)
+        if lo is not None:
+            where.append(f"block_start > {mark}")
+            params.append(lo)
+        if hi is not None:
+            where.append(f"block_start < {mark}")
+            params.append(hi)
+        return [(" AND ".join(where), params)]
+    out = []
+    for k in range(0, len(ids), _SPANS_PER_QUERY):
+        terms, params = [], []
+        for mid in ids[k:k + _SPANS_PER_QUERY]:
+            lo, hi = bounds[mid]
+            term = [f"meter_id = {mark}"]
+            params.append(mid)
+            if lo is not None:
+                term.append(f"block_start > {mark}")
+                params.append(lo)
+            if hi is not None:
+                term.append(f"block_start < {mark}")
+                params.append(hi)
+            terms.append("(" + " AND ".join(term) + ")")
+        out.append((" OR ".join(terms), params))
+    return out
+
+
+def _sqlite_blocks(conn, bounds: dict) -> dict:
+    """``{meter_id: (block starts, flat values, flat flags or None)}`` through the driver's cursor."""
+    import numpy as np
+
+    from auditor.store.blocks import BLOCK, decode
+
+    rows: list[tuple] = []
     cur = conn.connection.driver_connection.cursor()
     try:
-        cur.execute(sql, tuple(params))
-        rows = cur.fetchall()
+        for where, params in _where(bounds, "?", False):
+            cur.execute(f"SELECT meter_id, block_start, {', '.join(QUANTITIES)}, flags FROM reading_block "
+                        f"WHERE {where} ORDER BY meter_id, block_start", params)
+            rows += cur.fetchall()
     finally:
         cur.close()
-    width = 2 + len(QUANTITIES)
-    # one flat pass over the tuples (np.array of a list of tuples inspects each one first)
-    arr = np.fromiter(itertools.chain.from_iterable(rows), dtype=np.float64, count=len(rows) * width)
-    arr = arr.reshape(len(rows), width)
-    return arr[:, 0].astype(np.int64), arr[:, 1:1 + len(QUANTITIES)], arr[:, -1].astype(np.int64)
+    if not rows:
+        return {}
+    cols = list(zip(*rows, strict=True))
+    nq = len(QUANTITIES)
+    meter = np.fromiter(cols[0], dtype=np.int64, count=len(rows))
+    block_start = np.fromiter(cols[1], dtype=np.int64, count=len(rows))
+    values, flags = decode(cols[2:2 + nq], cols[2 + nq])
+    cut = np.flatnonzero(np.diff(meter)) + 1
+    out = {}
+    for a, b in zip(np.r_[0, cut].tolist(), np.r_[cut, len(rows)].tolist(), strict=True):
+        out[int(meter[a])] = (block_start[a:b], {q: v[a * BLOCK:b * BLOCK] for q, v in values.items()},
+                              flags[a * BLOCK:b * BLOCK] if flags is not None else None)
+    return out
 
 
-def _read_pg_packed(conn, sql: str, params: list):
-    """Rows of ``sql`` (int8 start, float8 quantities, int2 flags, never NULL) as one packed
-    ``bytea`` per column: the server concatenates each value's binary form (``int8send``,
-    ``float8send``, ``int2send``) with ``string_agg``, and numpy reads each column in one piece
-    (big-endian, PostgreSQL's binary format). The client builds no object per row; binary
-    ``COPY`` would, since the driver hands over one message per row.
-
-    The aggregates read a subquery sorted by start, which PostgreSQL's documentation says
-    "usually" keeps the order; the starts are checked and the arrays sorted if it did not.
-    """
+def _pg_blocks(conn, bounds: dict) -> dict:
+    """``{meter_id: (block starts, flat values, flat flags)}``: the server concatenates each
+    meter's blocks in order (``string_agg(... ORDER BY block_start)``), a block without a
+    column's bytes given as NaN (values) or zero (flags), and numpy reads each column whole."""
     import numpy as np
 
-    n = len(QUANTITIES)
-    names = ["start", *[f"q{i}" for i in range(n)], "flags"]
-    inner = sql.replace(f"SELECT start, {', '.join(f'COALESCE({q}, 0)' for q in QUANTITIES)}, flags",
-                        "SELECT start, " + ", ".join(f"COALESCE({q}, 0) AS q{i}" for i, q in enumerate(QUANTITIES))
-                        + ", flags", 1)
-    send = {"start": "int8send", "flags": "int2send"}
-    packed = ", ".join(f"string_agg({send.get(c, 'float8send')}({c}), ''::bytea)" for c in names)
+    from auditor.store.blocks import BLOCK, NAN_BLOCK, PRESENT_BLOCK
+
+    order = "ORDER BY block_start"
+    cols = [f"string_agg(int8send(block_start), ''::bytea {order})"]
+    cols += [f"string_agg(COALESCE({q}, %s::bytea), ''::bytea {order})" for q in QUANTITIES]
+    cols.append(f"string_agg(COALESCE(flags, %s::bytea), ''::bytea {order})")
+    fills = [NAN_BLOCK] * len(QUANTITIES) + [PRESENT_BLOCK]
+    found: list[tuple] = []
     raw = conn.connection.driver_connection
     with raw.cursor(binary=True) as cur:
-        cur.execute(f"SELECT {packed} FROM ({inner}) AS rows_in_order", params)
-        row = cur.fetchone()
-    if row is None or row[0] is None:
-        return np.empty(0, np.int64), np.empty((0, n)), np.empty(0, np.int64)
-    start = np.frombuffer(row[0], ">i8").astype(np.int64)
-    vals = np.column_stack([np.frombuffer(row[1 + i], ">f8") for i in range(n)]).astype(np.float64)
-    flags = np.frombuffer(row[-1], ">i2").astype(np.int64)
-    if len(start) > 1 and not (np.diff(start) > 0).all():
-        order = np.argsort(start, kind="stable")
-        start, vals, flags = start[order], vals[order], flags[order]
-    return start, vals, flags
+        for where, params in _where(bounds, "%s", True):
+            cur.execute(f"SELECT meter_id, {', '.join(cols)} FROM reading_block WHERE {where} GROUP BY meter_id",
+                        [*fills, *params])
+            found += cur.fetchall()
+    out = {}
+    for mid, starts, *rest in found:
+        block_start = np.frombuffer(starts, ">i8").astype(np.int64)
+        values = {q: np.frombuffer(x, "<f8") for q, x in zip(QUANTITIES, rest[:-1], strict=True)}
+        flags = np.frombuffer(rest[-1], "<i2")
+        if len(flags) != BLOCK * len(block_start):  # pragma: no cover - a block of another size
+            raise ValueError(f"meter {mid}: blocks of {len(flags) / len(block_start)} slots")
+        out[int(mid)] = (block_start, values, flags)
+    return out
 
 
-def has_blocks(conn) -> bool:
-    """Whether the store keeps readings in the block layout (``reading_block``), asked once per
-    engine (the answer is kept on the engine itself)."""
-    engine = conn.engine
-    found = engine.__dict__.get("_auditor_has_blocks")
-    if found is None:
-        from sqlalchemy import inspect
-
-        found = engine.__dict__["_auditor_has_blocks"] = inspect(conn).has_table("reading_block")
-    return found
-
-
-def _read_blocks(conn, meter: Meter, start_utc: int | None, end_utc: int | None) -> pd.DataFrame:
+def ranges_long(conn, ranges: list[tuple[int, int, int, int]]):
+    """Readings of ``(meter_id, interval minutes, start, end)`` ranges (UTC epoch seconds, end
+    excluded) as ``(meter_id, start, kwh, kvarh_lag, kvarh_lead, flags)`` arrays, values
+    without a multiplier (NaN: no value). Overlapping ranges of a meter give each interval once."""
     import numpy as np
 
-    from auditor.store.blocks import block_seconds, unpack
+    merged: dict[tuple[int, int], list[list[int]]] = {}
+    for m, minutes, a, b in sorted(ranges, key=lambda r: (r[0], r[2])):
+        runs = merged.setdefault((m, minutes), [])
+        if runs and a <= runs[-1][1]:
+            runs[-1][1] = max(runs[-1][1], b)
+        else:
+            runs.append([a, b])
+    spans = [MeterSpan(m, minutes, a, b) for (m, minutes), runs in merged.items() for a, b in runs]
+    got = read_arrays(conn, spans)
+    if not got:
+        e = np.empty(0)
+        return np.empty(0, np.int64), np.empty(0, np.int64), e, e, e, np.empty(0, np.int16)
+    meter = np.concatenate([np.full(len(s), sp.meter_id, np.int64) for sp, (s, _, _) in zip(spans, got, strict=True)])
+    return (meter, np.concatenate([s for s, _, _ in got]),
+            *[np.concatenate([v[q] for _, v, _ in got]) for q in ("kwh", "kvarh_lag", "kvarh_lead")],
+            np.concatenate([f for _, _, f in got]))
 
-    minutes = meter.interval_minutes or 15
-    span = block_seconds(minutes)
+
+def last_start_before(conn, meter_id: int, interval_minutes: int, before_utc: int) -> int | None:
+    """The start of the meter's last interval before ``before_utc`` (None: there is none): one
+    index seek for the block, then its slots."""
     mark = "?" if conn.dialect.paramstyle == "qmark" else "%s"
-    where, params = [f"meter_id = {mark}"], [meter.id]
-    if start_utc is not None:
-        where.append(f"block_start > {mark}")
-        params.append(int(start_utc) - span)
-    if end_utc is not None:
-        where.append(f"block_start < {mark}")
-        params.append(int(end_utc))
-    sql = (f"SELECT block_start, {', '.join(QUANTITIES)}, flags, batch_id, batch_ids FROM reading_block "
-           f"WHERE {' AND '.join(where)} ORDER BY block_start")
-    cur = conn.connection.driver_connection.cursor()
-    try:
-        cur.execute(sql, tuple(params))
-        rows = cur.fetchall()
-    finally:
-        cur.close()
-    iv = unpack(rows, minutes, start_utc, end_utc)
-    return _frame(iv.start, iv.values, iv.flags.astype(np.int64), meter.multiplier)
+    bound = int(before_utc)
+    while True:
+        row = conn.exec_driver_sql(
+            f"SELECT block_start FROM reading_block WHERE meter_id = {mark} AND block_start < {mark} "
+            "ORDER BY block_start DESC LIMIT 1", (int(meter_id), bound)).first()
+        if row is None:
+            return None
+        got = read_arrays(conn, [MeterSpan(meter_id, interval_minutes, int(row[0]), int(before_utc))])[0][0]
+        got = got[got < int(before_utc)]
+        if len(got):
+            return int(got.max())
+        bound = int(row[0])  # the block held nothing before the time: look further back
 
 
 def _frame(start, vals, flags, multiplier: float = 1.0) -> pd.DataFrame:
@@ -191,7 +270,7 @@ def interval_frame(rows: list[tuple], multiplier: float = 1.0) -> pd.DataFrame:
 
 def meter_summaries(session: Session) -> list[dict]:
     """Every meter by site with the span, count and coverage of its readings (from
-    ``meter_data``: one row per meter, no scan of ``reading``)."""
+    ``meter_data``: one row per meter, no scan of the readings)."""
     from auditor.store.meter_data import ensure_current, versions
 
     conn = session.connection()
