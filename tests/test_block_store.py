@@ -191,3 +191,26 @@ def test_two_imports_of_one_meter_at_once_into_one_block(store, tmp_path, monkey
         t.join(120)
     assert [o.status for o in outcomes] == ["imported", "imported"], [o.errors for o in outcomes]
     assert len(readings(store)) == 24
+
+
+def test_a_channel_recorded_in_some_blocks_only_reads_back_in_place(store, tmp_path):
+    """Received energy arrives for the second day only, one interval of the first day is
+    estimated: the blocks of the first day store no received bytes and those of the second
+    no flags, and the frame puts each value at its own interval, whole or in a range."""
+    from auditor.services.meters import load_meter
+
+    day1 = [r + ",A" for r in day_rows(day="2025-01-06")]
+    day1[30] = day1[30][:-1] + "E"
+    day2 = [r + f",{0.5 + i / 100:.2f}" for i, r in enumerate(day_rows(day="2025-01-07"))]
+    header = "meter,start,kwh,kvarh_lag,kvarh_lead"
+    assert import_file(store, write_csv(tmp_path / "a.csv", day1, header + ",flag")).status == "imported"
+    assert import_file(store, write_csv(tmp_path / "b.csv", day2, header + ",kwh_received")).status == "imported"
+    with store.engine.connect() as c:
+        assert c.exec_driver_sql("SELECT count(kwh_received), count(flags), count(*) FROM reading_block").one() \
+            == (4, 1, 8)
+    frame = load_meter(store, "M1").frame
+    assert len(frame) == 192 and frame["estimated"].sum() == 1 and frame["estimated"].iloc[30]
+    np.testing.assert_array_equal(frame["kwh_received"].to_numpy()[:96], 0.0)
+    np.testing.assert_allclose(frame["kwh_received"].to_numpy()[96:], 0.5 + np.arange(96) / 100)
+    part = load_meter(store, "M1", pd.Timestamp("2025-01-07").date(), pd.Timestamp("2025-01-08").date()).frame
+    pd.testing.assert_frame_equal(part, frame.iloc[96:])

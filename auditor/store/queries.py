@@ -40,7 +40,7 @@ def read_intervals(session: Session, meter: Meter, start_utc: int | None = None,
                    end_utc: int | None = None) -> pd.DataFrame:
     """The interval frame of one meter (DEVELOPERS.md): UTC index, multiplier applied."""
     got = read_arrays(session.connection(), [MeterSpan(meter.id, meter.interval_minutes or 15, start_utc, end_utc)])
-    return _frame(*got[0], meter.multiplier)
+    return interval_frame_of(*got[0], meter.multiplier)
 
 
 @dataclass(frozen=True)
@@ -141,7 +141,95 @@ def _where(bounds: dict[int, tuple[int | None, int | None]], mark: str, any_arra
 
 
 def _sqlite_blocks(conn, bounds: dict) -> dict:
-    """``{meter_id: (block starts, flat values, flat flags or None)}`` through the driver's cursor."""
+    """``{meter_id: (block starts, flat values, flat flags or None)}``, one driver row per meter:
+    SQLite concatenates each column of a meter's blocks (``group_concat`` with an empty
+    separator keeps a blob's bytes as they are, NULs included, and ``CAST … AS BLOB`` hands
+    them over unchanged). A NULL column (no value in the block, or no flag) is left out of the
+    concatenation and counted, so a channel the meter does not record and the flags of
+    unflagged blocks cost nothing; the starts of the blocks that have flags come as text, and a
+    channel recorded in some blocks only is read again for those blocks. The block starts come
+    in the same aggregate, so every column is in the same order whatever order SQLite fed the
+    rows in; they are sorted if it was not theirs."""
+    import numpy as np
+
+    from auditor.store.blocks import BLOCK
+
+    if not _utf8(conn):  # a UTF-16 file would re-encode the bytes as text: one row per block
+        return _sqlite_block_rows(conn, bounds)
+    cols = ["count(*)", "group_concat(block_start)"]
+    for c in (*QUANTITIES, "flags"):
+        cols += [f"count({c})", f"CAST(group_concat({c}, '') AS BLOB)"]
+    cols.append("group_concat(CASE WHEN flags IS NOT NULL THEN block_start END)")
+    found: list[tuple] = []
+    cur = conn.connection.driver_connection.cursor()
+    try:
+        for where, params in _where(bounds, "?", False):
+            cur.execute(f"SELECT meter_id, {', '.join(cols)} FROM reading_block WHERE {where} GROUP BY meter_id",
+                        params)
+            found += cur.fetchall()
+    finally:
+        cur.close()
+    out = {}
+    nq = len(QUANTITIES)
+    for row in found:
+        mid, nb, starts = int(row[0]), int(row[1]), row[2]
+        block_start = np.fromstring(starts, dtype=np.int64, sep=",")
+        if len(block_start) != nb:  # pragma: no cover - the aggregate itself went wrong
+            raise ValueError(f"meter {mid}: {len(block_start)} block starts for {nb} blocks")
+        order = None if nb < 2 or (np.diff(block_start) > 0).all() else np.argsort(block_start, kind="stable")
+        if order is not None:
+            block_start = block_start[order]
+        values = {}
+        for i, q in enumerate(QUANTITIES):
+            n, data = int(row[3 + 2 * i]), row[4 + 2 * i]
+            if n == nb:
+                v = np.frombuffer(data, "<f8")
+                if len(v) != BLOCK * nb:  # pragma: no cover
+                    raise ValueError(f"meter {mid}: blocks of another size than {BLOCK} intervals")
+                values[q] = v if order is None else v.reshape(nb, BLOCK)[order].ravel()
+            elif n == 0:
+                values[q] = np.full(nb * BLOCK, np.nan)
+            else:  # recorded in some blocks only: those blocks again, placed by their starts
+                values[q] = _partial_column(conn, mid, q, bounds[mid], block_start)
+        n_flags, flag_data, flag_starts = int(row[3 + 2 * nq]), row[4 + 2 * nq], row[5 + 2 * nq]
+        flags = None
+        if n_flags:
+            flags = np.zeros((nb, BLOCK), np.int16)
+            at = np.searchsorted(block_start, np.fromstring(flag_starts, dtype=np.int64, sep=","))
+            flags[at] = np.frombuffer(flag_data, "<i2").reshape(n_flags, BLOCK)
+            flags = flags.ravel()
+        out[mid] = (block_start, values, flags)
+    return out
+
+
+def _partial_column(conn, meter_id: int, column: str, bound: tuple, block_start):
+    """One column of a meter's blocks where only some blocks hold it (NaN elsewhere)."""
+    import numpy as np
+
+    from auditor.store.blocks import BLOCK
+
+    where, params = _where({meter_id: bound}, "?", False)[0]
+    rows = conn.connection.driver_connection.execute(
+        f"SELECT block_start, {column} FROM reading_block WHERE ({where}) AND {column} IS NOT NULL", params).fetchall()
+    out = np.full((len(block_start), BLOCK), np.nan)
+    if rows:
+        at = np.searchsorted(block_start, np.array([r[0] for r in rows], dtype=np.int64))
+        out[at] = np.frombuffer(b"".join(r[1] for r in rows), "<f8").reshape(len(rows), BLOCK)
+    return out.ravel()
+
+
+def _utf8(conn) -> bool:
+    """Whether the SQLite file stores text as UTF-8 (asked once per engine)."""
+    engine = conn.engine
+    found = engine.__dict__.get("_auditor_utf8")
+    if found is None:
+        enc = conn.connection.driver_connection.execute("PRAGMA encoding").fetchone()[0]
+        found = engine.__dict__["_auditor_utf8"] = str(enc).upper() == "UTF-8"
+    return found
+
+
+def _sqlite_block_rows(conn, bounds: dict) -> dict:
+    """``{meter_id: (block starts, flat values, flat flags or None)}``, one driver row per block."""
     import numpy as np
 
     from auditor.store.blocks import BLOCK, decode
@@ -243,8 +331,10 @@ def last_start_before(conn, meter_id: int, interval_minutes: int, before_utc: in
         bound = int(row[0])  # the block held nothing before the time: look further back
 
 
-def _frame(start, vals, flags, multiplier: float = 1.0) -> pd.DataFrame:
-    """The interval frame from starts, values (an (n, 4) array or one array per quantity) and flags."""
+def interval_frame_of(start, vals, flags, multiplier: float = 1.0) -> pd.DataFrame:
+    """The interval frame from starts, values (an (n, 4) array or one array per quantity) and
+    flags, as :func:`read_arrays` gives them: the meter's multiplier applied, an absent value
+    as zero energy, ``estimated`` from the flags."""
     import numpy as np  # here, not at the top: listing meters does without them
     import pandas as pd
 
@@ -264,8 +354,8 @@ def interval_frame(rows: list[tuple], multiplier: float = 1.0) -> pd.DataFrame:
 
     if rows:
         arr = np.array(rows, dtype="float64")
-        return _frame(arr[:, 0].astype("int64"), arr[:, 1:5], arr[:, 5].astype("int64"), multiplier)
-    return _frame(np.empty(0, "int64"), np.empty((0, 4)), np.empty(0, "int64"), multiplier)
+        return interval_frame_of(arr[:, 0].astype("int64"), arr[:, 1:5], arr[:, 5].astype("int64"), multiplier)
+    return interval_frame_of(np.empty(0, "int64"), np.empty((0, 4)), np.empty(0, "int64"), multiplier)
 
 
 def meter_summaries(session: Session) -> list[dict]:
