@@ -34,7 +34,7 @@ import click
 
 from auditor import __version__
 from auditor.commands.context import Context
-from auditor.errors import AuditorError
+from auditor.errors import AuditorError, cli_text
 
 EXIT_OK, EXIT_REJECTED, EXIT_USAGE, EXIT_BUG, EXIT_INTERRUPTED = 0, 1, 2, 3, 130
 
@@ -72,8 +72,7 @@ def main(argv: list[str] | None = None) -> None:
         exc.show()
         sys.exit(exc.exit_code)
     except AuditorError as exc:
-        hint = f" ({exc.cli_hint})" if getattr(exc, "cli_hint", None) else ""
-        click.echo(f"error: {exc.message}{hint}", err=True)
+        click.echo(f"error: {cli_text(exc.message, getattr(exc, 'cli_hint', None))}", err=True)
         sys.exit(exc.exit_code)
     except KeyboardInterrupt:
         click.echo("interrupted", err=True)

@@ -6,11 +6,20 @@ traceback reaching the user is a bug.
 
 Messages speak of the data (the meter, the file, the key, the dates), never of command-line
 options, because the dashboard shows them too. Where a command would help, ``cli_hint`` carries
-it and only the command line shows it.
+it and only the command line shows it (:func:`cli_text`): in parentheses after the message, or,
+when the hint begins with ":" or ";", as the sentence's continuation. A located
+:class:`Problem` of a file carries its own ``cli_hint`` the same way.
 """
 from __future__ import annotations
 
 from dataclasses import dataclass
+
+
+def cli_text(message: str, hint: str | None) -> str:
+    """A message as the command line shows it, with its hint (module docstring)."""
+    if not hint:
+        return message
+    return message + (hint if hint[:1] in ":;" else f" ({hint})")
 
 
 class AuditorError(Exception):
@@ -34,9 +43,13 @@ class Problem:
     message: str
     line: int | None = None
     column: str | None = None
+    cli_hint: str | None = None  # the option or command that helps, for the command line only
 
     def as_dict(self) -> dict:
-        return {"line": self.line, "column": self.column, "message": self.message}
+        out = {"line": self.line, "column": self.column, "message": self.message}
+        if self.cli_hint:
+            out["cli_hint"] = self.cli_hint
+        return out
 
     def describe(self, file: str | None = None) -> str:
         where = []
@@ -52,7 +65,7 @@ class Problem:
 class InputError(AuditorError):
     """A bad input file. Carries every located problem found (the first few dozen)."""
 
-    def __init__(self, file: str | None, problems: list[Problem] | Problem | str):
+    def __init__(self, file: str | None, problems: list[Problem] | Problem | str, *, cli_hint: str | None = None):
         if isinstance(problems, str):
             problems = [Problem(problems)]
         elif isinstance(problems, Problem):
@@ -61,7 +74,8 @@ class InputError(AuditorError):
         self.problems: list[Problem] = list(problems)
         first = self.problems[0].describe(file) if self.problems else f"{file}: bad input"
         more = len(self.problems) - 1
-        super().__init__(first + (f" (and {more} more problem{'s' if more > 1 else ''})" if more > 0 else ""))
+        super().__init__(first + (f" (and {more} more problem{'s' if more > 1 else ''})" if more > 0 else ""),
+                         cli_hint=cli_hint or (self.problems[0].cli_hint if self.problems else None))
 
 
 class TariffError(AuditorError):

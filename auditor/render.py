@@ -2,8 +2,10 @@
 
 Tables fit :data:`WIDTH` (120) columns: a command gives each column a ``detail`` flag, and
 only ``--wide`` shows the detail columns; a table still too wide has its longest text cells
-shortened with "…" (numbers are never cut). Times are shown by :func:`local_time`, in the
-site's local time with the zone named (the JSON keeps UTC ISO strings).
+shortened with "…" (numbers are never cut); a table whose every word matters (a specification)
+is written by :func:`wrapped_table`, its long cells continuing on the next lines instead. Times
+are shown by :func:`local_time`, in the site's local time with the zone named (the JSON keeps
+UTC ISO strings).
 
 numpy is not imported here: a value can only be a numpy scalar once numpy is loaded, so the
 numpy cases are looked up in ``sys.modules`` (``auditor --help`` stays free of numpy).
@@ -194,3 +196,45 @@ def _fit(widths: list[int], headers: Sequence[str], numeric: Sequence[bool], wid
         target = max(floor[i], widths[i] - over, max(others, default=0))
         widths[i] = target if target < widths[i] else widths[i] - 1
     return widths
+
+
+def wrapped_table(headers: Sequence[str], rows: Iterable[Sequence[Any]], wrap_cols: dict[int, int],
+                  wide: bool = False, width: int = WIDTH) -> str:
+    """A table of text whose long cells (and headings) continue on the next lines instead of
+    being cut: a specification or a comparison, where every word of a rating or a note matters.
+    ``wrap_cols`` maps each column that may wrap to the narrowest width it may be given; they
+    share what the other columns leave of ``width``, the last taking the rest. With ``wide`` a
+    plain table, nothing wrapped. Cells are shown as text (``fmt``), left-aligned."""
+    rows = [[fmt(c) for c in r] for r in rows]
+    if wide:
+        return table(headers, rows, wide=True)
+    n = len(headers)
+    natural = [max([len(headers[i])] + [len(r[i]) for r in rows]) for i in range(n)]
+    words = [max([len(w) for w in str(headers[i]).split()] or [0]) for i in range(n)]
+    floor = {i: max(m, words[i]) for i, m in wrap_cols.items()}
+    widths = list(natural)
+    cols = sorted(wrap_cols)
+    room = width - sum(natural[i] for i in range(n) if i not in wrap_cols) - 2 * (n - 1)
+    for k, i in enumerate(cols):
+        left = len(cols) - k
+        share = (room - sum(widths[j] for j in cols[:k])) // left if k < len(cols) - 1 else \
+            room - sum(widths[j] for j in cols[:k])
+        widths[i] = max(floor[i], min(natural[i], share))
+
+    def cut(text: str, i: int) -> list[str]:
+        if i not in wrap_cols:
+            return [text]
+        return textwrap.wrap(text, widths[i], break_long_words=True, break_on_hyphens=False) or [""]
+
+    def lines_of(cells: Sequence[str]) -> list[list[str]]:
+        parts = [cut(str(c), i) for i, c in enumerate(cells)]
+        depth = max(len(p) for p in parts)
+        return [[p[k] if k < len(p) else "" for p in parts] for k in range(depth)]
+
+    head = lines_of(headers)
+    body = [line for r in rows for line in lines_of(r)]
+    shown = [max(len(x[i]) for x in head + body) for i in range(n)]
+    out = ["  ".join(v.ljust(shown[i]) for i, v in enumerate(x)).rstrip() for x in head]
+    out.append("  ".join("-" * w for w in shown))
+    out += ["  ".join(v.ljust(shown[i]) for i, v in enumerate(x)).rstrip() for x in body]
+    return "\n".join(out)

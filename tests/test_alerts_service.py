@@ -196,8 +196,10 @@ def test_a_gap_filled_later_is_summarised_again(store, tmp_path):
 # --------------------------------------------------------------------------------------------
 def test_meter_tariff_in_audits(store, tmp_path):
     import_files(store, [_days_csv(tmp_path / "a.csv", "M1", "2025-01-01", 70)], ImportOptions())
-    with pytest.raises(UsageError, match="auditor meters set-tariff M1 FILE"):
-        audit_meter(store, "M1", None)
+    with pytest.raises(UsageError, match="^meter M1 has no tariff of its own$") as err:
+        audit_meter(store, "M1", None)  # the message speaks of the data (the dashboard shows it) ...
+    assert "auditor meters set-tariff M1 FILE" in err.value.cli_hint  # ... the command line adds the command
+
     own = set_meter_tariff(store, "M1", "millbrook_commercial_pf", billing_day=10)
     assert own.tariff.name == "Millbrook General Service PF" and own.billing_day == 10
     a = audit_meter(store, "M1", None)

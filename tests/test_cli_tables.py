@@ -34,6 +34,17 @@ def db(demo_db, tmp_path_factory):
     return f"sqlite:///{path}"
 
 
+SIZE_CASES = (
+    ("size", "--meter", "KQ-MAIN", "--tariff", TARIFF, "--fixed", "150"),  # fails screening (resonance)
+    ("size", "--meter", "KQ-MAIN", "--tariff", TARIFF, "--fixed", "175"),  # fails (over-correction)
+    ("size", "--meter", "KQ-MAIN", "--tariff", TARIFF, "--optimize"),
+    ("size", "--meter", "AR-01", "--tariff", TARIFF, "--reactor", "10"),
+    ("size", "--meter", "AR-01", "--tariff", TARIFF, "--optimize"),
+    ("size", "--site", "Kestrel Quay Cold Store", "--tariff", TARIFF, "--mode", "per-meter", "--fixed", "100"),
+    ("size", "--site", "Kestrel Quay Cold Store", "--tariff", TARIFF, "--optimize"),
+)
+
+
 def commands():
     yield ("meters",)
     yield ("sites",)
@@ -42,6 +53,7 @@ def commands():
     for m in METERS:
         yield ("audit", "--meter", m, "--tariff", TARIFF)
         yield ("bills", "check", "--meter", m, "--tariff", TARIFF)
+    yield from SIZE_CASES
 
 
 @pytest.mark.parametrize("args", list(commands()), ids=" ".join)
@@ -62,6 +74,37 @@ def test_wide_shows_the_detail_columns(db):
     assert max(len(x) for x in wide.splitlines()) > WIDTH  # nothing is shortened with --wide
     assert "timezone" in invoke("meters", "--wide", db=db).output.splitlines()[0]
     assert "timezone" not in invoke("meters", db=db).output.splitlines()[0]
+
+
+def test_size_shows_the_failing_rule_first_and_hides_only_detail_columns(db):
+    """The failing rule is the first thing said about a design; wrapping keeps every word of it
+    (the JSON's message, re-joined), and --wide adds the candidates' detail columns."""
+    args = ("size", "--meter", "KQ-MAIN", "--tariff", TARIFF, "--fixed", "150")
+    text = invoke(*args, db=db).output
+    d = json.loads(invoke(*args, "--json", db=db).output)
+    lines = text.splitlines()
+    fail = [r for r in d["screening"]["rules"] if r["status"] == "fail"][0]
+    assert lines[1].startswith("NOT RECOMMENDED") and lines[2].startswith(f"  FAIL {fail['rule']}: ")
+    block = []
+    for line in lines[2:]:
+        if block and not line.startswith("    "):
+            break
+        block.append(line.strip())
+    assert " ".join(block) == f"FAIL {fail['rule']}: {fail['message']}"
+    # a message is said once: the over-correction caution is not repeated as a warning
+    caution = next(r for r in d["screening"]["rules"] if r["status"] == "caution")
+    assert " ".join(x.strip() for x in lines).count(caution["message"]) == 1
+
+    site = invoke("size", "--site", "Kestrel Quay Cold Store", "--tariff", TARIFF, "--mode", "per-meter",
+                  "--fixed", "100", db=db).output.splitlines()
+    assert site[1].startswith("NOT RECOMMENDED — fails screening: ") and "KQ-DOCKS (over_correction" in site[1]
+
+    narrow = invoke("size", "--meter", "KQ-MAIN", "--tariff", TARIFF, "--optimize", db=db).output.splitlines()
+    wide = invoke("size", "--meter", "KQ-MAIN", "--tariff", TARIFF, "--optimize", "--wide", db=db).output.splitlines()
+    head_n = next(x for x in narrow if x.lstrip().startswith("#  design")).split()
+    head_w = next(x for x in wide if x.lstrip().startswith("#  design")).split()
+    assert head_n == ["#", "design", "saving/yr", "NPV", "payback", "y", "screen"]
+    assert head_w == ["#", "design", "kvar", "capex", "saving/yr", "NPV", "payback", "y", "PF", "after", "screen"]
 
 
 def test_audit_peaks_show_their_local_time(db):

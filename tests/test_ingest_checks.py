@@ -36,7 +36,8 @@ def test_the_default_bound_scales_with_the_interval(store, tmp_path, minutes, li
     out = import_file(store, one_value(tmp_path, str(limit + 1), minutes, "b.csv"))
     assert out.status == "rejected"
     p = out.errors[0]
-    assert p.line == 3 and p.column == "kwh" and f"{limit:,}" in p.message and "--max-kw" in p.message
+    assert p.line == 3 and p.column == "kwh" and f"{limit:,}" in p.message and "own bound" in p.message
+    assert "--max-kw" in p.cli_hint and "--" not in p.message
 
 
 @pytest.mark.parametrize("value", ["1e300", "1e23", "5e5000"])
@@ -128,8 +129,8 @@ def test_meter_on_another_site_is_warned_and_moved_only_when_asked(store, tmp_pa
     b = write_csv(tmp_path / "b.csv", day_rows(meter="ST-1", day="2025-01-07", n=4))
     out = import_file(store, b, ImportOptions(site="Quarry", timezone="Europe/Berlin"))
     assert out.status == "imported"
-    warned = [w.message for w in out.warnings if "ST-1" in w.message]
-    assert warned and "on site 'Harbour', not 'Quarry'" in warned[0] and "--move" in warned[0]
+    warned = [w for w in out.warnings if "ST-1" in w.message]
+    assert warned and "on site 'Harbour', not 'Quarry'" in warned[0].message and "--move" in warned[0].cli_hint
     assert _site_of(store, "ST-1")[0] == "Harbour"
     c = write_csv(tmp_path / "c.csv", day_rows(meter="ST-1", day="2025-01-08", n=4))
     out = import_file(store, c, ImportOptions(site="Quarry", timezone="Europe/Berlin", move=True))
@@ -140,15 +141,17 @@ def test_meter_on_another_site_is_warned_and_moved_only_when_asked(store, tmp_pa
 def test_move_needs_a_site(store, tmp_path):
     from auditor.errors import UsageError
 
-    with pytest.raises(UsageError, match="--site"):
+    with pytest.raises(UsageError, match="the site to move them to") as err:
         import_file(store, write_csv(tmp_path / "a.csv", day_rows(n=4)), ImportOptions(move=True))
+    assert "--site" in err.value.cli_hint
 
 
 def test_new_site_without_timezone_is_warned(store, tmp_path):
     f = write_csv(tmp_path / "a.csv", day_rows(meter="TZ-1", n=4, tz="+01:00"))
     out = import_file(store, f, ImportOptions(site="Dockside"))
-    msg = [w.message for w in out.warnings if "Dockside" in w.message]
-    assert msg and "UTC" in msg[0] and "--timezone" in msg[0] and "sites set Dockside --timezone" in msg[0]
+    msg = [w for w in out.warnings if "Dockside" in w.message]
+    assert msg and "UTC" in msg[0].message and "time zone" in msg[0].message and "--" not in msg[0].message
+    assert "--timezone" in msg[0].cli_hint and "sites set Dockside --timezone" in msg[0].cli_hint
     assert _site_of(store, "TZ-1") == ("Dockside", "UTC")
     # a second file for the same site says nothing more
     g = write_csv(tmp_path / "b.csv", day_rows(meter="TZ-2", n=4, tz="+01:00"))

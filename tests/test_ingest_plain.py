@@ -83,7 +83,9 @@ def test_local_wall_time_needs_timezone(store, tmp_path):
     out = import_file(store, f)
     assert out.status == "rejected"
     assert out.errors[0].line == 2 and out.errors[0].column == "start"
-    assert "--timezone" in out.errors[0].message
+    # the message speaks of the data (the dashboard shows it); the option is the command line's hint
+    assert "time zone" in out.errors[0].message and "--" not in out.errors[0].message
+    assert "--timezone" in out.errors[0].cli_hint
     out = import_file(store, f, ImportOptions(timezone="Europe/Berlin"))
     assert out.status == "imported"
     assert readings(store)["start"].iloc[0] == epoch("2025-01-05T23:00:00+00:00")

@@ -243,7 +243,7 @@ def test_plain_profile_read(tmp_path):
 def test_missing_timezone(tmp_path):
     problem, message = input_problem(write_csv(tmp_path, GOOD), edited({"time.timezone": None}))
     assert (problem.line, problem.column) == (2, "End")
-    assert "--timezone" in message
+    assert "time zone" in message and "--timezone" in problem.cli_hint
 
 
 def test_timestamp_not_in_the_format(tmp_path):

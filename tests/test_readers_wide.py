@@ -255,7 +255,7 @@ def test_missing_timezone(tmp_path):
     lines = [header(24), row("M", "2024-06-01", "kwh", np.ones(24))]
     problem, message = one_problem(write(tmp_path, lines), timezone=None)
     assert (problem.line, problem.column) == (2, "date")
-    assert "--timezone" in message
+    assert "time zone" in message and "--timezone" in problem.cli_hint
 
 
 def test_unknown_timezone(tmp_path):

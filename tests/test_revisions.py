@@ -48,7 +48,7 @@ def test_crlf_resave_of_an_old_export_is_unchanged_and_keeps_the_revision(store,
     out = import_file(store, copy)
     assert out.status == "unchanged", out.message
     assert out.superseded == 8 and out.revised == 0 and out.inserted == 0
-    assert "imported before" in out.message and "--force" in out.message
+    assert "imported before" in out.message and "--force" in out.cli_hint
     assert readings(store).equals(after_revision)
     assert revision_count(store) == 8
     # asked for, the old values come back (and the actuals become revisions in their turn)
@@ -80,7 +80,7 @@ def test_an_older_export_does_not_undo_a_newer_one(store, tmp_path):
     assert out.status == "older" and out.older == 30
     assert out.inserted == 0 and out.revised == 0
     assert "older than the stored data" in out.message and "30 interval(s)" in out.message
-    assert "--force" in out.message
+    assert "--force" in out.cli_hint and "--" not in out.message
     assert readings(store).equals(before) and revision_count(store) == 0
     with store.engine.connect() as c:
         status = c.exec_driver_sql("SELECT status FROM import_batch ORDER BY id DESC").scalars().first()

@@ -29,8 +29,11 @@ PAPER = {"A4": round((210 - 2 * MARGIN_MM) * MM, 1), "Letter": round((215.9 - 2 
 OWN_PAGES = ["/", "/meters/KQ-MAIN", "/meters/KQ-DOCKS", "/meters/AR-01", "/imports", "/bills?meter=KQ-MAIN",
              "/bills?meter=AR-01", "/tariffs", "/tariffs/edit", "/tariffs/edit?name=harrowgate_industrial_tou",
              "/meters/NO-SUCH-METER"]
+#: a saved optimiser case (its candidate tables), saved by the server fixture
+OPTIMISED = "KQ-MAIN optimised"
 #: the scenario pages (their own tables; they pass the document-width check too)
-SCENARIO_PAGES = ["/scenario", "/scenario?meter=KQ-DOCKS", "/scenarios", f"/scenarios/{quote(DEMO_SCENARIO)}"]
+SCENARIO_PAGES = ["/scenario", "/scenario?meter=KQ-DOCKS", "/scenarios", f"/scenarios/{quote(DEMO_SCENARIO)}",
+                  f"/scenarios/{quote(OPTIMISED)}"]
 
 
 @pytest.fixture(scope="module")
@@ -50,6 +53,11 @@ def server(demo_db, tmp_path_factory):
     dst.close()
     store = open_store(f"sqlite:///{folder / 'demo.sqlite3'}")
     import_bills(store, demo_bills_path())
+    from auditor.services.correction import ScenarioRequest, save_scenario, scenario_for_meter
+    from auditor.services.demo import DEMO_TARIFF
+
+    save_scenario(store, OPTIMISED, scenario_for_meter(store, ScenarioRequest(meter="KQ-MAIN", tariff=DEMO_TARIFF,
+                                                                              optimise=True)))
     srv = make_server(store, "127.0.0.1", 0, config={"INSTANCE_PATH": str(folder / "instance"), "WARM_CACHE": False})
     thread = threading.Thread(target=srv.run, daemon=True)
     thread.start()
@@ -111,6 +119,39 @@ def test_the_columns_a_reader_came_for_are_in_sight(server, page):
         assert in_sight(page, "#bills", header), header
     for header in ("Billed", "Expected", "Probable cause", "Money"):
         assert in_sight(page, "#findings", header), header
+
+
+CANDIDATE_HEADLINE = ("Rank", "Design", "NPV", "Payback", "Screening")
+
+
+def _candidates_in_sight(page) -> None:
+    for header in CANDIDATE_HEADLINE:
+        assert in_sight(page, "#candidates", header), header
+    detail = page.locator("#candidates thead th.detail")
+    assert detail.count() == 5 and not detail.first.is_visible()
+    # a design that fails shows the rules it fails under its verdict, in sight too
+    failing = page.locator("#candidates-more tbody tr", has_text="fails").first
+    page.locator("#candidates-more").locator("xpath=ancestor::details").evaluate("d => { d.open = true; }")
+    cell = failing.locator("td").nth(4)
+    assert cell.locator(".pill.bad").inner_text() == "fails" and cell.locator(".hint").inner_text()
+    frame = page.locator("#candidates-more").locator("xpath=..")
+    assert frame.evaluate("f => f.scrollWidth <= f.clientWidth + 1")
+    page.locator("label[for=candidates-all]").click()
+    assert detail.first.is_visible() and document_width(page) <= 1280
+
+
+def test_the_candidates_headline_columns_are_in_sight(server, page):
+    """The saved case and the form's result: design, NPV, payback and the screening verdict (with
+    the rules a design fails) in sight without sideways scrolling; the rest behind "All columns"."""
+    _open(page, server + f"/scenarios/{quote(OPTIMISED)}")
+    _candidates_in_sight(page)
+    _open(page, server + "/scenario?meter=KQ-MAIN")
+    page.locator("input[name=design][value=optimise]").check()
+    page.locator("#scenario-form button[type=submit]").click()
+    page.wait_for_selector("#candidates", timeout=120_000)
+    page.wait_for_load_state("networkidle")
+    assert document_width(page) <= 1280
+    _candidates_in_sight(page)
 
 
 def test_detail_columns_wait_behind_a_toggle_and_the_first_column_stays(server, page):

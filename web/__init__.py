@@ -100,9 +100,10 @@ def create_app(config: dict | None = None, store=None) -> Flask:
     security.init_app(app)
 
     from auditor.web import alerts, bills, data, meters, portfolio, report, scenarios, tariffs
-    from auditor.web.urls import FormatConverter, MeterIdConverter
+    from auditor.web.urls import FormatConverter, MeterIdConverter, ScenarioNameConverter
 
-    app.url_map.converters.update(meter=MeterIdConverter, ext=FormatConverter)  # any meter id
+    # any meter id, any scenario name
+    app.url_map.converters.update(meter=MeterIdConverter, scenario=ScenarioNameConverter, ext=FormatConverter)
     for bp in (portfolio.bp, meters.bp, scenarios.bp, report.bp, data.bp, tariffs.bp, bills.bp, alerts.bp,
                security.bp):
         app.register_blueprint(bp)

@@ -88,7 +88,7 @@ def check():
     return _back()
 
 
-@bp.post("/meters/<meter>/tariff")
+@bp.post("/meters/<meter:meter>/tariff")
 def set_tariff(meter: str):
     s = store()
     name = request.form.get("tariff") or ""

@@ -37,7 +37,7 @@ def _page(form: UploadForm, status: int = 200, outcome: dict | None = None):
         if UPLOAD_PREFIX in b["file_name"]:  # uploaded here: the server's temporary folder means nothing
             b["file_name"] = b["short_name"]
         for e in b["errors"]:
-            e["message"] = page_message(str(e.get("message") or ""))
+            e["message"] = page_message(str(e.get("message") or ""), cli_hint=e.get("cli_hint"))
     quality = quality_overview(s)
     zones = sorted({q["timezone"] for q in quality})
     # a batch belongs to no one site: its times are shown in the sites' zone when they share
@@ -74,9 +74,9 @@ def upload():
         shutil.rmtree(folder, ignore_errors=True)
     outcome["short_name"] = name
     outcome["path"] = name  # the page never shows the server's temporary folder
-    outcome["message"] = page_message(outcome.get("message") or "", str(path), name)
+    outcome["message"] = page_message(outcome.get("message") or "", str(path), name, outcome.get("cli_hint"))
     for item in outcome.get("errors", []) + outcome.get("warnings", []):
-        item["message"] = page_message(item["message"], str(path), name)
+        item["message"] = page_message(item["message"], str(path), name, item.get("cli_hint"))
     if outcome["status"] in ("rejected", "older"):  # an older export changed nothing: not a success
         return _page(_form(), 422, outcome=outcome)
     flash(f"{name}: {outcome['status']} — {outcome['message']}", "ok")

@@ -85,8 +85,9 @@ def tariff_for_scenario(saved: dict) -> tuple[str, Tariff]:
                         "which the dashboard does not have; put its TOML file in the instance folder's tariffs/")
 
 
-#: Command-line wording that may reach the page inside a message from below (the importer's
-#: messages speak to both), and what the page calls the same thing.
+#: Command-line wording that messages stored by earlier versions may still hold (a rejected
+#: import's errors), and what the page calls the same thing. Messages now speak of the data and
+#: carry the option as ``cli_hint`` (see :func:`page_message`).
 _PAGE_WORDS = (
     (re.compile(r"(?:give|use) --profile"), "choose a mapping profile"),
     (re.compile(r"give --timezone"), "fill in the time zone"),
@@ -95,11 +96,30 @@ _PAGE_WORDS = (
 )
 
 
-def page_message(text: str, temp_path: str | None = None, shown_name: str | None = None) -> str:
+#: The command line's hint (an option) that the upload form answers with a field of its own, and
+#: what the page says instead; a hint with no field here is the command line's only.
+_PAGE_HINTS = (
+    (re.compile(r"--timezone\b"), "fill in the time zone on the form"),
+    (re.compile(r"--profile\b"), "choose a mapping profile on the form"),
+)
+
+
+def page_hint(cli_hint: str | None) -> str | None:
+    """What the page says for a command-line hint, or None when the page has no such field."""
+    for pattern, words in _PAGE_HINTS:
+        if cli_hint and pattern.search(cli_hint):
+            return words
+    return None
+
+
+def page_message(text: str, temp_path: str | None = None, shown_name: str | None = None,
+                 cli_hint: str | None = None) -> str:
     """A message as the page should say it: the upload's own name instead of the server's
-    temporary path, and the form's words instead of command-line options."""
+    temporary path, and, for a hint the form answers, the form's words (never a command-line
+    option)."""
     if temp_path and shown_name:
         text = text.replace(str(temp_path), shown_name)
     for pattern, words in _PAGE_WORDS:
         text = pattern.sub(words, text)
-    return text
+    hint = page_hint(cli_hint)
+    return f"{text} — {hint}" if hint and hint not in text else text

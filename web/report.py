@@ -44,11 +44,29 @@ def _paper() -> str:
     return paper
 
 
+#: Characters no file name may hold on common systems (and control characters).
+_UNSAFE_IN_FILE_NAMES = re.compile(r'[\x00-\x1f\x7f/\\:*?"<>|]+')
+
+
+def disposition(stem: str, fmt: str) -> str:
+    """``attachment`` with an ASCII file name, and the name in UTF-8 (RFC 6266 ``filename*``)
+    when it holds more than ASCII letters, digits, dots, dashes and underscores (a scenario
+    named "Zählpunkt 7 %" downloads as ``Zählpunkt_7_%.pdf``, not ``Z_hlpunkt_7.pdf``)."""
+    from urllib.parse import quote
+
+    plain = _SAFE.sub("_", stem).strip("_") or "case"
+    out = f'attachment; filename="{plain}.{fmt}"'
+    full = _UNSAFE_IN_FILE_NAMES.sub("_", stem).strip(" ._") or plain
+    full = re.sub(r"\s+", "_", full)
+    if full != plain:
+        out += f"; filename*=UTF-8''{quote(full + '.' + fmt, safe='')}"
+    return out
+
+
 def _download(body: bytes, fmt: str, stem: str, nonce: str | None = None) -> Response:
-    stem = _SAFE.sub("_", stem).strip("_") or "case"
     resp = Response(body, mimetype=MIME[fmt].split(";")[0])
     resp.headers["Content-Type"] = MIME[fmt]
-    resp.headers["Content-Disposition"] = f'attachment; filename="{stem}.{fmt}"'
+    resp.headers["Content-Disposition"] = disposition(stem, fmt)
     if fmt == "html":
         # the document carries its own scripts; allow exactly those (by nonce), nothing remote
         resp.headers["Content-Security-Policy"] = (
@@ -76,10 +94,14 @@ def case(fmt: str):
         tariff = None
     report = rp.build_case(store(), name, tariff, with_profile=fmt in ("html", "pdf"), saved=saved)
     paper = _paper()
+    table = request.args.get("table") or "periods"
+    if table not in rp.CSV_TABLES:
+        raise UsageError(f"unknown table {table!r}: choose one of {', '.join(rp.CSV_TABLES)}")
     nonce = secrets.token_urlsafe(16)
     body = rp.render_html(report, nonce=nonce, paper=paper).encode("utf-8") if fmt == "html" \
-        else rp.render(report, fmt, paper)
-    return _download(body, fmt, f"{saved['meter']}_{name}", nonce)
+        else rp.render(report, fmt, paper, table if fmt == "csv" else "periods")
+    suffix = f"_{table}" if fmt == "csv" and table != "periods" else ""
+    return _download(body, fmt, f"{saved['meter']}_{name}{suffix}", nonce)
 
 
 @bp.post("/case/cover")

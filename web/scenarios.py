@@ -27,6 +27,7 @@ from auditor.services.meters import list_meters
 from auditor.services.portfolio import load_named_tariff
 from auditor.web.forms import COSTS, DeleteForm, ScenarioForm, choices
 from auditor.web.helpers import default_tariff_name, store, tariff_choices, tariff_dirs
+from auditor.web.tables import Col, rows_of
 
 bp = Blueprint("scenarios", __name__)
 
@@ -122,9 +123,38 @@ def _case_context(case: dict) -> dict:
     if scan is not None:
         figs.append(("scan", scan))
     cols, rows = rp.scenario_rows(case)
+    candidates = case.get("candidates") or []
+    ccols = candidate_columns(case.get("currency") or "")
     return {"case": case, "case_charts": {k: charts.figure_json(f) for k, f in figs},
-            "case_columns": cols, "case_rows": rows,
-            "candidate_columns": rp.candidate_columns(case.get("currency") or "")}
+            "case_columns": cols, "case_rows": rows, "candidate_columns": ccols,
+            "candidate_rows": rows_of(ccols, candidates),
+            "candidate_classes": ["chosen" if c.get("chosen") else "" for c in candidates]}
+
+
+def screening_cell(c: dict) -> dict:
+    """A candidate's verdict as a pill, the rules it fails under it."""
+    if c.get("passed_screening"):
+        return {"value": "passes", "pill": "ok"}
+    rules = ", ".join(str(r).replace("_", " ") for r in c.get("failed_rules") or [])
+    return {"value": "fails", "pill": "bad", "note": rules or None, "wrap": True}
+
+
+def candidate_columns(cur: str) -> list[Col]:
+    """The optimiser's candidates: what a reader compares first — the design, its NPV, its
+    payback and whether it passes screening (and which rules it fails) — then the rest behind
+    "All columns"."""
+    return [
+        Col("Rank", lambda c: c["rank"], "int"),
+        Col("Design", lambda c: c["label"]),
+        Col(f"NPV ({cur})", lambda c: c["npv"], "money"),
+        Col("Payback (years)", lambda c: c["simple_payback_years"], "power"),
+        Col("Screening", screening_cell),
+        Col(f"Saving a year ({cur})", lambda c: c["annual_savings"], "money", detail=True),
+        Col(f"Capex ({cur})", lambda c: c["capex"], "money", detail=True),
+        Col("Total (kvar)", lambda c: c["total_kvar"], "power", detail=True),
+        Col("PF after", lambda c: c["pf_after"], "pf", detail=True),
+        Col("Resonance order h", lambda c: c.get("resonance_order"), "power", detail=True),
+    ]
 
 
 def _page(form: CaseForm, status: int = 200, **ctx):
@@ -214,7 +244,7 @@ def index():
     return render_template("scenarios.html", saved=list_scenarios(store()), delete_form=DeleteForm())
 
 
-@bp.get("/scenarios/<path:name>")
+@bp.get("/scenarios/<scenario:name>")
 def show(name: str):
     saved = get_scenario(store(), name)
     form = _form()
@@ -222,6 +252,13 @@ def show(name: str):
     from auditor.web.report import cover_form
 
     return _page(form, **_case_context(saved["result"]), scenario=saved, cover_form=cover_form(name))
+
+
+@bp.get("/scenarios/<path:name>")
+def show_old_address(name: str):
+    """An address from before names were written as one segment ("/scenarios/Bay 3/west"):
+    to the scenario's own address."""
+    return redirect(url_for("scenarios.show", name=name), 308)
 
 
 @bp.post("/scenarios/delete")

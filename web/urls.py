@@ -1,4 +1,4 @@
-"""Meter ids in addresses.
+"""Meter ids and scenario names in addresses.
 
 A meter id is whatever its file gave it: "PLANT/7", "Feeder 2 #A", "50%", "Zählpunkt-電",
 ".spare", "..". A path segment cannot carry all of that: a server decodes "%2F" back into "/"
@@ -6,7 +6,9 @@ before routing (so the id would span two segments), and browsers fold "." and ".
 and read a backslash as a slash. The ``meter`` converter therefore writes, before the usual
 percent-encoding, ``~`` as ``~7E``, ``/`` as ``~2F``, a backslash as ``~5C`` and a leading ``.``
 as ``~2E``, and reads any ``~XX`` (two hex digits) back. Ordinary ids ("KQ-MAIN") look the same
-as before, and every ``url_for(..., meter=...)`` encodes through it.
+as before, and every ``url_for(..., meter=...)`` encodes through it. A saved scenario's name is
+free text too ("Bay 3 / 7 % detuned", "..", "50% — Zählpunkt"): the ``scenario`` converter is the
+same rule (``/scenarios/<scenario:name>``).
 """
 from __future__ import annotations
 
@@ -38,6 +40,10 @@ class MeterIdConverter(BaseConverter):
 
     def to_url(self, value: str) -> str:
         return super().to_url(escape_meter(str(value)))
+
+
+class ScenarioNameConverter(MeterIdConverter):
+    """``<scenario:name>``: one path segment holding any scenario name (the meter ids' rule)."""
 
 
 class FormatConverter(BaseConverter):

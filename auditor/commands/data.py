@@ -8,6 +8,7 @@ import click
 
 from auditor.commands.context import Context, pass_ctx
 from auditor.commands.options import json_option, timezone_option
+from auditor.errors import cli_text
 from auditor.render import echo_json
 
 
@@ -122,15 +123,16 @@ def _print_outcomes(ctx: Context, files: list[dict], message: str | None = None)
         else:
             ctx.say(line)
         if f.get("message") and not rejected:
-            ctx.say(f"          {f['message']}")
+            ctx.say(f"          {cli_text(f['message'], f.get('cli_hint'))}")
         for e in f.get("errors", [])[:20]:
             where = ", ".join(x for x in (f"line {e['line']}" if e.get("line") else "",
                                           f"column {e['column']!r}" if e.get("column") else "") if x)
-            click.echo(f"          error: {where + ': ' if where else ''}{e['message']}", err=True)
+            click.echo(f"          error: {where + ': ' if where else ''}{cli_text(e['message'], e.get('cli_hint'))}",
+                       err=True)
         warnings = f.get("warnings", [])
         for w in warnings[:10]:
             where = f"line {w['line']}: " if w.get("line") else ""
-            ctx.say(f"          warning: {where}{w['message']}")
+            ctx.say(f"          warning: {where}{cli_text(w['message'], w.get('cli_hint'))}")
         if len(warnings) > 10:
             ctx.say(f"          … {len(warnings) - 10} more warning(s) (see --json)")
 

@@ -26,10 +26,14 @@ SUFFIXES = (".html", ".htm", ".pdf", ".xlsx", ".csv")
                    "Chromium), .xlsx, .csv.")
 @click.option("--paper", type=click.Choice(["a4", "letter"]), default="a4", show_default=True,
               help="Paper size of the printed document (.html print stylesheet and .pdf).")
+@click.option("--table", "csv_table", type=click.Choice(["periods", "summary", "specification"]), default="periods",
+              show_default=True,
+              help="With a .csv file: which table it holds (a CSV is one table) — the audit by period "
+                   "(before/after for a scenario), the summary, or the specification.")
 @cover_options
 @pass_ctx
 def report_cmd(ctx: Context, meter: str | None, site: str | None, tariff: str | None, scenario: str | None,
-               out: Path, paper: str, **kwargs):
+               out: Path, paper: str, csv_table: str, **kwargs):
     """Write the case document of a saved scenario, the audit report of a meter, or with --site
     the portfolio of a site's meters."""
     from dataclasses import replace
@@ -40,11 +44,16 @@ def report_cmd(ctx: Context, meter: str | None, site: str | None, tariff: str | 
         raise click.UsageError("give either --meter M or --site NAME")
     cover = cover_of(kwargs)
     if site is not None:
+        if csv_table != "periods":
+            raise click.UsageError("--table belongs to a case document or a meter's report, not a site's portfolio")
         return _site_report(ctx, site, tariff, scenario, out, cover)
     if out.suffix.lower() not in SUFFIXES:
         raise click.BadParameter(f"{out.name}: the file name must end in .html, .pdf, .xlsx or .csv",
                                  param_hint="--out")
     fmt = rp.format_of(out)
+    if csv_table != "periods" and fmt != "csv":
+        raise click.BadParameter(f"{csv_table}: a table is chosen for a .csv file only (the other formats hold "
+                                 "every table)", param_hint="--table")
     if scenario:
         if cover:
             rp.set_scenario_cover(ctx.store, scenario, **cover)
@@ -63,7 +72,7 @@ def report_cmd(ctx: Context, meter: str | None, site: str | None, tariff: str | 
         report = rp.build_report(ctx.store, meter, tariff, with_profile=fmt in ("html", "pdf"))
         if cover:
             report = replace(report, cover=cover)
-    path = rp.write_document(report, out, paper=paper)
+    path = rp.write_document(report, out, paper=paper, table=csv_table)
     ctx.say(f"wrote {path} ({path.stat().st_size:,} bytes)")
     return 0
 

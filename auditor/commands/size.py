@@ -14,8 +14,8 @@ from auditor.commands.case import (
     finance_options,
 )
 from auditor.commands.context import Context, pass_ctx
-from auditor.commands.options import NounGroup
-from auditor.render import echo_json, fmt, table
+from auditor.commands.options import NounGroup, wide_option
+from auditor.render import echo_json, fmt, table, wrap, wrapped_table
 
 STATUS_WORD = {"pass": "pass", "caution": "CAUTION", "fail": "FAIL"}
 
@@ -30,19 +30,20 @@ def _headline(d: dict) -> list[str]:
     o = d.get("optimiser")
     failing = _failing_rules(d)
     if o and o["status"] == "none_passes":
-        lines.append(f"NO DESIGN PASSES SCREENING — {o['message']}")
+        lines.append(wrap(f"NO DESIGN PASSES SCREENING — {o['message']}"))
     elif o:
-        lines.append(("Recommended: " if o["status"] == "recommended" else "Recommended (nearest that passes): ")
-                     + d["bank"]["label"])
+        lines.append(wrap(("Recommended: " if o["status"] == "recommended" else "Recommended (nearest that passes): ")
+                          + d["bank"]["label"]))
         if o["status"] != "recommended":
-            lines.append(f"  {o['message']}")
+            lines.append(wrap(o["message"], "  "))
     if failing:
         lines.append("NOT RECOMMENDED — this design fails screening:")
-        lines += [f"  FAIL {r['rule']}: {r['message']}" for r in failing]
+        lines += [wrap(f"FAIL {r['rule']}: {r['message']}", "  ") for r in failing]
         alt = d.get("alternative")
         if alt:
-            lines.append(f"  Nearest design that passes: {alt['label']} ({alt['why']}; saving "
-                         f"{fmt(alt['annual_savings'])}/yr, capex {fmt(alt['capex'])}, NPV {fmt(alt['npv'])})")
+            lines.append(wrap(f"Nearest design that passes: {alt['label']} ({alt['why']}; saving "
+                              f"{fmt(alt['annual_savings'])}/yr, capex {fmt(alt['capex'])}, NPV {fmt(alt['npv'])})",
+                              "  "))
         elif not o:
             lines.append("  None of its nearest remedies (detuned, smaller steps, automatic) passes either.")
     return lines
@@ -70,72 +71,89 @@ def _finance_items(d: dict, cur: str) -> list[str]:
     return out
 
 
-def render_case(d: dict) -> str:
+#: The candidate table: (heading, detail column?). Headline first: the design, its money and
+#: its screening; the rest behind --wide.
+CANDIDATE_COLUMNS = (("#", False), ("design", False), ("kvar", True), ("capex", True), ("saving/yr", False),
+                     ("NPV", False), ("payback y", False), ("PF after", True), ("screen", False))
+
+
+def _candidate_row(c: dict) -> list:
+    return [c["rank"], c["label"], c["total_kvar"], c["capex"], c["annual_savings"], c["npv"],
+            c["simple_payback_years"], c["pf_after"],
+            "ok" if c["passed_screening"] else "FAIL " + ", ".join(c.get("failed_rules", []))]
+
+
+def render_case(d: dict, wide: bool = False) -> str:
+    """The case as text: the failing rules (or the optimiser's verdict) first, then the design,
+    money, screening, specification, harmonics, candidates, warnings and cautions. Every line
+    fits :data:`auditor.render.WIDTH` columns unless ``wide``."""
     cur = d.get("currency") or ""
     b = d["bank"]
-    lines = [f"Meter {d['meter']} ({d['site']}) under tariff {d['tariff']!r}, target PF {d['target_pf']:.2f}"]
+    lines = [wrap(f"Meter {d['meter']} ({d['site']}) under tariff {d['tariff']!r}, target PF {d['target_pf']:.2f}")]
     lines += _headline(d)
     lines += ["",
-              f"Design: {b.get('label') or b['kind']} — {b['kind'].replace('_', ' ')}, steps "
-              f"{', '.join(f'{s:g}' for s in b['steps_kvar'])} kvar, total {b['total_kvar']:g} kvar"
-              + (f", detuned {b['detuning']['reactor_percent']:g} %" if b.get("detuning") else ""),
-              f"Energy PF {fmt(d.get('pf_before'), 3)} → {fmt(d.get('pf_after'), 3)}"
-              + (" leading" if d.get("pf_after_sense") == "leading" else "")
-              + f"; peak kVA {fmt(d['capacity']['peak_kva_before'], 1)} → {fmt(d['capacity']['peak_kva_after'], 1)} "
-              f"(released {fmt(d['capacity']['released_kva'], 1)} kVA)", ""]
+              wrap(f"Design: {b.get('label') or b['kind']} — {b['kind'].replace('_', ' ')}, steps "
+                   f"{', '.join(f'{s:g}' for s in b['steps_kvar'])} kvar, total {b['total_kvar']:g} kvar"
+                   + (f", detuned {b['detuning']['reactor_percent']:g} %" if b.get("detuning") else "")),
+              wrap(f"Energy PF {fmt(d.get('pf_before'), 3)} → {fmt(d.get('pf_after'), 3)}"
+                   + (" leading" if d.get("pf_after_sense") == "leading" else "")
+                   + f"; peak kVA {fmt(d['capacity']['peak_kva_before'], 1)} → "
+                   f"{fmt(d['capacity']['peak_kva_after'], 1)} (released {fmt(d['capacity']['released_kva'], 1)} kVA)"),
+              ""]
     lines.append(table(["charge", f"saving / year {cur}"],
-                       [[k, v] for k, v in d["savings_by_charge"].items()] + [["total", d["annual_savings"]]]))
+                       [[k, v] for k, v in d["savings_by_charge"].items()] + [["total", d["annual_savings"]]],
+                       wide=wide))
     irr = d.get("irr")
-    lines += ["", f"Capex {fmt(d['capex'])} {cur}; simple payback {fmt(d.get('simple_payback_years'), 1)} years; "
-              f"discounted payback {fmt(d.get('discounted_payback_years'), 1)} years",
-              f"NPV over {d['life_years']} years at {100 * d['discount_rate']:.1f} %: {fmt(d['npv'])} {cur}; "
-              f"IRR {'-' if irr is None else f'{100 * irr:.1f} %'}"]
-    lines += _finance_items(d, cur)
+    lines += ["", wrap(f"Capex {fmt(d['capex'])} {cur}; simple payback {fmt(d.get('simple_payback_years'), 1)} years; "
+                       f"discounted payback {fmt(d.get('discounted_payback_years'), 1)} years"),
+              wrap(f"NPV over {d['life_years']} years at {100 * d['discount_rate']:.1f} %: {fmt(d['npv'])} {cur}; "
+                   f"IRR {'-' if irr is None else f'{100 * irr:.1f} %'}")]
+    lines += [wrap(x) for x in _finance_items(d, cur)]
     s = d["screening"]
     verdict = {"pass": "PASSED", "caution": "PASSED with cautions", "fail": "NOT PASSED"}[s.get("status", "pass")]
     lines += ["", f"Screening — {verdict}:",
               table(["rule", "status", "value", "limit"],
                     [[r["rule"], STATUS_WORD[r["status"]], _value(r),
                       "-" if r["limit"] is None else f"{fmt(r['limit'], 2)} {r.get('unit') or ''}".strip()]
-                     for r in s.get("rules", [])])]
-    lines += [f"  {STATUS_WORD[r['status']]} {r['rule']}: {r['message']}" for r in s.get("rules", [])
+                     for r in s.get("rules", [])], wide=wide)]
+    lines += [wrap(f"{STATUS_WORD[r['status']]} {r['rule']}: {r['message']}", "  ") for r in s.get("rules", [])
               if r["status"] == "caution"]
     spec = d.get("specification")
     if spec:
         lines += ["", "Specification" + ("" if spec.get("recommended", True) else " (NOT RECOMMENDED as it stands)") + ":",
-                  table(["section", "item", "value", "unit", "note"],
-                        [[r["section"], r["label"], r["value"], r["unit"], r["note"]]
-                         for r in spec["rows"] if r["section"] != "Cautions"])]
+                  wrapped_table(["section", "item", "value", "unit", "note"],
+                                [[r["section"], r["label"], r["value"], r["unit"], r["note"]]
+                                 for r in spec["rows"] if r["section"] != "Cautions"],
+                                {1: 24, 2: 14, 4: 24}, wide=wide)]
     h = d.get("harmonics")
     if h and h.get("thd_v_pct_with") is not None:
         label = "ESTIMATED (not measured)" if h["source"] == "estimated" else "measured"
-        lines += ["", f"Harmonics, {label} — {h.get('note') or ''}",
-                  f"Voltage THD at the bus {fmt(h['thd_v_pct_without'], 2)} % without, "
-                  f"{fmt(h['thd_v_pct_with'], 2)} % with the bank's largest stage (limits: "
-                  f"{h['limits']['individual_pct']:g} % individual, {h['limits']['thd_pct']:g} % THD, "
-                  "IEEE Std 519-2014)",
+        lines += ["", wrap(f"Harmonics, {label} — {h.get('note') or ''}"),
+                  wrap(f"Voltage THD at the bus {fmt(h['thd_v_pct_without'], 2)} % without, "
+                       f"{fmt(h['thd_v_pct_with'], 2)} % with the bank's largest stage (limits: "
+                       f"{h['limits']['individual_pct']:g} % individual, {h['limits']['thd_pct']:g} % THD, "
+                       "IEEE Std 519-2014)"),
                   table(["order", "current A", "bus V % without", "bus V % with"],
                         [[o["order"], o["current_a"], o["bus_voltage_pct_without"], o["bus_voltage_pct_with"]]
-                         for o in h["orders"]]),
-                  "Capacitor duty (% of rating; IEEE Std 18 limits 110 / 120 / 135 / 135): "
-                  + ", ".join(f"{k.replace('_pct', '').replace('_', ' ')} {fmt(v, 1)}"
-                              for k, v in h["capacitor_duty"].items())]
+                         for o in h["orders"]], wide=wide),
+                  wrap("Capacitor duty (% of rating; IEEE Std 18 limits 110 / 120 / 135 / 135): "
+                       + ", ".join(f"{k.replace('_pct', '').replace('_', ' ')} {fmt(v, 1)}"
+                                   for k, v in h["capacitor_duty"].items()))]
     elif h:
-        lines += ["", f"Harmonics ({'ESTIMATED' if h['source'] == 'estimated' else 'measured'}): "
-                      f"{h.get('why_incomplete') or ''}"]
+        lines += ["", wrap(f"Harmonics ({'ESTIMATED' if h['source'] == 'estimated' else 'measured'}): "
+                           f"{h.get('why_incomplete') or ''}")]
     if d.get("optimiser"):
         o = d["optimiser"]
         lines += ["", f"Optimiser: {o['designs_compared']} designs compared, {o['passed']} pass screening"]
-        lines += [f"  {f['message']}" for f in o["families"]]
+        lines += [wrap(f["message"], "  ") for f in o["families"]]
     if d.get("candidates"):
         top = d["candidates"][:10]
-        lines += ["", f"Best 10 of {len(d['candidates'])} (designs that pass first):",
-                  table(["#", "design", "kvar", "capex", "saving/yr", "NPV", "payback y", "PF after", "screen"],
-                        [[c["rank"], c["label"], c["total_kvar"], c["capex"], c["annual_savings"], c["npv"],
-                          c["simple_payback_years"], c["pf_after"],
-                          "ok" if c["passed_screening"] else "FAIL " + ",".join(c.get("failed_rules", []))]
-                         for c in top])]
-    shown = set(r["message"] for r in _failing_rules(d))
+        lines += ["", f"Best {len(top)} of {len(d['candidates'])} (designs that pass first"
+                      + ("" if wide else "; --wide adds kvar, capex and PF after") + "):",
+                  table([h for h, _ in CANDIDATE_COLUMNS], [_candidate_row(c) for c in top],
+                        detail=[x for _, x in CANDIDATE_COLUMNS], wide=wide)]
+    # a rule's message is printed once: under the headline (fail) or the screening table (caution)
+    shown = set(r["message"] for r in s.get("rules", []) if r["status"] in ("fail", "caution"))
     if d.get("alternative"):
         shown.update(w for w in d.get("warnings", []) if "the nearest design that passes is" in w)
     if d.get("optimiser"):
@@ -143,8 +161,22 @@ def render_case(d: dict) -> str:
         shown.update(f["message"] for f in d["optimiser"]["families"])
     for w in d.get("warnings", []):
         if w not in shown:
-            lines.append(f"warning: {w}")
-    lines += ["", "Cautions:"] + [f"  - {c}" for c in d.get("cautions", [])]
+            lines.append(wrap(f"warning: {w}"))
+    lines += ["", "Cautions:"] + [wrap(f"- {c}", "  ") for c in d.get("cautions", [])]
+    return "\n".join(lines)
+
+
+def render_site(d: dict, site: str, wide: bool = False) -> str:
+    """A site's correction: which designs fail screening first, then each case, then the total."""
+    lines = [wrap(f"Site {site} ({', '.join(d['meters'])}), {d['mode'].replace('_', ' ')} correction:")]
+    failing = {name: [r["rule"] for r in _failing_rules(sc)] for name, sc in d["scenarios"].items()}
+    failing = {name: rules for name, rules in failing.items() if rules}
+    if failing:
+        lines.append(wrap("NOT RECOMMENDED — fails screening: "
+                          + "; ".join(f"{name} ({', '.join(rules)})" for name, rules in failing.items())))
+    for name, sc in d["scenarios"].items():
+        lines += ["", f"== {name}", render_case({**sc, "meter": name, "site": site, "tariff": d["tariff"]}, wide)]
+    lines += ["", wrap(f"Site total: saving {fmt(d['annual_savings'])}/yr, capex {fmt(d['capex'])}, NPV {fmt(d['npv'])}")]
     return "\n".join(lines)
 
 
@@ -221,12 +253,13 @@ SCREENING_HELP = ("A screening setting KEY=VALUE (repeatable) over the site's an
               help="Last local day, exclusive (default: the end of the data).")
 @click.option("--save", "save_as", metavar="NAME", help="Save the scenario under NAME.")
 @cover_options
+@wide_option
 @click.option("--json", "json_out", is_flag=True, help="Machine-readable output (the same data as the table).")
 @pass_ctx
 def size_cmd(ctx: Context, meter, site, mode, tariff, target_pf, fixed_kvar, steps, reactor_kvar, switch_off_kvar,
              optimise, detuning_percent, leading_pf_limit, capacitor_rated_voltage_v, harmonics_file, fundamental_a,
              measured_kw, measured_pf, drive_share, screening, capex_per_kvar, capex_fixed, life_years,
-             discount_rate, escalation, start, end, save_as, json_out, **case_kwargs):
+             discount_rate, escalation, start, end, save_as, wide, json_out, **case_kwargs):
     """Size power factor correction (or a reactor for a leading site), screen it and cost the case."""
     from auditor.services.correction import ScenarioRequest, save_scenario, scenario_for_meter
 
@@ -270,11 +303,7 @@ def size_cmd(ctx: Context, meter, site, mode, tariff, target_pf, fixed_kvar, ste
         if json_out:
             echo_json(d)
         else:
-            click.echo(f"Site {site} ({', '.join(d['meters'])}), {d['mode'].replace('_', ' ')} correction:")
-            for name, sc in d["scenarios"].items():
-                click.echo(f"\n== {name}")
-                click.echo(render_case({**sc, "meter": name, "site": site, "tariff": d["tariff"]}))
-            click.echo(f"\nSite total: saving {fmt(d['annual_savings'])}/yr, capex {fmt(d['capex'])}, NPV {fmt(d['npv'])}")
+            click.echo(render_site(d, site, wide))
         return 0
     case = scenario_for_meter(ctx.store, req)
     d = case.to_dict()
@@ -287,7 +316,7 @@ def size_cmd(ctx: Context, meter, site, mode, tariff, target_pf, fixed_kvar, ste
     if json_out:
         echo_json(d)
     else:
-        click.echo(render_case(d))
+        click.echo(render_case(d, wide))
         if save_as:
             click.echo(f"\nsaved as scenario {save_as!r}")
     return 0
@@ -310,9 +339,10 @@ def scenarios_list(ctx: Context, meter, json_out):
     if json_out:
         echo_json({"scenarios": rows})
         return 0
-    click.echo(table(["name", "meter", "tariff", "saving/yr", "NPV", "payback y"],
-                     [[r["name"], r["meter"], r["tariff"], r["annual_savings"], r["npv"], r["simple_payback_years"]]
-                      for r in rows]))
+    verdict = {True: "passes", False: "FAILS", None: "-"}
+    click.echo(table(["name", "meter", "tariff", "saving/yr", "NPV", "payback y", "screening"],
+                     [[r["name"], r["meter"], r["tariff"], r["annual_savings"], r["npv"], r["simple_payback_years"],
+                       verdict[r["recommended"]]] for r in rows]))
     return 0
 
 

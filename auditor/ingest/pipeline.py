@@ -82,6 +82,7 @@ class FileOutcome:
     errors: list[Problem] = field(default_factory=list)
     warnings: list[Problem] = field(default_factory=list)
     message: str = ""
+    cli_hint: str | None = None  # the option that would help, for the command line only (errors.cli_text)
     detail: str = ""  # for a bug report (an inbox run's error file); not in as_dict
 
     def as_dict(self) -> dict:
@@ -92,6 +93,7 @@ class FileOutcome:
             "superseded": self.superseded, "older": self.older,
             "errors": [p.as_dict() for p in self.errors],
             "warnings": [p.as_dict() for p in self.warnings], "message": self.message,
+            **({"cli_hint": self.cli_hint} if self.cli_hint else {}),
         }
 
 
@@ -339,8 +341,10 @@ def import_file(store: Store, path: str | Path, options: ImportOptions = ImportO
         _older_outcome(outcome, older.counts)
     except AuditorError as exc:
         outcome.status = "rejected"
-        outcome.errors = list(exc.problems) if isinstance(exc, InputError) else [Problem(exc.message)]
+        outcome.errors = (list(exc.problems) if isinstance(exc, InputError)
+                          else [Problem(exc.message, cli_hint=exc.cli_hint)])
         outcome.message = exc.message
+        outcome.cli_hint = exc.cli_hint
     except MemoryError:
         outcome.status = "rejected"
         outcome.errors = [Problem("the file is too large to import in one piece; split it by meter")]
@@ -372,9 +376,10 @@ def _guard(path: Path, expect: tuple[int, int] | None) -> Callable[[], None]:
 
 def _check_options(options: ImportOptions) -> None:
     if options.max_kw is not None and not 0 < options.max_kw <= MAX_KW_CEILING:
-        raise UsageError(f"--max-kw must be above 0 and at most {MAX_KW_CEILING:,.0f} kW, not {options.max_kw:g}")
+        raise UsageError(f"a meter's plausible maximum must be above 0 and at most {MAX_KW_CEILING:,.0f} kW, "
+                         f"not {options.max_kw:g}", cli_hint="--max-kw")
     if options.move and not options.site:
-        raise UsageError("--move needs --site NAME (the site to move the file's meters to)")
+        raise UsageError("moving the file's meters needs the site to move them to", cli_hint="--move needs --site NAME")
 
 
 def _older_outcome(outcome: FileOutcome, counts: WriteCounts) -> None:
@@ -384,8 +389,9 @@ def _older_outcome(outcome: FileOutcome, counts: WriteCounts) -> None:
     outcome.inserted = outcome.revised = 0
     outcome.message = (f"older than the stored data: the file was modified before the file(s) of import batch "
                        f"{batches}, whose values it would change in {counts.older} interval(s); nothing was "
-                       "changed (import it with --force to apply it anyway)")
-    outcome.errors = [Problem(outcome.message)]
+                       "changed")
+    outcome.cli_hint = "import it with --force to apply it anyway"
+    outcome.errors = [Problem(outcome.message, cli_hint=outcome.cli_hint)]
 
 
 def _dry_run(store, path, info, part, options, window, outcome) -> None:
@@ -492,11 +498,13 @@ def _store(store: Store, path: Path, digest: str, mtime: float, info, part: Mete
             outcome.message = f"{counts.inserted} interval(s) stored"
         if counts.superseded:
             note = (f"{counts.superseded} interval(s) carry values that later imports replaced; the newer stored "
-                    "values are kept (--force applies the file's)")
+                    "values are kept")
+            hint = "--force applies the file's"
             if status == "unchanged":
                 outcome.message = ("every row of the file was imported before; " + note + "; nothing changed")
+                outcome.cli_hint = hint
             else:
-                warnings.append(Problem(note))
+                warnings.append(Problem(note, cli_hint=hint))
         batch.status = status
         batch.rows_accepted = outcome.rows
         batch.rows_revised = counts.revised
@@ -542,9 +550,9 @@ class _Sites:
             self.s.flush()
             if self.options.timezone is None:
                 self.warnings.append(Problem(
-                    f"new site {name!r} is billed in UTC, assumed because no --timezone was given: billing "
-                    "periods then begin at midnight UTC. Set the site's zone with auditor sites set "
-                    f"{_quoted(name)} --timezone ZONE (e.g. Europe/Berlin), or import with --timezone ZONE"))
+                    f"new site {name!r} is billed in UTC, assumed because no time zone was given: billing "
+                    "periods then begin at midnight UTC. Set the site's time zone (e.g. Europe/Berlin)",
+                    cli_hint=f": auditor sites set {_quoted(name)} --timezone ZONE, or import with --timezone ZONE"))
         self.cache[name] = site
         return site
 
@@ -565,11 +573,11 @@ class _Sites:
                 meter.site_id = self.site(options.site).id
                 s.flush()
                 s.refresh(meter)
-                self.warnings.append(Problem(f"meter {name} moved from site {old!r} to {options.site!r} (--move)"))
+                self.warnings.append(Problem(f"meter {name} moved from site {old!r} to {options.site!r}"))
             else:
                 self.warnings.append(Problem(
                     f"meter {name} is on site {meter.site.name!r}, not {options.site!r}: its readings were stored "
-                    f"there; add --move to move it to {options.site!r}"))
+                    "there", cli_hint=f"add --move to move it to {options.site!r}"))
         return meter
 
 

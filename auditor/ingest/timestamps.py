@@ -134,8 +134,8 @@ class WallClock:
         shown = raw if raw is not None else pd.Series(naive)
         if self.tz is None:
             raise InputError(file, Problem(
-                f"timestamp {str(shown.iloc[0])!r} has no UTC offset; give --timezone (e.g. Europe/Berlin) "
-                "to read local wall time", int(lines[0]), column))
+                f"timestamp {str(shown.iloc[0])!r} has no UTC offset: the time zone of its local wall time "
+                "(e.g. Europe/Berlin) is needed", int(lines[0]), column, cli_hint="give --timezone ZONE"))
         idx = pd.DatetimeIndex(naive)
         wall = idx.as_unit("s").asi8
         if self.window is not None:

@@ -201,7 +201,7 @@ def _check_bounds(meter: str, values: dict[str, np.ndarray], lines: np.ndarray, 
                 f"{v[i]:g} {unit} in {minutes} minutes is above the plausible maximum for meter {meter} "
                 f"({limit:,.0f} {unit}: {bound_kw:,.0f} kW on average, "
                 f"{'its own bound' if max_kw else 'the default'}); if the meter really measures that much, "
-                "import with --max-kw", int(lines[i]), q))
+                "raise the meter's own bound", int(lines[i]), q, cli_hint="import with --max-kw KW"))
     if problems:
         raise InputError(file, sorted(problems, key=lambda p: p.line or 0)[:MAX_PROBLEMS])
 
@@ -300,7 +300,8 @@ def _estimated_findings(rows: MeterRows) -> None:
 
 
 def _fill_gaps(rows: MeterRows, flag_filled: int) -> None:
-    """Fill missing intervals (asked for with --estimate-gaps); every filled value is flagged."""
+    """Fill missing intervals (asked for at import: ``auditor import --estimate-gaps`` or the upload
+    form); every filled value is flagged."""
     step = rows.interval_minutes * 60
     grid = np.arange(rows.start[0], rows.start[-1] + step, step)
     present = np.isin(grid, rows.start)
@@ -326,7 +327,7 @@ def _fill_gaps(rows: MeterRows, flag_filled: int) -> None:
     flags[~present] |= flag_filled
     n_filled = int((~present).sum())
     rows.findings.append(QualityFinding(rows.meter, "filled", int(grid[0]), int(grid[-1]) + step, n_filled,
-                                        f"{n_filled} missing interval(s) estimated (--estimate-gaps) and flagged"))
+                                        f"{n_filled} missing interval(s) estimated (gaps filled as asked at import) and flagged"))
     rows.start, rows.values, rows.flags = grid, new_vals, flags
 
 

@@ -110,9 +110,10 @@ def parse_as_of(text: str | datetime | None) -> pd.Timestamp:
         try:
             ts = pd.Timestamp(str(text).strip())
         except (ValueError, TypeError):
-            raise UsageError(f"--as-of {text!r} is not an ISO date or date-time (such as 2025-09-29T06:00+02:00)") from None
+            raise UsageError(f"the time of the checks {text!r} is not an ISO date or date-time (such as "
+                             "2025-09-29T06:00+02:00)", cli_hint="--as-of") from None
         if ts is pd.NaT:
-            raise UsageError(f"--as-of {text!r} is not an ISO date or date-time")
+            raise UsageError(f"the time of the checks {text!r} is not an ISO date or date-time", cli_hint="--as-of")
     if ts.tzinfo is None:
         ts = ts.tz_localize("UTC")
     return ts.tz_convert("UTC")
@@ -547,14 +548,14 @@ def mark_seen(store: Store, ids: Sequence[int] = (), *, meter: str | None = None
     """Mark new alerts seen: those with ``ids``, or every new one (of ``meter``). Returns how many
     changed; an id that does not exist is a usage error."""
     if not ids and not every and meter is None:
-        raise UsageError("give alert ids, --meter M or --all")
+        raise UsageError("say which alerts: their ids, a meter, or all of them", cli_hint="ids, --meter M or --all")
     with store.session() as s:
         q = select(Alert).where(Alert.state == "new")
         if ids:
             known = set(s.scalars(select(Alert.id).where(Alert.id.in_(list(ids)))))
             missing = [i for i in ids if i not in known]
             if missing:
-                raise UsageError(f"no alert {missing[0]} (auditor alerts --json lists them with their ids)")
+                raise UsageError(f"no alert {missing[0]}", cli_hint="auditor alerts --json lists them with their ids")
             q = q.where(Alert.id.in_(list(ids)))
         if meter is not None:
             from auditor.store.queries import get_meter

@@ -11,6 +11,7 @@ import secrets
 from datetime import UTC, datetime
 from pathlib import Path
 
+from auditor.correction import CAUTIONS
 from auditor.errors import UsageError
 from auditor.services.correction import get_scenario
 from auditor.services.exports import Column, Workbook, render_csv_table
@@ -64,6 +65,36 @@ METRICS = (
 )
 
 
+def specification_side_by_side(results: list[dict]) -> list[dict]:
+    """The specifications of several cases as rows ``{section, label, unit, values}``: every
+    (section, item) of any of them, in the order the cases give them, a value per case (None
+    where a case has no such row — a plain bank has no tuning order). The unit is the row's
+    own when the cases agree on it; otherwise each value carries its unit. The cautions, the
+    same for every case, are left to the document's cautions."""
+    order: list[tuple[str, str]] = []
+    per_case: list[dict] = []
+    for r in results:
+        rows = [x for x in ((r.get("specification") or {}).get("rows") or []) if x.get("section") != "Cautions"]
+        at = -1
+        for x in rows:
+            key = (x.get("section"), x.get("label"))
+            if key in order:
+                at = order.index(key)
+            else:
+                at += 1
+                order.insert(at, key)
+        per_case.append({(x.get("section"), x.get("label")): x for x in rows})
+    out = []
+    for key in order:
+        cells = [case.get(key) for case in per_case]
+        units = {c.get("unit") or "" for c in cells if c is not None}
+        common = units.pop() if len(units) == 1 else None
+        values = [None if c is None else (c.get("value") if common is not None
+                                          else f"{c.get('value')} {c.get('unit') or ''}".strip()) for c in cells]
+        out.append({"section": key[0], "label": key[1], "unit": common or "", "values": values})
+    return out
+
+
 def compare_scenarios(store: Store, names: list[str]) -> dict:
     """The comparison document: scenarios, metric rows (one value per scenario), cash flows."""
     if not 2 <= len(names) <= 4:
@@ -93,6 +124,8 @@ def compare_scenarios(store: Store, names: list[str]) -> dict:
         "cash_flows": {s["name"]: [{"year": r["year"], "net": r["net"], "cumulative": r["cumulative"],
                                     "discounted_cumulative": r["discounted_cumulative"]}
                                    for r in s["result"].get("cash_flow") or []] for s in saved},
+        "specification": specification_side_by_side([s["result"] for s in saved]),
+        "cautions": list(dict.fromkeys(c for s in saved for c in (s["result"].get("cautions") or CAUTIONS))),
         "warnings": warnings,
         "generated_at": datetime.now(UTC).isoformat(timespec="seconds"),
     }
@@ -105,16 +138,34 @@ def _show(v, kind: str) -> str:
 
 
 def render_text(cmp: dict) -> str:
-    from auditor.render import table
+    from auditor.render import wrap, wrapped_table
 
     names = [s["name"] for s in cmp["scenarios"]]
     body = [[f"{r['label']}" + (f" ({r['unit']})" if r["unit"] else "")] + [_show(v, r["kind"]) for v in r["values"]]
             for r in cmp["rows"]]
-    lines = [table(["", *names], body)]
+    lines = [wrapped_table(["", *names], body, {i: 12 for i in range(len(names) + 1)})]
     if cmp["best"]:
         lines.append(f"\nBest NPV among those that pass screening: {cmp['best']}")
-    lines += [f"warning: {w}" for w in cmp["warnings"]]
+    lines += [wrap(f"warning: {w}") for w in cmp["warnings"]]
+    spec = cmp.get("specification") or []
+    if spec:
+        lines += ["", "Specification:",
+                  wrapped_table(["section", "item", "unit", *names],
+                                [[r["section"], r["label"], r["unit"], *("–" if v is None else v for v in r["values"])]
+                                 for r in spec], {1: 16, 2: 6, **{3 + i: 10 for i in range(len(names))}})]
+    if cmp.get("cautions"):
+        lines += ["", "Cautions:"] + [wrap(f"- {c}", "  ") for c in cmp["cautions"]]
     return "\n".join(lines)
+
+
+def spec_item(row: dict) -> str:
+    """A specification row's item in the comparison's one-table exports (CSV, XLSX):
+    ``Specification — Capacitors: rated voltage``."""
+    return f"{SPEC_PREFIX}{row['section']}: {row['label']}"
+
+
+#: What starts the item of a specification row in the comparison's CSV and XLSX.
+SPEC_PREFIX = "Specification — "
 
 
 # --------------------------------------------------------------------------------------------
@@ -148,6 +199,13 @@ def render_xlsx(cmp: dict) -> bytes:
         book.put(ws, r_i, 2, row["unit"])
         for j, v in enumerate(row["values"], start=3):
             book.put(ws, r_i, j, v, row["kind"])
+    r_i = len(cmp["rows"]) + 1
+    for row in cmp.get("specification") or []:
+        r_i += 1
+        book.put(ws, r_i, 1, spec_item(row))
+        book.put(ws, r_i, 2, row["unit"])
+        for j, v in enumerate(row["values"], start=3):
+            book.put(ws, r_i, j, v)
     book.fit(ws, ["Item", "Unit", *[s["name"] for s in cmp["scenarios"]]])
     ws.freeze_panes = "C2"
     years = sorted({r["year"] for rows in cmp["cash_flows"].values() for r in rows})
@@ -166,6 +224,8 @@ def render_xlsx(cmp: dict) -> bytes:
                              Column("Author", lambda s: s["cover"].get("author"))], cmp["scenarios"])
     if cmp["warnings"]:
         book.table("Warnings", [Column("Warning", lambda w: w)], cmp["warnings"])
+    if cmp.get("cautions"):
+        book.table("Cautions", [Column("Caution", lambda x: x)], cmp["cautions"])
     return book.save()
 
 
@@ -173,7 +233,8 @@ def render_csv(cmp: dict) -> bytes:
     cols = [Column("Item", lambda r: r["label"]), Column("Unit", lambda r: r["unit"])]
     for i, s in enumerate(cmp["scenarios"]):
         cols.append(Column(s["name"], lambda r, i=i: r["values"][i]))
-    return render_csv_table(cols, cmp["rows"])
+    spec = [{"label": spec_item(r), "unit": r["unit"], "values": r["values"]} for r in cmp.get("specification") or []]
+    return render_csv_table(cols, list(cmp["rows"]) + spec)
 
 
 def render_comparison(cmp: dict, fmt: str, paper: str = "a4") -> bytes:

@@ -12,11 +12,12 @@ from __future__ import annotations
 
 import json
 import math
+import re
 from dataclasses import InitVar, dataclass, field, fields
 from datetime import date
 from pathlib import Path
 
-from sqlalchemy import select
+from sqlalchemy import func, select
 
 from auditor.correction import (
     BankDesign,
@@ -123,7 +124,8 @@ def design_of(req: ScenarioRequest) -> BankDesign | None:
                           req.reactor_kvar is not None, req.switch_off_kvar is not None) if x]
     if len(chosen) != 1:
         raise UsageError("choose exactly one of the designs: a fixed bank, an automatic bank's steps, a reactor, "
-                         "existing capacitance to switch off, or the optimiser")
+                         "existing capacitance to switch off, or the optimiser",
+                         cli_hint="one of --fixed, --bank, --reactor, --switch-off, --optimise")
     if req.fixed_kvar is not None:
         return BankDesign.fixed(req.fixed_kvar, detuning_percent=req.detuning_percent,
                                 capacitor_rated_voltage_v=req.capacitor_rated_voltage_v)
@@ -362,36 +364,81 @@ def save_scenario(store: Store, name: str, case: MeterScenario) -> dict:
         row.simple_payback_years = d.get("simple_payback_years")
         row.created_at = now_utc()
         s.flush()
-        return _summary(row, case.data.meter)
+        return _summary(row, case.data.meter, verdict_of(d))
 
 
-def _summary(row: Scenario, meter: str) -> dict:
+def _summary(row, meter: str, recommended: bool | None = None, timezone: str | None = None) -> dict:
+    """A saved scenario in one line: name, meter, tariff, money, when (UTC, and the meter's site's
+    ``timezone`` to show it in), and ``recommended`` (whether its design passes its own
+    screening; None when the saved result cannot say)."""
+    created = row.created_at
+    if created is not None and created.tzinfo is None:  # SQLite keeps the UTC time without its offset
+        from datetime import UTC
+
+        created = created.replace(tzinfo=UTC)
     return {"name": row.name, "meter": meter, "tariff": row.tariff_name, "annual_savings": row.annual_savings,
             "npv": row.npv, "simple_payback_years": row.simple_payback_years,
-            "created_at": row.created_at.isoformat() if row.created_at else None}
+            "created_at": created.isoformat() if created else None, "timezone": timezone,
+            "recommended": recommended}
+
+
+def verdict_of(result: dict) -> bool | None:
+    """Whether a saved result's design may be recommended: ``recommended`` (false when its
+    screening fails), else, for a result saved before that key, ``screening.passed``."""
+    if "recommended" in result:
+        return bool(result["recommended"])
+    passed = (result.get("screening") or {}).get("passed")
+    return None if passed is None else bool(passed)
+
+
+#: The stored result is ``to_json`` of the case (two spaces a level), ``bank`` first and
+#: ``recommended`` second: its verdict is read from the text's head, without parsing a document
+#: that holds the frequency scan and every candidate (some hundred kB).
+_HEAD = 4000
+_TOP_RECOMMENDED = re.compile(r'^  "recommended": (true|false)', re.MULTILINE)
 
 
 def list_scenarios(store: Store, meter: str | None = None) -> list[dict]:
+    """Every saved scenario (of ``meter``), by name, with its verdict (see :func:`_summary`)."""
     with store.session() as s:
-        q = select(Scenario, Meter.external_id).join(Meter, Meter.id == Scenario.meter_id).order_by(Scenario.name)
+        q = (select(Scenario.id, Scenario.name, Scenario.tariff_name, Scenario.annual_savings, Scenario.npv,
+                    Scenario.simple_payback_years, Scenario.created_at,
+                    func.substr(Scenario.result, 1, _HEAD).label("head"), Meter.external_id, Site.timezone)
+             .join(Meter, Meter.id == Scenario.meter_id).join(Site, Site.id == Meter.site_id)
+             .order_by(Scenario.name))
         if meter:
             q = q.where(Meter.external_id == meter)
-        return [_summary(row, ext) for row, ext in s.execute(q)]
+        rows = s.execute(q).all()
+        verdicts: dict[int, bool | None] = {}
+        for r in rows:
+            m = _TOP_RECOMMENDED.search(r.head or "")
+            if m:
+                verdicts[r.id] = m.group(1) == "true"
+        rest = [r.id for r in rows if r.id not in verdicts]
+        if rest:  # saved before the verdict was kept near the top: read those whole
+            for sid, text in s.execute(select(Scenario.id, Scenario.result).where(Scenario.id.in_(rest))):
+                try:
+                    verdicts[sid] = verdict_of(json.loads(text))
+                except (ValueError, TypeError, AttributeError):
+                    verdicts[sid] = None
+        return [_summary(r, r.external_id, verdicts.get(r.id), r.timezone) for r in rows]
 
 
 def get_scenario(store: Store, name: str) -> dict:
     """A saved scenario: its summary, request, tariff text and stored result."""
     with store.session() as s:
-        found = s.execute(select(Scenario, Meter.external_id).join(Meter, Meter.id == Scenario.meter_id)
+        found = s.execute(select(Scenario, Meter.external_id, Site.timezone)
+                          .join(Meter, Meter.id == Scenario.meter_id).join(Site, Site.id == Meter.site_id)
                           .where(Scenario.name == name)).first()
         if found is None:
             names = s.scalars(select(Scenario.name).order_by(Scenario.name).limit(20)).all()
             raise NotFoundError(f"no saved scenario {name!r}" + (f"; saved: {', '.join(names)}" if names else ""))
-        row, ext = found
-        out = _summary(row, ext)
+        row, ext, tz = found
+        result = json.loads(row.result)
+        out = _summary(row, ext, verdict_of(result), tz)
         out["request"] = json.loads(row.params)
         out["tariff_source"] = row.tariff_source
-        out["result"] = json.loads(row.result)
+        out["result"] = result
         return out
 
 
@@ -404,9 +451,18 @@ def delete_scenario(store: Store, name: str) -> None:
 
 
 def best_scenario(store: Store, meter: str) -> dict | None:
-    """The saved scenario of a meter with the best NPV (for the portfolio)."""
-    rows = [x for x in list_scenarios(store, meter) if x["npv"] is not None]
-    return max(rows, key=lambda x: x["npv"]) if rows else None
+    """The saved scenario of a meter with the best NPV among those whose design passes its
+    screening (for the portfolio); when none passes, the best of the others (its
+    ``recommended`` says so). None without a saved scenario with an NPV."""
+    return pick_best(list_scenarios(store, meter))
+
+
+def pick_best(saved: list[dict]) -> dict | None:
+    """:func:`best_scenario`'s rule over scenario summaries of one meter."""
+    rows = [x for x in saved if x["npv"] is not None]
+    if not rows:
+        return None
+    return max(rows, key=lambda x: (x.get("recommended") is not False, x["npv"]))
 
 
 def scenario_for_site(store: Store, site: str, req: ScenarioRequest, mode: str = "central") -> dict:
@@ -431,7 +487,8 @@ def scenario_for_site(store: Store, site: str, req: ScenarioRequest, mode: str =
     bank = design_of(req)
     if bank is None:
         if mode != "central":
-            raise UsageError("the optimiser works on the meters' sum of a site (central correction)")
+            raise UsageError("the optimiser works on the meters' sum of a site: central correction, not per meter",
+                             cli_hint="--optimise with --mode central")
         total, warnings = sum_meters(frames)
         out = optimise(total, t, **common).to_dict()
         out["warnings"] = list(warnings) + out["warnings"]

@@ -24,6 +24,7 @@ from auditor.tariffs import Tariff, tariff_from_dict
 __all__ = ["OwnTariff", "from_row", "set_meter_tariff", "clear_meter_tariff", "meter_tariff", "meter_tariffs",
            "tariff_for_meter", "set_site_tariff", "NO_TARIFF_HINT"]
 
+#: What the command line adds when a meter has no tariff of its own (the dashboard offers its list).
 NO_TARIFF_HINT = "give --tariff FILE, or set the meter's own with: auditor meters set-tariff {meter} FILE"
 
 
@@ -130,7 +131,8 @@ def tariff_for_meter(store: Store, meter: str, given: str | Path | Tariff | None
         return resolve_tariff(given)
     own = meter_tariff(store, meter)
     if own is None:
-        raise UsageError(f"meter {meter} has no tariff of its own: " + NO_TARIFF_HINT.format(meter=meter))
+        raise UsageError(f"meter {meter} has no tariff of its own",
+                         cli_hint=": " + NO_TARIFF_HINT.format(meter=meter))
     return own.tariff
 
 

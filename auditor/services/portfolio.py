@@ -168,15 +168,15 @@ def meter_summaries(store: Store, tariff: Tariff, *, own: dict | None = None, wo
 
 
 def _best_scenarios(store: Store) -> tuple[dict[str, dict], dict[str, int]]:
-    """Per meter: the saved scenario with the best NPV (the rule of
-    :func:`auditor.services.correction.best_scenario`) and the number saved, in one query."""
-    best: dict[str, dict] = {}
-    count: dict[str, int] = {}
+    """Per meter: the saved scenario with the best NPV among those that pass screening (the rule
+    of :func:`auditor.services.correction.best_scenario`) and the number saved, in one query."""
+    from auditor.services.correction import pick_best
+
+    by_meter: dict[str, list[dict]] = {}
     for x in list_scenarios(store):
-        count[x["meter"]] = count.get(x["meter"], 0) + 1
-        if x["npv"] is not None and (x["meter"] not in best or x["npv"] > best[x["meter"]]["npv"]):
-            best[x["meter"]] = x
-    return best, count
+        by_meter.setdefault(x["meter"], []).append(x)
+    best = {m: b for m, rows in by_meter.items() if (b := pick_best(rows)) is not None}
+    return best, {m: len(rows) for m, rows in by_meter.items()}
 
 
 def portfolio_summary(store: Store, tariff: Tariff, *, own_tariffs: bool = False,
@@ -264,6 +264,7 @@ def portfolio_page(store: Store, tariff: Tariff, *, query: str = "", site: str |
         "other_currency": sum(1 for r in kept if r["currency"] != tariff.currency),
         "savings": sum(r["best"]["annual_savings"] for r in kept
                        if r["best"] and (r["best"]["npv"] or 0) > 0 and r["best"]["tariff"] == r["tariff"]
+                       and r["best"].get("recommended") is not False
                        and r["currency"] == tariff.currency and r["best"]["annual_savings"] is not None),
     }
     return PortfolioPage(rows=kept[(page - 1) * per_page: page * per_page], matched=len(kept), meters=len(rows),

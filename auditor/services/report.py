@@ -33,7 +33,8 @@ from auditor.services.exports import Column, Workbook, column_groups, render_csv
 from auditor.store import Store
 from auditor.tariffs import Tariff, describe_tariff
 
-__all__ = ["Column", "ReportData", "build_report", "build_case", "period_columns", "period_rows",
+__all__ = ["Column", "ReportData", "build_report", "build_case", "period_columns", "period_rows", "CSV_TABLES",
+           "summary_items", "specification_items",
            "scenario_rows", "render_csv", "render_xlsx", "render_html", "render_pdf", "write_report",
            "write_case", "write_document", "FORMATS", "DOCUMENT_FORMATS", "PAPERS", "DISCLAIMER", "scenario_cover",
            "set_scenario_cover", "summary_rows", "assumption_rows", "recommendation"]
@@ -142,18 +143,21 @@ def scenario_rows(case: dict) -> tuple[list[Column], list[list]]:
 
 
 def candidate_columns(cur: str) -> list[Column]:
+    """The optimiser's candidates, headline first (design, NPV, payback, screening), as the
+    dashboard shows them."""
     return [
         Column("Rank", lambda c: c["rank"], "int"),
         Column("Design", lambda c: c["label"]),
-        Column("Total (kvar)", lambda c: c["total_kvar"], "power"),
-        Column(f"Capex ({cur})", lambda c: c["capex"], "money"),
-        Column(f"Saving a year ({cur})", lambda c: c["annual_savings"], "money"),
         Column(f"NPV ({cur})", lambda c: c["npv"], "money"),
         Column("Payback (years)", lambda c: c["simple_payback_years"], "power"),
+        Column("Screening", lambda c: "passed" if c["passed_screening"] else
+               ("fails " + ", ".join(str(r).replace("_", " ") for r in c["failed_rules"])
+                if c.get("failed_rules") else "not passed")),
+        Column(f"Saving a year ({cur})", lambda c: c["annual_savings"], "money"),
+        Column(f"Capex ({cur})", lambda c: c["capex"], "money"),
+        Column("Total (kvar)", lambda c: c["total_kvar"], "power"),
         Column("PF after", lambda c: c["pf_after"], "pf"),
         Column("Resonance order h", lambda c: c.get("resonance_order"), "power"),
-        Column("Screening", lambda c: "passed" if c["passed_screening"] else
-               ("fails " + ", ".join(c["failed_rules"]) if c.get("failed_rules") else "not passed")),
     ]
 
 
@@ -793,9 +797,70 @@ def render_pdf(report: ReportData, paper: str = "a4") -> bytes:
 # --------------------------------------------------------------------------------------------
 # CSV and XLSX
 # --------------------------------------------------------------------------------------------
-def render_csv(report: ReportData) -> bytes:
-    """The period table as CSV (UTF-8, comma, header row in words with units): the audit, or
-    with a scenario the before/after table of the scenario."""
+#: The tables a CSV of a report can hold, one a file (a CSV is one table: one header row that
+#: every reader, and a spreadsheet's import, takes as the column names).
+CSV_TABLES = ("periods", "summary", "specification")
+#: The columns of the summary and specification CSVs (and of the specification read back).
+ITEM_COLUMNS = ("Section", "Item", "Value", "Unit", "Note")
+
+
+def summary_items(report: ReportData) -> list[dict]:
+    """The summary as rows of ``{section, label, value, unit, note}``: the case and its cover,
+    the recommendation, the figures, and for a scenario every assumption and screening rule —
+    what the XLSX's Summary sheet holds, as one table."""
+    cover = report.cover or {}
+    rows = [{"section": "Case", "label": label, "value": value, "unit": "", "note": ""} for label, value in (
+        ("Client", cover.get("client") or ""), ("Project", cover.get("project") or ""),
+        ("Author", cover.get("author") or ""), ("Meter", report.meter), ("Site", report.site),
+        ("Time zone", report.timezone), ("Tariff", report.tariff.name), ("Currency", report.currency),
+        ("Scenario", report.scenario_name or ""), ("Generated (UTC)", report.generated_at))]
+    rows.append({"section": "Recommendation", "label": "Recommendation", "value": recommendation(report),
+                 "unit": "", "note": DISCLAIMER})
+    rows += [{"section": "Figures", "label": x["label"], "value": x["value"], "unit": x["unit"], "note": ""}
+             for x in summary_rows(report)]
+    c = report.scenario
+    if c:
+        rows += [{"section": "Assumptions", "label": a["label"], "value": a["value"], "unit": a["unit"],
+                  "note": a["note"]} for a in assumption_rows(report)]
+        for r in screening_rules(c):
+            limit = "" if r.get("limit") is None else f", limit {_num(r['limit'], 2)} {r.get('unit') or ''}".rstrip()
+            rows.append({"section": "Screening", "label": str(r.get("rule")).replace("_", " "),
+                         "value": r.get("value"), "unit": r.get("unit") or "",
+                         "note": f"{r.get('status')}{limit}: {r.get('message') or ''}".rstrip(": ")})
+    return rows
+
+
+def specification_items(report: ReportData) -> list[dict]:
+    """The specification's rows as the case holds them (``specification.rows``), or one row
+    saying there is none."""
+    if not report.scenario:
+        raise UsageError("a specification belongs to a correction case: export a saved scenario")
+    spec = specification(report.scenario)
+    if spec is None:
+        return [{"section": "Specification", "label": "none", "value": "", "unit": "",
+                 "note": "this case was saved without a specification; compute the scenario again"}]
+    return spec["rows"]
+
+
+def _item_columns() -> list[Column]:
+    return [Column(h, lambda r, k=k: r.get(k)) for h, k in zip(ITEM_COLUMNS, ("section", "label", "value", "unit",
+                                                                              "note"), strict=True)]
+
+
+def render_csv(report: ReportData, table: str = "periods") -> bytes:
+    """One table of the report as CSV (UTF-8, comma, header row in words with units):
+
+    * ``periods`` (default): the audit by period, or with a scenario its before/after table;
+    * ``summary``: Section, Item, Value, Unit, Note — the case, recommendation, figures,
+      assumptions and screening rules;
+    * ``specification``: the same columns, the specification's rows as ``auditor size --json``
+      gives them."""
+    if table == "summary":
+        return render_csv_table(_item_columns(), summary_items(report))
+    if table == "specification":
+        return render_csv_table(_item_columns(), specification_items(report))
+    if table != "periods":
+        raise UsageError(f"unknown CSV table {table!r}; use one of {', '.join(CSV_TABLES)}")
     if report.scenario:
         return render_csv_table(scenario_columns(report.scenario), _pairs(report.scenario))
     return render_csv_table(period_columns(report.audit, list(report.charge_keys)), report.audit["periods"])
@@ -904,13 +969,16 @@ def render_xlsx(report: ReportData) -> bytes:
 # --------------------------------------------------------------------------------------------
 # writing files
 # --------------------------------------------------------------------------------------------
-def render(report: ReportData, fmt: str, paper: str = "a4") -> bytes:
+def render(report: ReportData, fmt: str, paper: str = "a4", table: str = "periods") -> bytes:
+    """The report in ``fmt``; ``table`` chooses the table of a CSV (:data:`CSV_TABLES`)."""
+    if table != "periods" and fmt != "csv":
+        raise UsageError("choosing a table works for a CSV file only (the other formats hold every table)")
     if fmt == "html":
         return render_html(report, paper=paper).encode("utf-8")
     if fmt == "pdf":
         return render_pdf(report, paper)
     if fmt == "csv":
-        return render_csv(report)
+        return render_csv(report, table)
     if fmt == "xlsx":
         return render_xlsx(report)
     raise UsageError(f"unknown export format {fmt!r}; use one of {', '.join(DOCUMENT_FORMATS)}")
@@ -945,10 +1013,11 @@ def _write(out: Path, data: bytes) -> Path:
     return out
 
 
-def write_document(report: ReportData, out: str | Path, *, paper: str = "a4") -> Path:
-    """Write an already gathered report in the format ``out``'s suffix names."""
+def write_document(report: ReportData, out: str | Path, *, paper: str = "a4", table: str = "periods") -> Path:
+    """Write an already gathered report in the format ``out``'s suffix names (``table``: which
+    table a CSV holds)."""
     out = Path(out)
-    return _write(out, render(report, format_of(out), _check_paper(paper)))
+    return _write(out, render(report, format_of(out), _check_paper(paper), table))
 
 
 def write_report(store: Store, meter: str, tariff: str | Path | Tariff, out: str | Path,

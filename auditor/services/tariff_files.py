@@ -54,8 +54,7 @@ def check_tariff_text(text: str | bytes, shown_name: str) -> Tariff:
         try:
             return load_tariff(path)
         except TariffError as exc:
-            detail = exc.message.split(f"tariff key {exc.key!r}: ", 1)[-1].replace(str(path), shown_name)
-            raise TariffError(exc.key, detail, shown_name) from None
+            raise TariffError(exc.key, exc.detail.replace(str(path), shown_name), shown_name, exc.line) from None
 
 
 def save_tariff(folder: str | Path, name: str, text: str | bytes) -> tuple[Path, Tariff]:

@@ -62,4 +62,5 @@ def detect(path: Path) -> ModuleType:
     first = head.splitlines()[0][:120] if head.splitlines() else ""
     raise InputError(str(path), Problem(
         f"unrecognised layout (first line {first!r}); expected the plain CSV header "
-        "meter,start,kwh,kvarh_lag,kvarh_lead, a day-per-row export, or give --profile", 1))
+        "meter,start,kwh,kvarh_lag,kvarh_lead or a day-per-row export; another layout needs a mapping profile",
+        1, cli_hint="give --profile FILE"))

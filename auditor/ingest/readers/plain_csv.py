@@ -61,7 +61,8 @@ def check_header(cols: list[str], file: str) -> str:
             if unknown == 1:
                 problems.insert(0, Problem(
                     f"unknown column {c[:80]!r}; the plain CSV has meter, start (or end), kwh, kvarh_lag, "
-                    "kvarh_lead and optionally kwh_received, flag (use --profile for other layouts)", 1, c[:80]))
+                    "kvarh_lead and optionally kwh_received, flag (other layouts need a mapping profile)", 1, c[:80],
+                    cli_hint="give --profile FILE"))
     if unknown > 1:
         problems.insert(1, Problem(f"{unknown - 1:,} more unknown column(s) after it ({len(cols):,} columns in all)", 1))
     for c in REQUIRED:

@@ -131,7 +131,7 @@ def read(path: Path, options: ReadOptions) -> ReadOutput:
     """
     profile = options.profile
     if not isinstance(profile, Profile):
-        raise UsageError("the profile reader needs a mapping profile (--profile)")
+        raise UsageError("the profile reader needs a mapping profile", cli_hint="--profile FILE")
     file = str(path)
     header = _header(path, profile, file)
     refs: dict[str, tuple[object, str]] = {}

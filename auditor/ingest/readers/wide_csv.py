@@ -261,8 +261,8 @@ def _read_all(path: Path, cols: list[str], has_unit: bool, minutes: int, options
                  options.time_window(), margin=2 * SECONDS_PER_DAY, shown=day_text)
     if options.timezone is None:
         raise InputError(file, Problem(
-            "the day-per-row layout holds local days; give --timezone (e.g. Europe/Berlin) to place "
-            f"{day_text[0]!r} in time", int(lines[0]), "date"))
+            f"the day-per-row layout holds local days: its time zone (e.g. Europe/Berlin) is needed to place "
+            f"{day_text[0]!r} in time", int(lines[0]), "date", cli_hint="give --timezone ZONE"))
     day_start, day_intervals = _day_bounds(day, minutes, options.timezone, lines, file)
     day_iso = day.dt.strftime("%Y-%m-%d").to_numpy(dtype=object)
     _check_counts(block, day_intervals, lines, day_iso, minutes, options.timezone, value_cols, file)
