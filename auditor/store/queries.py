@@ -259,34 +259,56 @@ def _sqlite_block_rows(conn, bounds: dict) -> dict:
 
 
 def _pg_blocks(conn, bounds: dict) -> dict:
-    """``{meter_id: (block starts, flat values, flat flags)}``: the server concatenates each
-    meter's blocks in order (``string_agg(... ORDER BY block_start)``), a block without a
-    column's bytes given as NaN (values) or zero (flags), and numpy reads each column whole."""
+    """``{meter_id: (block starts, flat values, flat flags or None)}``, one row per meter: the
+    server concatenates each column of a meter's blocks in order (``string_agg(... ORDER BY
+    block_start)``), NULL columns left out, and with each column the starts of the blocks that
+    hold it (only looked at when some blocks lack it); numpy reads each column whole."""
     import numpy as np
 
-    from auditor.store.blocks import BLOCK, NAN_BLOCK, PRESENT_BLOCK
+    from auditor.store.blocks import BLOCK
 
     order = "ORDER BY block_start"
-    cols = [f"string_agg(int8send(block_start), ''::bytea {order})"]
-    cols += [f"string_agg(COALESCE({q}, %s::bytea), ''::bytea {order})" for q in QUANTITIES]
-    cols.append(f"string_agg(COALESCE(flags, %s::bytea), ''::bytea {order})")
-    fills = [NAN_BLOCK] * len(QUANTITIES) + [PRESENT_BLOCK]
+    cols = ["count(*)", f"string_agg(int8send(block_start), ''::bytea {order})"]
+    for c in (*QUANTITIES, "flags"):
+        cols += [f"count({c})", f"string_agg({c}, ''::bytea {order})",
+                 f"string_agg(int8send(block_start), ''::bytea {order}) FILTER (WHERE {c} IS NOT NULL)"]
     found: list[tuple] = []
     raw = conn.connection.driver_connection
     with raw.cursor(binary=True) as cur:
         for where, params in _where(bounds, "%s", True):
             cur.execute(f"SELECT meter_id, {', '.join(cols)} FROM reading_block WHERE {where} GROUP BY meter_id",
-                        [*fills, *params])
+                        params)
             found += cur.fetchall()
     out = {}
-    for mid, starts, *rest in found:
-        block_start = np.frombuffer(starts, ">i8").astype(np.int64)
-        values = {q: np.frombuffer(x, "<f8") for q, x in zip(QUANTITIES, rest[:-1], strict=True)}
-        flags = np.frombuffer(rest[-1], "<i2")
-        if len(flags) != BLOCK * len(block_start):  # pragma: no cover - a block of another size
-            raise ValueError(f"meter {mid}: blocks of {len(flags) / len(block_start)} slots")
-        out[int(mid)] = (block_start, values, flags)
+    for row in found:
+        mid, nb = int(row[0]), int(row[1])
+        block_start = np.frombuffer(row[2], ">i8").astype(np.int64)
+        values = {}
+        for k, q in enumerate(QUANTITIES):
+            v = _pg_column(row[3 + 3 * k:6 + 3 * k], nb, block_start, "<f8", np.nan)
+            values[q] = v if v is not None else np.full(nb * BLOCK, np.nan)
+        flags = _pg_column(row[3 + 3 * len(QUANTITIES):], nb, block_start, "<i2", 0)
+        if len(block_start) != nb or any(len(v) != BLOCK * nb for v in values.values()):  # pragma: no cover
+            raise ValueError(f"meter {mid}: blocks of another size than {BLOCK} intervals")
+        out[mid] = (block_start, values, flags)
     return out
+
+
+def _pg_column(parts, nb: int, block_start, dtype: str, fill):
+    """One column of a meter's blocks from ``(count, concatenated bytes, starts of the blocks
+    holding it)``: None when no block holds it, ``fill`` in the blocks that do not."""
+    import numpy as np
+
+    from auditor.store.blocks import BLOCK
+
+    n, data, starts = int(parts[0]), parts[1], parts[2]
+    if n == nb:
+        return np.frombuffer(data, dtype)
+    if n == 0:
+        return None
+    out = np.full((nb, BLOCK), fill, dtype=dtype)
+    out[np.searchsorted(block_start, np.frombuffer(starts, ">i8"))] = np.frombuffer(data, dtype).reshape(n, BLOCK)
+    return out.ravel()
 
 
 def ranges_long(conn, ranges: list[tuple[int, int, int, int]]):
