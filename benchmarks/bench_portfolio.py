@@ -94,22 +94,31 @@ def _machine_ticks() -> tuple[int, int]:
 def run_timed(cmd: list[str], env: dict, out_path: Path | None = None) -> dict:
     """Wall time, CPU seconds of the process tree (sampled from /proc every 0.1 s, since the
     pool's workers are not children the command waits for), the machine's busy share during
-    the run (every process) and the exit code."""
+    the run (every process) and the exit code. The end is taken by a thread waiting for the
+    process, not by the sampling loop, so the wall time carries no part of a sampling pause."""
+    import threading
+
     seen: dict[int, float] = {}
     b0, t0_ticks = _machine_ticks()
     t0 = time.perf_counter()
+    ended: list[float] = []
     with open(out_path or os.devnull, "wb") as out:
         proc = subprocess.Popen(cmd, env=env, stdout=out, stderr=subprocess.PIPE)
         errs = []
-        import threading
-
         reader = threading.Thread(target=lambda: errs.append(proc.stderr.read()), daemon=True)
         reader.start()
-        while proc.poll() is None:
+        done = threading.Event()
+
+        def wait() -> None:
+            proc.wait()
+            ended.append(time.perf_counter())
+            done.set()
+
+        threading.Thread(target=wait, daemon=True).start()
+        while not done.wait(0.1):
             _tree_cpu(proc.pid, seen)
-            time.sleep(0.1)
         reader.join()
-    wall = time.perf_counter() - t0
+    wall = ended[0] - t0
     b1, t1_ticks = _machine_ticks()
     return {"wall": wall, "cpu": sum(seen.values()), "rc": proc.returncode,
             "machine_busy": (b1 - b0) / max(1, t1_ticks - t0_ticks), "stderr": b"".join(errs).decode()[-2000:]}
