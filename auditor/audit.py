@@ -486,10 +486,12 @@ def _regular_index_key(index: pd.DatetimeIndex, interval_minutes: int) -> tuple 
     n = len(index)
     if n < 2:
         return None
-    seconds = index.as_unit("s").asi8
-    if int(seconds[-1] - seconds[0]) != (n - 1) * interval_minutes * 60:
-        return None  # gaps: this meter's own index
-    return (int(seconds[0]), n, int(interval_minutes))
+    per_second = {"s": 1, "ms": 10**3, "us": 10**6, "ns": 10**9}[index.unit]  # no converted copy of the index
+    ticks = index.asi8
+    first, last = int(ticks[0]), int(ticks[-1])
+    if last - first != (n - 1) * interval_minutes * 60 * per_second or first % per_second:
+        return None  # gaps (or starts between seconds): this meter's own index
+    return (first // per_second, n, int(interval_minutes))
 
 
 def _read_only(value):

@@ -45,7 +45,7 @@ def main() -> None:
     from auditor.store.queries import get_meter, read_intervals
 
     store = open_store(url)
-    if not db.exists() or not store.engine.connect().exec_driver_sql("SELECT count(*) FROM reading").scalar():
+    if not db.exists() or not store.engine.connect().exec_driver_sql("SELECT count(*) FROM reading_block").scalar():
         csv = work / f"meters{a.meters}.csv"
         if not csv.exists():
             subprocess.run([sys.executable, str(find_floor(a.floor)), "make", str(csv), "--meters", str(a.meters)],

@@ -7,28 +7,31 @@ For each size N (meter-years, 15-minute data, the floor generator's file
 files are kept there and reused between runs; delete the folder when done):
 
 * **import** — ``auditor import`` of the file into a fresh SQLite database against the bare-insert
-  floor (``floor_ingest.py run``), each in a child process: wall time and peak memory (max RSS);
+  floor (``floor_ingest.py run``), each in a child process: wall time, CPU time and peak memory
+  (max RSS);
 * **database bytes per meter-year** — the SQLite file after a WAL checkpoint (PostgreSQL: the
   tables and indexes, ``pg_total_relation_size``), beside the reference engine's file;
 * **audit --all** — ``auditor audit --all --tariff T`` as a whole process with the default workers
   (one per CPU) and the table printed, against the reference engine computing the same monthly
   figures per meter (kWh, kvarh lagging and leading, peak kW, energy PF) from its own table
-  (DuckDB, installed for the benchmark only: ``pip install duckdb``), with as many threads.
-  The CPU use of the audit (user + system of the command and its workers over wall time and
-  cores) says whether the cores were busy. The ``--json`` output is checked figure by figure
-  against the reference engine's;
+  (DuckDB, installed for the benchmark only: ``pip install duckdb``), with as many threads. The
+  two alternate, run for run, so that both see the same load; the ratio of each pair and the
+  ratio of the medians are printed. The CPU time of the audit (user + system of the command
+  and its workers) over its wall time and the cores says whether the cores were busy — the
+  same figure is printed for the reference engine — and the busy share of the machine from
+  ``/proc/stat`` during each run (all processes, ours and others') says how much of the
+  machine other work took. The ``--json`` output is checked figure by figure against the
+  reference engine's;
 * **read and compute per meter-year** in one process: reading the interval frame vs the audit's
   own computation, which says where the time goes;
-* **block layout prototype** — the same database with ``reading`` moved into ``reading_block``
-  (:mod:`auditor.store.blocks`, the codec a migration would use), ``audit --all`` and bytes again;
 * **portfolio page** — ``GET /`` through the dashboard's WSGI app: cold (no summaries stored),
-  warm (median of ``--repeat``), and the first view after an import that revises one meter
+  warm (median of ``--page-repeat``), and the first view after an import that revises one meter
   (how many meters it audited again).
 
 With ``--pg URL`` the import, bytes, ``audit --all`` and the portfolio page are also measured on
 PostgreSQL (a schema of its own per size, dropped afterwards).
 
-    python benchmarks/bench_portfolio.py --meters 50 200 500 [--pg URL] [--repeat 3]
+    python benchmarks/bench_portfolio.py --meters 50 200 500 [--pg URL --pg-meters 50 200] [--repeat 3]
 """
 from __future__ import annotations
 
@@ -80,25 +83,45 @@ def _tree_cpu(root: int, seen: dict[int, float]) -> None:
             seen[pid] = max(seen.get(pid, 0.0), c)
 
 
+def _machine_ticks() -> tuple[int, int]:
+    """(busy, total) jiffies of every CPU since boot, from /proc/stat."""
+    with open("/proc/stat") as fh:
+        f = [int(x) for x in fh.readline().split()[1:]]
+    idle = f[3] + (f[4] if len(f) > 4 else 0)
+    return sum(f) - idle, sum(f)
+
+
 def run_timed(cmd: list[str], env: dict, out_path: Path | None = None) -> dict:
     """Wall time, CPU seconds of the process tree (sampled from /proc every 0.1 s, since the
-    pool's workers are not children the command waits for) and the exit code."""
+    pool's workers are not children the command waits for), the machine's busy share during
+    the run (every process) and the exit code. The end is taken by a thread waiting for the
+    process, not by the sampling loop, so the wall time carries no part of a sampling pause."""
+    import threading
+
     seen: dict[int, float] = {}
+    b0, t0_ticks = _machine_ticks()
     t0 = time.perf_counter()
-    with open(out_path or os.devnull, "wb") as out, open(os.devnull, "wb") as err_sink:
-        del err_sink
+    ended: list[float] = []
+    with open(out_path or os.devnull, "wb") as out:
         proc = subprocess.Popen(cmd, env=env, stdout=out, stderr=subprocess.PIPE)
         errs = []
-        import threading
-
         reader = threading.Thread(target=lambda: errs.append(proc.stderr.read()), daemon=True)
         reader.start()
-        while proc.poll() is None:
+        done = threading.Event()
+
+        def wait() -> None:
+            proc.wait()
+            ended.append(time.perf_counter())
+            done.set()
+
+        threading.Thread(target=wait, daemon=True).start()
+        while not done.wait(0.1):
             _tree_cpu(proc.pid, seen)
-            time.sleep(0.1)
         reader.join()
-    wall = time.perf_counter() - t0
-    return {"wall": wall, "cpu": sum(seen.values()), "rc": proc.returncode, "stderr": b"".join(errs).decode()[-2000:]}
+    wall = ended[0] - t0
+    b1, t1_ticks = _machine_ticks()
+    return {"wall": wall, "cpu": sum(seen.values()), "rc": proc.returncode,
+            "machine_busy": (b1 - b0) / max(1, t1_ticks - t0_ticks), "stderr": b"".join(errs).decode()[-2000:]}
 
 
 def auditor_cmd(*args: str) -> list[str]:
@@ -138,16 +161,16 @@ def duck_table(work: Path, csv: Path, n: int):
     return con, path
 
 
-def duck_monthly(con, repeat: int) -> tuple[float, float, list]:
-    """Median wall seconds and CPU seconds (every thread of this process) of the monthly query."""
-    times, cpus, rows = [], [], []
-    for _ in range(repeat):
-        c0 = time.process_time()
-        t0 = time.perf_counter()
-        rows = con.execute(DUCK_QUERY).fetchall()
-        times.append(time.perf_counter() - t0)
-        cpus.append(time.process_time() - c0)
-    return statistics.median(times), statistics.median(cpus), rows
+def duck_once(con) -> tuple[float, float, float, list]:
+    """One run of the monthly query: wall seconds, CPU seconds (every thread of this process),
+    the machine's busy share during it, and the rows."""
+    b0, t0_ticks = _machine_ticks()
+    c0 = time.process_time()
+    t0 = time.perf_counter()
+    rows = con.execute(DUCK_QUERY).fetchall()
+    wall = time.perf_counter() - t0
+    b1, t1_ticks = _machine_ticks()
+    return wall, time.process_time() - c0, (b1 - b0) / max(1, t1_ticks - t0_ticks), rows
 
 
 def check_figures(audit_json: Path, reference: list) -> dict:
@@ -193,50 +216,19 @@ def pg_bytes(url: str) -> int:
     return total
 
 
-def build_blocks(src: Path, dst: Path) -> None:
-    """The block-layout prototype: a copy of the database with ``reading`` moved into
-    ``reading_block`` through :func:`auditor.store.blocks.pack` (what a migration would do)."""
-    import sqlite3
-
-    import numpy as np
-
-    from auditor.store.blocks import BLOCK_COLUMNS, Intervals, pack
-    from auditor.store.models import QUANTITIES
-
-    shutil.copyfile(src, dst)
-    con = sqlite3.connect(dst)
-    con.execute("PRAGMA journal_mode=WAL")
-    con.execute("""CREATE TABLE reading_block (meter_id INTEGER NOT NULL REFERENCES meter (id),
-                   block_start BIGINT NOT NULL, kwh BLOB, kvarh_lag BLOB, kvarh_lead BLOB, kwh_received BLOB,
-                   flags BLOB, batch_id INTEGER NOT NULL, batch_ids BLOB,
-                   PRIMARY KEY (meter_id, block_start)) WITHOUT ROWID""")
-    marks = ", ".join("?" * len(BLOCK_COLUMNS))
-    for mid, minutes in con.execute("SELECT id, coalesce(interval_minutes, 15) FROM meter").fetchall():
-        rows = con.execute(f"SELECT start, {', '.join(QUANTITIES)}, flags, batch_id FROM reading "
-                           "WHERE meter_id = ? ORDER BY start", (mid,)).fetchall()
-        if not rows:
-            continue
-        a = np.array(rows, dtype=float)
-        iv = Intervals(a[:, 0].astype(np.int64), {q: a[:, 1 + i] for i, q in enumerate(QUANTITIES)},
-                       a[:, -2].astype(np.int16), a[:, -1].astype(np.int32))
-        con.executemany(f"INSERT INTO reading_block VALUES ({marks})", pack(mid, minutes, iv))
-    con.execute("DELETE FROM reading")
-    con.commit()
-    con.execute("VACUUM")
-    con.close()
-
-
 def read_and_compute(url: str, meters: int) -> dict:
-    """Per meter-year, in this process: reading the interval frame vs the audit's computation."""
+    """Per meter-year, in this process: reading the interval frame (one meter at a time as the
+    single audit reads it, and 16 at a time as the batch audit's workers do) vs the audit's
+    computation (median CPU milliseconds)."""
     from auditor.audit import audit
     from auditor.services.audit import resolve_tariff
-    from auditor.services.meters import load_meter
+    from auditor.services.meters import load_meter, load_meters
     from auditor.store import open_store
 
     store = open_store(url)
     tariff = resolve_tariff(TARIFF)
-    names = [f"M{i:04d}" for i in range(min(meters, 20))]
-    reads, comps = [], []
+    names = [f"M{i:04d}" for i in range(min(meters, 32))]
+    reads, comps, chunked = [], [], []
     for m in names:
         t0 = time.process_time()
         d = load_meter(store, m)
@@ -245,27 +237,55 @@ def read_and_compute(url: str, meters: int) -> dict:
         t2 = time.process_time()
         reads.append(t1 - t0)
         comps.append(t2 - t1)
+    for k in range(0, len(names), 16):
+        t0 = time.process_time()
+        got = load_meters(store, names[k:k + 16])
+        chunked.append((time.process_time() - t0) / len(got))
     store.dispose()
-    return {"read_ms": 1000 * statistics.median(reads), "compute_ms": 1000 * statistics.median(comps)}
+    return {"read_ms": 1000 * statistics.median(reads), "compute_ms": 1000 * statistics.median(comps),
+            "read_chunk_ms": 1000 * statistics.median(chunked)}
 
 
-def audit_all(url: str, work: Path, tag: str, repeat: int, reference: list | None) -> dict:
-    times, cpus = [], []
+def audit_all(url: str, work: Path, tag: str, repeat: int, duck) -> dict:
+    """``audit --all`` and the reference engine's monthly query, alternating, ``repeat`` times
+    each; then the ``--json`` document checked against the reference engine's figures."""
+    times, cpus, busy, machine = [], [], [], []
+    ref_t, ref_c, ref_busy, ref_machine, pairs = [], [], [], [], []
+    reference: list = []
     for _ in range(repeat):
+        dw, dc, dm, reference = duck_once(duck)
+        ref_t.append(dw)
+        ref_c.append(dc)
+        ref_busy.append(dc / dw / cpu_count())
+        ref_machine.append(dm)
         r = run_timed(auditor_cmd("audit", "--all", "--tariff", TARIFF), env_for(url), work / f"table-{tag}.txt")
         if r["rc"] != 0:
             sys.exit(f"audit --all failed on {tag}:\n{r['stderr']}")
         times.append(r["wall"])
-        cpus.append(r["cpu"] / r["wall"] / cpu_count())
-    out = {"median_s": statistics.median(times), "cpu_busy": statistics.median(cpus),
-           "cpu_s": statistics.median(x * y * cpu_count() for x, y in zip(times, cpus, strict=True))}
-    if reference is not None:
-        js = work / f"audit-{tag}.json"
-        r = run_timed(auditor_cmd("audit", "--all", "--tariff", TARIFF, "--json"), env_for(url), js)
-        out["json_s"] = r["wall"]
-        out["check"] = check_figures(js, reference)
-        js.unlink()
+        cpus.append(r["cpu"])
+        busy.append(r["cpu"] / r["wall"] / cpu_count())
+        machine.append(r["machine_busy"])
+        pairs.append(r["wall"] / dw)
+    med = statistics.median
+    out = {"median_s": med(times), "cpu_s": med(cpus), "cpu_busy": med(busy), "machine_busy": med(machine),
+           "runs_s": times, "ref_s": med(ref_t), "ref_cpu_s": med(ref_c), "ref_cpu_busy": med(ref_busy),
+           "ref_machine_busy": med(ref_machine), "ref_runs_s": ref_t, "pair_ratios": pairs,
+           "ratio": med(times) / med(ref_t), "cpu_ratio": med(cpus) / med(ref_c)}
+    js = work / f"audit-{tag}.json"
+    r = run_timed(auditor_cmd("audit", "--all", "--tariff", TARIFF, "--json"), env_for(url), js)
+    out["json_s"] = r["wall"]
+    out["check"] = check_figures(js, reference)
+    js.unlink()
     return out
+
+
+def audit_line(label: str, a: dict) -> str:
+    return (f"  audit --all ({label}): {a['median_s']:.2f} s (runs {', '.join(f'{x:.2f}' for x in a['runs_s'])}), "
+            f"{a['ratio']:.2f}× the reference's {a['ref_s']:.2f} s (pairs {', '.join(f'{x:.2f}' for x in a['pair_ratios'])}); "
+            f"CPU {a['cpu_s']:.2f} s, {a['cpu_ratio']:.2f}× the reference's {a['ref_cpu_s']:.2f} s; cores busy "
+            f"{100 * a['cpu_busy']:.0f} % (reference {100 * a['ref_cpu_busy']:.0f} %); machine busy with everything "
+            f"{100 * a['machine_busy']:.0f} % (during the reference {100 * a['ref_machine_busy']:.0f} %); "
+            f"figures: {a['check']}")
 
 
 # --------------------------------------------------------------------------------------------
@@ -326,13 +346,17 @@ def import_sqlite(work: Path, csv: Path, n: int, floor: Path, timed: bool) -> tu
         fdb = work / f"floor{n}.sqlite3"
         for p in work.glob(f"floor{n}.sqlite3*"):
             p.unlink()
+        cpu: list[float] = []
         if timed:
-            out["floor_s"], out["floor_mb"] = child([sys.executable, str(floor), "run", str(csv), str(fdb)])
+            out["floor_s"], out["floor_mb"] = child([sys.executable, str(floor), "run", str(csv), str(fdb)], cpu=cpu)
+            out["floor_cpu_s"] = cpu[-1]
             for p in work.glob(f"floor{n}.sqlite3*"):
                 p.unlink()
         for p in work.glob(f"auditor{n}.sqlite3*"):
             p.unlink()
-        out["auditor_s"], out["auditor_mb"] = child(auditor_cmd("import", str(csv)), env=env_for(f"sqlite:///{db}"))
+        out["auditor_s"], out["auditor_mb"] = child(auditor_cmd("import", str(csv)), env=env_for(f"sqlite:///{db}"),
+                                                    cpu=cpu)
+        out["auditor_cpu_s"] = cpu[-1]
     return db, out
 
 
@@ -364,12 +388,10 @@ def fmt_ratio(a: float, b: float) -> str:
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--meters", type=int, nargs="+", default=[50, 200, 500])
-    ap.add_argument("--repeat", type=int, default=3, help="runs of audit --all and the reference query (median)")
+    ap.add_argument("--repeat", type=int, default=3, help="alternating runs of audit --all and the reference query")
     ap.add_argument("--page-repeat", type=int, default=11, help="warm portfolio requests (median)")
     ap.add_argument("--no-import-timing", action="store_true",
                     help="reuse the imported SQLite database of an earlier run (skip the import and floor timing)")
-    ap.add_argument("--layouts", nargs="+", choices=("rows", "blocks"), default=["rows", "blocks"],
-                    help="SQLite layouts to run audit --all on (default both)")
     ap.add_argument("--no-page", action="store_true", help="skip the portfolio page")
     ap.add_argument("--import-only", action="store_true", help="measure only the import against the floor")
     ap.add_argument("--pg", metavar="URL", help="also measure on this PostgreSQL server")
@@ -390,40 +412,21 @@ def main() -> None:
         db, imp = import_sqlite(work, csv, n, floor, not a.no_import_timing)
         r["import"] = imp
         if imp.get("floor_s"):
-            print(f"  import: floor {imp['floor_s']:.1f} s / {imp['floor_mb']:.0f} MB; auditor {imp['auditor_s']:.1f} s "
-                  f"/ {imp['auditor_mb']:.0f} MB ({fmt_ratio(imp['auditor_s'], imp['floor_s'])} the floor)", flush=True)
+            print(f"  import: floor {imp['floor_s']:.1f} s ({imp['floor_cpu_s']:.1f} CPU s) / {imp['floor_mb']:.0f} MB; "
+                  f"auditor {imp['auditor_s']:.1f} s ({imp['auditor_cpu_s']:.1f} CPU s) / {imp['auditor_mb']:.0f} MB "
+                  f"({fmt_ratio(imp['auditor_s'], imp['floor_s'])} the floor, CPU "
+                  f"{fmt_ratio(imp['auditor_cpu_s'], imp['floor_cpu_s'])})", flush=True)
+        r["bytes_per_meter_year"] = {"sqlite": sqlite_bytes(db) / n}
         if a.import_only:
-            r["bytes_per_meter_year"] = {"sqlite": sqlite_bytes(db) / n}
             print(f"  database: {r['bytes_per_meter_year']['sqlite'] / 1e6:.2f} MB per meter-year", flush=True)
             results.append(r)
             continue
         url = f"sqlite:///{db}"
         duck, duck_path = duck_table(work, csv, n)
-        r["duckdb_s"], r["duckdb_cpu_s"], reference = duck_monthly(duck, a.repeat)
-        duck.close()
-        r["bytes_per_meter_year"] = {"sqlite": sqlite_bytes(db) / n, "duckdb": duck_path.stat().st_size / n}
-        print(f"  reference engine monthly figures: {r['duckdb_s']:.2f} s ({r['duckdb_cpu_s']:.2f} CPU s)", flush=True)
-        if "rows" in a.layouts:
-            r["split_rows"] = read_and_compute(url, n)
-            r["audit_rows"] = audit_all(url, work, f"rows{n}", a.repeat, reference)
-            ar = r["audit_rows"]
-            print(f"  audit --all (rows): {ar['median_s']:.1f} s, {fmt_ratio(ar['median_s'], r['duckdb_s'])} the reference; "
-                  f"{ar['cpu_s']:.1f} CPU s, {fmt_ratio(ar['cpu_s'], r['duckdb_cpu_s'])} its CPU; cores "
-                  f"{100 * ar['cpu_busy']:.0f} % busy; figures: {ar['check']}", flush=True)
-        bdb = work / f"blocks{n}.sqlite3"
-        if not bdb.exists() or bdb.stat().st_mtime < db.stat().st_mtime:
-            t0 = time.perf_counter()
-            build_blocks(db, bdb)
-            r["blocks_build_s"] = time.perf_counter() - t0
-        burl = f"sqlite:///{bdb}"
-        r["bytes_per_meter_year"]["sqlite_blocks"] = sqlite_bytes(bdb) / n
-        if "blocks" in a.layouts:
-            r["split_blocks"] = read_and_compute(burl, n)
-            r["audit_blocks"] = audit_all(burl, work, f"blocks{n}", a.repeat, reference)
-            ab = r["audit_blocks"]
-            print(f"  audit --all (blocks): {ab['median_s']:.1f} s, {fmt_ratio(ab['median_s'], r['duckdb_s'])} the reference; "
-                  f"{ab['cpu_s']:.1f} CPU s, {fmt_ratio(ab['cpu_s'], r['duckdb_cpu_s'])} its CPU; cores "
-                  f"{100 * ab['cpu_busy']:.0f} % busy; figures: {ab['check']}", flush=True)
+        r["bytes_per_meter_year"]["duckdb"] = duck_path.stat().st_size / n
+        r["split"] = read_and_compute(url, n)
+        r["audit"] = audit_all(url, work, f"sqlite{n}", a.repeat, duck)
+        print(audit_line("SQLite", r["audit"]), flush=True)
         if not a.no_page:
             page_db = work / f"page{n}.sqlite3"  # the page step imports a revision: on a copy
             for x in work.glob(f"page{n}.sqlite3*"):
@@ -440,46 +443,57 @@ def main() -> None:
             schema, purl = pg_schema(a.pg)
             try:
                 pg: dict = {}
-                pg["import_s"], pg["import_mb"] = child(auditor_cmd("import", str(csv)), env=env_for(purl))
+                cpu: list[float] = []
+                pg["import_s"], pg["import_mb"] = child(auditor_cmd("import", str(csv)), env=env_for(purl), cpu=cpu)
+                pg["import_cpu_s"] = cpu[-1]
                 pg["bytes_per_meter_year"] = pg_bytes(purl) / n
                 pg["split"] = read_and_compute(purl, n)
-                pg["audit"] = audit_all(purl, work, f"pg{n}", a.repeat, reference)
-                pg["page"] = page_times(purl, work, a.page_repeat)
+                pg["audit"] = audit_all(purl, work, f"pg{n}", a.repeat, duck)
+                print(f"  PostgreSQL: import {pg['import_s']:.1f} s ({pg['import_cpu_s']:.1f} CPU s of the command) / "
+                      f"{pg['import_mb']:.0f} MB, {pg['bytes_per_meter_year'] / 1e6:.2f} MB per meter-year", flush=True)
+                print(audit_line("PostgreSQL", pg["audit"]), flush=True)
+                if not a.no_page:
+                    pg["page"] = page_times(purl, work, a.page_repeat)
+                    print(f"  PostgreSQL portfolio page: cold {pg['page']['cold_s']:.1f} s, warm "
+                          f"{pg['page']['warm_ms']:.0f} ms, after a one-meter import {pg['page']['after_import_s']:.2f} s "
+                          f"({pg['page']['recomputed']} meter audited again)", flush=True)
                 r["postgresql"] = pg
-                print(f"  PostgreSQL: import {pg['import_s']:.1f} s / {pg['import_mb']:.0f} MB, "
-                      f"{pg['bytes_per_meter_year'] / 1e6:.2f} MB per meter-year, audit --all {pg['audit']['median_s']:.1f} s "
-                      f"({fmt_ratio(pg['audit']['median_s'], r['duckdb_s'])} the reference; {pg['audit']['cpu_s']:.1f} CPU s, "
-                      f"{fmt_ratio(pg['audit']['cpu_s'], r['duckdb_cpu_s'])} its CPU), page cold "
-                      f"{pg['page']['cold_s']:.1f} s / warm {pg['page']['warm_ms']:.0f} ms", flush=True)
             finally:
                 pg_drop(a.pg, schema)
+        duck.close()
         results.append(r)
 
     if a.import_only:
         print(json.dumps(results, default=float))
         return
-    print("\n== side by side ==")
+    print("\n== side by side (medians) ==")
     nan = float("nan")
     print(f"{'meter-years':>11} {'import s':>9} {'floor s':>8} {'ratio':>6} {'peak MB':>8} {'floor MB':>8} "
-          f"{'ref s':>6} {'rows s':>7} {'ratio':>6} {'blocks s':>8} {'ratio':>6} {'cpu×':>5} "
-          f"{'page cold s':>11} {'warm ms':>8} {'MB/my':>6} {'blocks':>6} {'ref':>5}")
+          f"{'ref s':>6} {'audit s':>8} {'ratio':>6} {'cpu×':>5} {'busy':>5} {'page cold s':>11} {'warm ms':>8} "
+          f"{'MB/my':>6} {'ref':>5}")
     for r in results:
-        i, b = r["import"], r["bytes_per_meter_year"]
-        rows, blocks, page = r.get("audit_rows", {}), r.get("audit_blocks", {}), r.get("page", {})
+        i, b, au, page = r["import"], r["bytes_per_meter_year"], r.get("audit", {}), r.get("page", {})
         print(f"{r['meter_years']:>11} {i.get('auditor_s', nan):>9.1f} {i.get('floor_s', nan):>8.1f} "
               f"{i.get('auditor_s', nan) / i.get('floor_s', nan):>6.2f} {i.get('auditor_mb', nan):>8.0f} "
-              f"{i.get('floor_mb', nan):>8.0f} {r['duckdb_s']:>6.2f} {rows.get('median_s', nan):>7.1f} "
-              f"{rows.get('median_s', nan) / r['duckdb_s']:>6.1f} {blocks.get('median_s', nan):>8.1f} "
-              f"{blocks.get('median_s', nan) / r['duckdb_s']:>6.1f} {blocks.get('cpu_s', nan) / r['duckdb_cpu_s']:>5.1f} "
+              f"{i.get('floor_mb', nan):>8.0f} {au.get('ref_s', nan):>6.2f} {au.get('median_s', nan):>8.2f} "
+              f"{au.get('ratio', nan):>6.2f} {au.get('cpu_ratio', nan):>5.2f} {100 * au.get('cpu_busy', nan):>4.0f}% "
               f"{page.get('cold_s', nan):>11.1f} {page.get('warm_ms', nan):>8.0f} {b['sqlite'] / 1e6:>6.2f} "
-              f"{b['sqlite_blocks'] / 1e6:>6.2f} {b['duckdb'] / 1e6:>5.2f}")
-    print("\nper meter-year in one process (CPU ms): read / compute")
-    for r in results:
-        parts = [f"{name} {r[key]['read_ms']:.1f} / {r[key]['compute_ms']:.1f}"
-                 for name, key in (("rows", "split_rows"), ("blocks", "split_blocks")) if key in r]
+              f"{b.get('duckdb', nan) / 1e6:>5.2f}")
         if "postgresql" in r:
-            parts.append(f"PostgreSQL rows {r['postgresql']['split']['read_ms']:.1f} / "
-                         f"{r['postgresql']['split']['compute_ms']:.1f}")
+            pg = r["postgresql"]
+            print(f"{'  PostgreSQL':>11} {pg['import_s']:>9.1f} {'':>8} {pg['import_s'] / i.get('floor_s', nan):>6.2f} "
+                  f"{pg['import_mb']:>8.0f} {'':>8} {pg['audit']['ref_s']:>6.2f} {pg['audit']['median_s']:>8.2f} "
+                  f"{pg['audit']['ratio']:>6.2f} {pg['audit']['cpu_ratio']:>5.2f} {100 * pg['audit']['cpu_busy']:>4.0f}% "
+                  f"{pg.get('page', {}).get('cold_s', nan):>11.1f} {pg.get('page', {}).get('warm_ms', nan):>8.0f} "
+                  f"{pg['bytes_per_meter_year'] / 1e6:>6.2f}")
+    print(f"target: audit --all ≤ {AUDIT_TARGET_RATIO:.0f}× the reference; page warm ≤ {PAGE_BUDGET_MS:.0f} ms")
+    print("\nper meter-year in one process (CPU ms): read (one meter at a time; 16 at a time) / compute")
+    for r in results:
+        parts = [f"SQLite {r['split']['read_ms']:.1f} (16 at a time {r['split']['read_chunk_ms']:.1f}) / "
+                 f"{r['split']['compute_ms']:.1f}"] if "split" in r else []
+        if "postgresql" in r:
+            sp = r["postgresql"]["split"]
+            parts.append(f"PostgreSQL {sp['read_ms']:.1f} (16 at a time {sp['read_chunk_ms']:.1f}) / {sp['compute_ms']:.1f}")
         print(f"  {r['meter_years']:>4}: " + "; ".join(parts))
     print(json.dumps(results, default=float))
 

@@ -30,15 +30,36 @@ def day_rows(meter="M1", day="2025-01-06", n=96, kwh=10.0, lag=6.0, lead=0.0, tz
     return out
 
 
+def stored_rows(store_or_conn, meter_id: int | None = None) -> list[tuple]:
+    """Every stored interval as ``(meter_id, start, kwh, kvarh_lag, kvarh_lead, kwh_received,
+    flags, batch_id)`` (None where there is no value), by meter and start: the blocks of
+    ``reading_block`` unpacked by the codec."""
+    from auditor.store.blocks import STORED_COLUMNS, interval_rows, unpack
+
+    def rows_of(c) -> list[tuple]:
+        meters = c.exec_driver_sql("SELECT id, coalesce(interval_minutes, 15) FROM meter ORDER BY id").fetchall()
+        out = []
+        for mid, minutes in meters:
+            if meter_id is not None and mid != meter_id:
+                continue
+            mark = "?" if c.dialect.paramstyle == "qmark" else "%s"
+            blocks = c.exec_driver_sql(f"SELECT {', '.join(STORED_COLUMNS)} FROM reading_block WHERE meter_id = "
+                                       f"{mark} ORDER BY block_start", (mid,)).fetchall()
+            out += interval_rows(mid, unpack([tuple(b) for b in blocks], minutes))
+        return out
+
+    if isinstance(store_or_conn, Store):
+        with store_or_conn.engine.connect() as c:
+            return rows_of(c)
+    return rows_of(store_or_conn)
+
+
 def reading_count(store: Store) -> int:
-    with store.engine.connect() as c:
-        return c.exec_driver_sql("SELECT count(*) FROM reading").scalar()
+    return len(stored_rows(store))
 
 
 def readings(store: Store) -> pd.DataFrame:
-    with store.engine.connect() as c:
-        rows = c.exec_driver_sql("SELECT meter_id, start, kwh, kvarh_lag, kvarh_lead, flags FROM reading "
-                                 "ORDER BY meter_id, start").fetchall()
+    rows = [r[:5] + (r[6],) for r in stored_rows(store)]
     return pd.DataFrame(rows, columns=["meter_id", "start", "kwh", "kvarh_lag", "kvarh_lead", "flags"])
 
 
@@ -46,4 +67,5 @@ def epoch(ts: str) -> int:
     return int(pd.Timestamp(ts).tz_convert("UTC").value // 10**9)
 
 
-__all__ = ["np", "new_store", "write_csv", "day_rows", "reading_count", "readings", "epoch", "HEADER"]
+__all__ = ["np", "new_store", "write_csv", "day_rows", "reading_count", "readings", "stored_rows", "epoch",
+           "HEADER"]

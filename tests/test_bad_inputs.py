@@ -27,6 +27,7 @@ from auditor.ingest.pipeline import import_file
 from auditor.services.bills import add_bill
 from auditor.store import open_store
 from tests.bad_inputs import BILL_HEADER, Case, _csv, _rows, cases
+from tests.ingest_helpers import stored_rows
 
 CASES = cases()
 COUNTS: Counter = Counter()
@@ -64,8 +65,7 @@ def run_cli(argv: list[str]) -> tuple[int, str, str]:
 
 def snapshot(store) -> tuple:
     with store.engine.connect() as c:
-        readings = c.exec_driver_sql("SELECT meter_id, start, kwh, kvarh_lag, kvarh_lead, kwh_received, flags "
-                                     "FROM reading ORDER BY meter_id, start").fetchall()
+        readings = [r[:7] for r in stored_rows(c)]  # meter_id, start, the quantities, flags
         meters = c.exec_driver_sql("SELECT id, external_id, site_id, max_kw FROM meter ORDER BY id").fetchall()
         bills = c.exec_driver_sql("SELECT meter_id, period_start, period_end, kwh FROM bill ORDER BY id").fetchall()
         revisions = c.exec_driver_sql("SELECT count(*) FROM reading_revision").scalar()

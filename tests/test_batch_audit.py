@@ -161,6 +161,23 @@ def test_cli_table_and_csv(fleet, tmp_path):
     assert rows["BX-EMPTY"]["error"] == "meter BX-EMPTY has no readings" and rows["BX-02"]["error"] == ""
 
 
+def test_a_command_closes_the_database_when_it_ends(fleet):
+    """The command line leaves its last garbage collection to the process's exit, so the store
+    is closed when the command ends: an SQLite file's write-ahead log is checkpointed and
+    removed by its last connection's close (the SQLite documentation, "Write-Ahead Logging")."""
+    store, _ = fleet
+    if not store.url.startswith("sqlite"):
+        pytest.skip("the write-ahead log is SQLite's")
+    path = store.url.removeprefix("sqlite:///")
+    store.dispose()  # this test's own connections: none left open beside the command's
+    assert not os.path.exists(path + "-wal")
+    for args in (("audit", "--meter", "BX-01", "--tariff", TARIFF), ("audit", "--all", "--tariff", TARIFF,
+                 "--workers", "1"), ("meters",), ("audit", "--meter", "NO-SUCH", "--tariff", TARIFF)):
+        r = cli(store.url, *args)
+        assert r.returncode in (0, 1), r.stderr
+        assert not os.path.exists(path + "-wal"), args  # closed, whether the command succeeded or not
+
+
 def test_cli_single_meter_output_is_the_period_table(fleet):
     store, _ = fleet
     r = cli(store.url, "audit", "--meter", "BX-01", "--tariff", TARIFF)

@@ -247,11 +247,11 @@ def test_downgrade_on_postgresql_refuses_without_yes(tmp_path):
     with database_url("postgresql", tmp_path) as url:
         assert invoke("import", write_csv(tmp_path / "in.csv", day_rows(meter="PUMP-1")), db=url).exit_code == 0
         r = invoke("db", "downgrade", "base", db=url)
-        assert r.exit_code == 2 and "table reading (96 rows)" in one_line(r.output), r.output
-        assert "reading" in _tables(url)
+        assert r.exit_code == 2 and "table reading_block (96 readings)" in one_line(r.output), r.output
+        assert "reading_block" in _tables(url)
         r = invoke("db", "downgrade", "base", "--yes", db=url)
-        assert r.exit_code == 0 and "copied" not in r.output and "dropped table reading (96 rows)" in r.output
-        assert "reading" not in _tables(url)
+        assert r.exit_code == 0 and "copied" not in r.output and "dropped table reading_block (96 readings)" in r.output
+        assert "reading_block" not in _tables(url)
 
 
 def _on_a_terminal(args: list[str], answer: bytes, timeout: float = 120) -> tuple[int, str]:
@@ -282,11 +282,11 @@ def _on_a_terminal(args: list[str], answer: bytes, timeout: float = 120) -> tupl
 def test_downgrade_asks_on_a_terminal(tmp_path):
     url = populated(tmp_path)
     code, out = _on_a_terminal(["--db", url, "db", "downgrade", "base"], b"n\n")
-    assert code == 1 and "table reading (288 rows)" in out and "nothing was changed" in out, out
-    assert "reading" in _tables(url)
+    assert code == 1 and "table reading_block (288 readings)" in out and "nothing was changed" in out, out
+    assert "reading_block" in _tables(url)
     code, out = _on_a_terminal(["--db", url, "db", "downgrade", "base"], b"y\n")
     assert code == 0 and "copied the database file to" in out, out
-    assert "reading" not in _tables(url)
+    assert "reading_block" not in _tables(url)
 
 
 # --------------------------------------------------------------------------------------------

@@ -14,7 +14,7 @@ def test_upgrade_downgrade_round_trip(tmp_path):
     assert table_names(store) == []
     store.upgrade()
     assert store.current_revision() == store.head_revision()
-    assert {"site", "meter", "channel", "reading", "reading_revision", "import_batch", "quality_flag"} <= set(
+    assert {"site", "meter", "channel", "reading_block", "reading_revision", "import_batch", "quality_flag"} <= set(
         table_names(store))
     store.downgrade("base")
     assert table_names(store) == ["alembic_version"]
@@ -32,9 +32,10 @@ def test_models_and_migrations_agree(tmp_path):
 def test_reading_table_is_clustered_without_rowid(tmp_path):
     store = open_store(f"sqlite:///{tmp_path / 'm.sqlite3'}")
     with store.engine.connect() as conn:
-        sql = conn.exec_driver_sql("SELECT sql FROM sqlite_master WHERE name = 'reading'").scalar()
+        sql = conn.exec_driver_sql("SELECT sql FROM sqlite_master WHERE name = 'reading_block'").scalar()
+        assert conn.exec_driver_sql("SELECT sql FROM sqlite_master WHERE name = 'reading'").scalar() is None
     assert "WITHOUT ROWID" in sql.upper()
-    assert "PRIMARY KEY (meter_id, start)" in sql
+    assert "PRIMARY KEY (meter_id, block_start)" in sql
 
 
 def test_first_use_applies_migrations(tmp_path):

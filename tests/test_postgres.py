@@ -13,12 +13,12 @@ from numpy.testing import assert_allclose
 
 from auditor.ingest.pipeline import ImportOptions, import_file
 from auditor.store import open_store
+from auditor.store.blocks import BLOCK, BLOCK_COLUMNS, Intervals, copy_payload, gather, pack
 from auditor.store.engine import table_names
 from auditor.store.models import QUANTITIES, Base
-from auditor.store.write import READING_COLUMNS, copy_payload
-from tests.ingest_helpers import day_rows, reading_count, readings, write_csv
+from tests.ingest_helpers import day_rows, reading_count, readings, stored_rows, write_csv
 
-TABLES = {"site", "meter", "channel", "reading", "reading_revision", "import_batch", "quality_flag"}
+TABLES = {"site", "meter", "channel", "reading_block", "reading_revision", "import_batch", "quality_flag"}
 
 
 def test_migrations_up_down_up(db_url):
@@ -64,8 +64,7 @@ def test_import_idempotency_and_revision(store, tmp_path):
 def test_absent_channel_is_null_and_values_exact(store, tmp_path):
     rows = [f"M1,2025-01-06T00:{15 * i:02d}:00+00:00,{1.1 + i / 3:.17g},0.1,0.0" for i in range(4)]
     import_file(store, write_csv(tmp_path / "a.csv", rows))
-    with store.engine.connect() as c:
-        got = c.exec_driver_sql("SELECT kwh, kwh_received FROM reading ORDER BY start").fetchall()
+    got = [(r[2], r[5]) for r in stored_rows(store)]  # kwh, kwh_received
     assert [r[1] for r in got] == [None] * 4
     assert [r[0] for r in got] == [float(f"{1.1 + i / 3:.17g}") for i in range(4)]  # bit-exact round trip
 
@@ -101,22 +100,26 @@ def test_concurrent_imports_of_different_files(store, tmp_path):
 
 
 def _decode_copy(blob: bytes) -> list[tuple]:
-    """Decode PostgreSQL binary COPY tuples by hand with struct (independent of the encoder)."""
-    fmt = {"meter_id": ">i", "start": ">q", "flags": ">h", "batch_id": ">i"}
+    """Decode PostgreSQL binary COPY tuples by hand with struct (independent of the encoder):
+    integers by their big-endian formats, ``bytea`` fields as their raw bytes."""
+    fmt = {"meter_id": ">i", "block_start": ">q", "batch_id": ">i"}
     out, pos = [], 0
     while pos < len(blob):
         (n,) = struct.unpack_from(">h", blob, pos)
         pos += 2
-        assert n == len(READING_COLUMNS)
+        assert n == len(BLOCK_COLUMNS)
         row = []
-        for col in READING_COLUMNS:
+        for col in BLOCK_COLUMNS:
             (length,) = struct.unpack_from(">i", blob, pos)
             pos += 4
             if length == -1:
                 row.append(None)
                 continue
-            (v,) = struct.unpack_from(fmt.get(col, ">d"), blob, pos)
-            assert length == struct.calcsize(fmt.get(col, ">d"))
+            if col in fmt:
+                assert length == struct.calcsize(fmt[col])
+                (v,) = struct.unpack_from(fmt[col], blob, pos)
+            else:
+                v = blob[pos:pos + length]
             pos += length
             row.append(v)
         out.append(tuple(row))
@@ -124,13 +127,24 @@ def _decode_copy(blob: bytes) -> list[tuple]:
 
 
 def test_copy_payload_encodes_nulls_and_values():
-    start = np.array([0, 900, 1800], dtype="int64")
-    values = {"kwh": np.array([1.5, 2.0, np.nan]), "kvarh_lag": np.array([0.25, np.nan, 1.0]),
-              "kvarh_lead": np.zeros(3), "kwh_received": np.full(3, np.nan)}
-    blobs = copy_payload(7, start, values, np.array([0, 1, 2], dtype="int16"), 42)
-    rows = sorted(r for b in blobs for r in _decode_copy(b))
-    assert rows == [(7, 0, 1.5, 0.25, 0.0, None, 0, 42), (7, 900, 2.0, None, 0.0, None, 1, 42),
-                    (7, 1800, None, 1.0, 0.0, None, 2, 42)]
+    """The binary COPY tuples hold what the SQLite rows hold (``pack``), NULLs included."""
+    t0 = 1_735_689_600
+    start = t0 + 900 * np.array([0, 1, 2, BLOCK, BLOCK + 1, 3 * BLOCK + 5])
+    values = {"kwh": np.array([1.5, 2.0, np.nan, 4.0, 5.0, 6.0]), "kvarh_lag": np.array([0.25, np.nan, 1.0, 2, 3, 4]),
+              "kvarh_lead": np.zeros(6), "kwh_received": np.full(6, np.nan)}
+    flags = np.array([0, 1, 2, 0, 0, 0], dtype="int16")
+    batch = np.array([42, 42, 43, 42, 42, 44], dtype="int32")
+    iv = Intervals(start, values, flags, batch)
+    rows = sorted(r for b in copy_payload(7, gather(iv, 15)) for r in _decode_copy(b))
+    assert rows == sorted(pack(7, 15, iv))
+    first = dict(zip(BLOCK_COLUMNS, rows[0], strict=True))
+    assert (first["meter_id"], first["block_start"], first["batch_id"]) == (7, t0, 43)
+    assert first["kwh_received"] is None and first["batch_ids"] is not None
+    kwh = struct.unpack_from(f"<{BLOCK}d", first["kwh"])
+    assert kwh[:2] == (1.5, 2.0) and np.isnan(kwh[2:]).all()  # NaN: no value, or no interval
+    assert struct.unpack_from("<4h", first["flags"]) == (0, 1, 2, -1)  # -1: a slot without an interval
+    second = dict(zip(BLOCK_COLUMNS, rows[1], strict=True))
+    assert second["flags"] is not None and second["batch_ids"] is None and second["batch_id"] == 42
     assert len(QUANTITIES) == 4
 
 

@@ -72,30 +72,23 @@ def test_blocks_of_hourly_and_five_minute_meters():
         assert_same(unpack([r[1:] for r in rows], minutes), iv)
 
 
-def _make_block_table(store) -> None:
-    """The block table (as the benchmark's prototype creates it) filled from ``reading`` by pack()."""
-    blob = "BLOB" if store.is_sqlite else "BYTEA"
-    with store.engine.begin() as c:
-        c.exec_driver_sql(f"CREATE TABLE reading_block (meter_id INTEGER NOT NULL, block_start BIGINT NOT NULL, "
-                          f"kwh {blob}, kvarh_lag {blob}, kvarh_lead {blob}, kwh_received {blob}, flags {blob}, "
-                          f"batch_id INTEGER NOT NULL, batch_ids {blob}, PRIMARY KEY (meter_id, block_start))")
-        meters = c.exec_driver_sql("SELECT id, interval_minutes FROM meter").all()
-        mark = "?" if store.is_sqlite else "%s"
-        for mid, minutes in meters:
-            rows = c.exec_driver_sql(f"SELECT start, {', '.join(QUANTITIES)}, flags, batch_id FROM reading "
-                                     f"WHERE meter_id = {mark} ORDER BY start", (mid,)).all()
-            a = np.array([[np.nan if v is None else v for v in r] for r in rows], dtype=float)
-            iv = Intervals(a[:, 0].astype(np.int64), {q: a[:, 1 + i] for i, q in enumerate(QUANTITIES)},
-                           a[:, -2].astype(np.int16), a[:, -1].astype(np.int32))
-            c.exec_driver_sql(f"INSERT INTO reading_block VALUES ({', '.join([mark] * len(BLOCK_COLUMNS))})",
-                              [tuple(r) for r in pack(mid, minutes, iv)])
+def _expected_frame(lines: list[str], meter: str, multiplier: float = 1.0) -> pd.DataFrame:
+    """The interval frame of one meter built from the CSV lines by pandas alone."""
+    rows = [x.split(",") for x in lines if x.startswith(meter + ",")]
+    index = pd.DatetimeIndex(pd.to_datetime([r[1] for r in rows], utc=True), name="start").as_unit("ns")
+    vals = np.array([[float(v) for v in r[2:5]] for r in rows])
+    return pd.DataFrame({"kwh": vals[:, 0] * multiplier, "kvarh_lag": vals[:, 1] * multiplier,
+                         "kvarh_lead": vals[:, 2] * multiplier, "kwh_received": np.zeros(len(rows)),
+                         "estimated": np.array([r[5] == "E" for r in rows])}, index=index)
 
 
-def test_block_reader_gives_the_row_readers_frame(store, tmp_path):
+def test_block_reader_gives_the_files_intervals(store, tmp_path):
+    """What the import stored in blocks reads back as the file's own intervals (gaps, an
+    estimated interval, an absent channel, the meter multiplier, a date range), SQLite and
+    PostgreSQL alike; and as the codec unpacks the stored blocks."""
     from auditor.ingest.pipeline import import_file
     from auditor.services.meters import load_meter, set_multiplier
-    from auditor.store import open_store
-    from tests.ingest_helpers import day_rows, write_csv
+    from tests.ingest_helpers import day_rows, stored_rows, write_csv
 
     lines = day_rows(meter="RB-1", day="2025-03-29", kwh=4.0) + day_rows(meter="RB-1", day="2025-03-31", kwh=5.0)
     lines += [x.replace(",0.000", ",0.125") for x in day_rows(meter="RB-2", day="2025-03-30", lag=2.0)[:50]]
@@ -104,19 +97,15 @@ def test_block_reader_gives_the_row_readers_frame(store, tmp_path):
     f = write_csv(tmp_path / "b.csv", lines, header="meter,start,kwh,kvarh_lag,kvarh_lead,flag")
     assert import_file(store, f).status == "imported"
     set_multiplier(store, "RB-1", 2.5)
-    rows_view = {m: load_meter(store, m) for m in ("RB-1", "RB-2")}
+    got = {m: load_meter(store, m).frame for m in ("RB-1", "RB-2")}
+    assert got["RB-1"]["estimated"].sum() == 1
+    pd.testing.assert_frame_equal(got["RB-1"], _expected_frame(lines, "RB-1", 2.5), check_index_type=False)
+    pd.testing.assert_frame_equal(got["RB-2"], _expected_frame(lines, "RB-2"), check_index_type=False)
     ranged = load_meter(store, "RB-1", pd.Timestamp("2025-03-30").date(), pd.Timestamp("2025-04-01").date())
-    assert rows_view["RB-1"].frame["estimated"].sum() == 1
-    _make_block_table(store)
-    blocks = open_store(store.url)  # a new engine asks which layout the store has
-    try:
-        for m, d in rows_view.items():
-            pd.testing.assert_frame_equal(load_meter(blocks, m).frame, d.frame)
-        pd.testing.assert_frame_equal(
-            load_meter(blocks, "RB-1", pd.Timestamp("2025-03-30").date(), pd.Timestamp("2025-04-01").date()).frame,
-            ranged.frame)
-    finally:
-        blocks.dispose()
+    pd.testing.assert_frame_equal(ranged.frame, got["RB-1"].loc["2025-03-30":], check_index_type=False)
+    assert len(ranged.frame) == 96
+    rows = stored_rows(store)
+    assert len(rows) == 96 * 2 + 50 and {r[5] for r in rows} == {None}  # no received energy in the file
 
 
 # --------------------------------------------------------------------------------------------

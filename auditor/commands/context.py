@@ -36,6 +36,12 @@ class Context:
         self._store = store
         self.db_url = store.url
 
+    def close(self) -> None:
+        """Close the store's pooled connections (when the command ends): an SQLite file in WAL
+        mode is checkpointed by its last connection's close."""
+        if self._store is not None:
+            self._store.dispose()
+
     def say(self, message: str = "", **kw) -> None:
         """A progress or confirmation line: printed unless ``--quiet``. Results a command was
         asked for (tables, ``--json``) and errors are printed with ``click.echo`` regardless."""

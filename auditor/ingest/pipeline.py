@@ -471,11 +471,11 @@ def _store(store: Store, path: Path, digest: str, mtime: float, info, part: Mete
             if older is not None:
                 # an older file is rolled back; the other meters are only counted
                 older.add(write_meter(conn, meter.id, rows.start, rows.values, rows.flags, batch.id,
-                                      source_mtime=mtime, apply=False))
+                                      interval_minutes=meter.interval_minutes, source_mtime=mtime, apply=False))
                 continue
             _channels(s, meter, info, batch.id)
             c = write_meter(conn, meter.id, rows.start, rows.values, rows.flags, batch.id,
-                            source_mtime=mtime, force=options.force)
+                            interval_minutes=meter.interval_minutes, source_mtime=mtime, force=options.force)
             if c.older:
                 older = c
                 continue

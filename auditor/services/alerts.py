@@ -60,7 +60,7 @@ from auditor.store.models import (
     ReadingRevision,
     Site,
 )
-from auditor.store.queries import now_utc
+from auditor.store.queries import last_start_before, now_utc, ranges_long
 from auditor.tariffs import Tariff
 
 __all__ = ["evaluate", "RunResult", "list_alerts", "mark_seen", "alert_counts", "last_run",
@@ -72,7 +72,6 @@ __all__ = ["evaluate", "RunResult", "list_alerts", "mark_seen", "alert_counts", 
 WINDOW_DAYS = 64
 STATES = ("new", "seen", "resolved")
 STEP_KINDS = ("correction_loss", "leading_at_light_load", "multiplier_change")
-_RANGE_CHUNK = 200  # (meter, start, end) ranges per reading query
 
 
 # --------------------------------------------------------------------------------------------
@@ -169,29 +168,15 @@ def _read_ranges(store: Store, meters: list[_MeterRow], ranges: list[tuple[int, 
     if not ranges:
         return pd.DataFrame({"meter": [], "start": [], "kwh": [], "kvarh_lag": [], "kvarh_lead": [], "estimated": []})
     by_id = {m.id: i for i, m in enumerate(meters)}
-    rows: list[tuple] = []
     with store.session() as s:
-        conn = s.connection()
-        mark = _placeholder(conn)
-        cur = conn.connection.driver_connection.cursor()
-        try:
-            for k in range(0, len(ranges), _RANGE_CHUNK):
-                part = ranges[k:k + _RANGE_CHUNK]
-                where = " OR ".join(f"(meter_id = {mark} AND start >= {mark} AND start < {mark})" for _ in part)
-                params = tuple(v for i, a, b in part for v in (meters[i].id, int(a), int(b)))
-                cur.execute("SELECT meter_id, start, COALESCE(kwh, 0), COALESCE(kvarh_lag, 0), "
-                            f"COALESCE(kvarh_lead, 0), flags FROM reading WHERE {where}", params)
-                rows.extend(cur.fetchall())
-        finally:
-            cur.close()
-    if not rows:
+        mid, start, kwh, lag, lead, flags = ranges_long(
+            s.connection(), [(meters[i].id, meters[i].minutes, int(a), int(b)) for i, a, b in ranges])
+    if not len(start):
         return _read_ranges(store, meters, [])
-    arr = np.array(rows, dtype=np.float64)
-    code = pd.Series(arr[:, 0].astype(np.int64)).map(by_id).to_numpy(dtype=np.int64)
+    code = pd.Series(mid).map(by_id).to_numpy(dtype=np.int64)
     mult = np.array([m.multiplier for m in meters])[code]
-    flags = arr[:, 5].astype(np.int64)
-    return pd.DataFrame({"meter": code, "start": arr[:, 1].astype(np.int64), "kwh": arr[:, 2] * mult,
-                         "kvarh_lag": arr[:, 3] * mult, "kvarh_lead": arr[:, 4] * mult,
+    return pd.DataFrame({"meter": code, "start": start, "kwh": np.nan_to_num(kwh) * mult,
+                         "kvarh_lag": np.nan_to_num(lag) * mult, "kvarh_lead": np.nan_to_num(lead) * mult,
                          "estimated": (flags & (FLAG_ESTIMATED | FLAG_FILLED)) != 0})
 
 
@@ -413,15 +398,13 @@ def evaluate(store: Store, as_of=None, meters: Iterable[str] | None = None,
 def _last_before(store: Store, rows: list[_MeterRow], as_of: pd.Timestamp, which: Sequence[int]) -> list[int]:
     """The last interval start before ``as_of`` of the meters at positions ``which`` (-1 where
     there is none), for meters with no data in the window: one index seek each."""
-    from auditor.store.models import Reading
-
     out = [-1] * len(rows)
     if not len(which):
         return out
     t = _epoch(as_of)
     with store.session() as s:
         for i in which:
-            got = s.scalar(select(func.max(Reading.start)).where(Reading.meter_id == rows[i].id, Reading.start < t))
+            got = last_start_before(s.connection(), rows[i].id, rows[i].minutes, t)
             out[i] = int(got) if got is not None else -1
     return out
 

@@ -101,19 +101,33 @@ def audit_meter(store: Store, meter: str, tariff: str | Path | Tariff | None, *,
             billing_day = meter_tariff(store, meter).billing_day
     else:
         t = resolve_tariff(tariff)
-    if periods:
-        start = start or periods[0].start
-        end = end or periods[-1].end
+    start, end = audit_span(start, end, periods)
     data = load_meter(store, meter, start, end)
+    return audit_loaded(store, data, t, start=start, end=end, billing_day=billing_day, periods=periods)
+
+
+def audit_span(start: date | None, end: date | None,
+               periods: list[BillingPeriod] | None) -> tuple[date | None, date | None]:
+    """The local dates whose readings an audit reads: those given, else the billing periods' span."""
+    if periods:
+        return start or periods[0].start, end or periods[-1].end
+    return start, end
+
+
+def audit_loaded(store: Store, data: MeterData, tariff: Tariff, *, start: date | None = None,
+                 end: date | None = None, billing_day: int | None = None,
+                 periods: list[BillingPeriod] | None = None) -> MeterAudit:
+    """The audit of a meter whose data are loaded (``start``/``end`` as :func:`audit_span`
+    gives them): the step :func:`audit_meter` and the batch audit share."""
     if data.frame.empty:
         from auditor.errors import UsageError
 
         span = f" between {start} and {end}" if start or end else ""
-        raise UsageError(f"meter {meter} has no readings{span}")
-    history = earlier_demand(store, meter, t, start, billing_day) if start else None
-    result = audit(data.frame, t, tz=data.timezone, interval_minutes=data.interval_minutes,
+        raise UsageError(f"meter {data.meter} has no readings{span}")
+    history = earlier_demand(store, data.meter, tariff, start, billing_day) if start else None
+    result = audit(data.frame, tariff, tz=data.timezone, interval_minutes=data.interval_minutes,
                    start=start, end=end, billing_day=billing_day, periods=periods, history_peak_kw=history)
-    return MeterAudit(data, t, result)
+    return MeterAudit(data, tariff, result)
 
 
 def earlier_demand(store: Store, meter: str, tariff: Tariff, start: date,

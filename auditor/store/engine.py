@@ -474,10 +474,11 @@ class LostData:
     table: str
     rows: int
     column: str | None = None
+    noun: str = "row"  # what ``rows`` counts: the readings of ``reading_block``, rows elsewhere
 
     def describe(self) -> str:
         what = f"column {self.column} of table {self.table}" if self.column else f"table {self.table}"
-        return f"{what} ({self.rows:,} row{'s' if self.rows != 1 else ''})"
+        return f"{what} ({self.rows:,} {self.noun}{'s' if self.rows != 1 else ''})"
 
 
 class DataWouldBeLost(StoreError):
@@ -496,10 +497,17 @@ def _missing_table(exc: DBAPIError) -> bool:
     return "no such table" in text or "does not exist" in text or "undefined table" in text
 
 
+# Tables whose rows a migration moves into another table rather than deleting them: a downgrade
+# that drops the first leaves the data in the second (migration 0010: the blocks back into rows).
+_MOVED_TO = {"reading_block": "reading"}
+# Tables whose content is counted in readings (intervals), not rows, when a downgrade reports it.
+_READINGS = ("reading_block",)
+
+
 def _holdings(conn) -> dict[str, tuple[int, dict[str, int]]]:
     """Every table's row count and, per column, how many rows hold a value (one scan a table;
     the schema's bookkeeping table left out). A column that is dropped while it holds no value
-    loses nothing."""
+    loses nothing. The block table counts its readings (intervals) instead of its rows."""
     insp = inspect(conn)
     quote = conn.dialect.identifier_preparer.quote
     out = {}
@@ -509,7 +517,12 @@ def _holdings(conn) -> dict[str, tuple[int, dict[str, int]]]:
         cols = [c["name"] for c in insp.get_columns(t)]
         counts = conn.exec_driver_sql(
             f"SELECT count(*){''.join(f', count({quote(c)})' for c in cols)} FROM {quote(t)}").one()
-        out[t] = (int(counts[0]), {c: int(n) for c, n in zip(cols, counts[1:], strict=True)})
+        rows = int(counts[0])
+        if t in _READINGS and rows:
+            from auditor.store.meter_data import spans
+
+            rows = sum(v[3] for v in spans(conn).values())
+        out[t] = (rows, {c: int(n) for c, n in zip(cols, counts[1:], strict=True)})
     return out
 
 
@@ -521,7 +534,10 @@ def _lost(conn, before: dict[str, tuple[int, dict[str, int]]]) -> list[LostData]
         if not rows:
             continue
         if t not in after:
-            lost.append(LostData(t, rows))
+            into = _MOVED_TO.get(t)
+            if into in after and conn.exec_driver_sql(f"SELECT count(*) FROM {into}").scalar() >= rows:
+                continue  # moved, not dropped
+            lost.append(LostData(t, rows, noun="reading" if t in _READINGS else "row"))
             continue
         kept = {c["name"] for c in insp.get_columns(t)}
         lost += [LostData(t, cols[c], c) for c in sorted(set(cols) - kept) if cols[c]]

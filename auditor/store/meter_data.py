@@ -3,11 +3,12 @@ that last changed them (table ``meter_data``).
 
 The import calls :func:`record_write` for every meter whose readings it inserted or revised,
 inside the file's transaction, so the version moves exactly when the data do. Listing meters and
-keeping portfolio summaries then read one small row per meter instead of scanning ``reading``.
+keeping portfolio summaries then read one small row per meter instead of scanning the readings
+(``reading_block``).
 
 :func:`ensure_current` is the safety net for data written any other way (a database from before
 the table existed is filled by its migration): when an import batch that changed readings is
-newer than every recorded version, the versions are rebuilt from ``reading`` in one pass.
+newer than every recorded version, the versions are rebuilt from ``reading_block`` in one pass.
 """
 from __future__ import annotations
 
@@ -43,22 +44,57 @@ def record_write(conn: Connection, meter_id: int, batch_id: int, *, inserted: in
             (int(meter_id), int(batch_id), int(first_start), int(last_start), int(inserted)))
 
 
+def spans(conn: Connection, meter_ids: Iterable[int] | None = None) -> dict[int, tuple[int, int, int, int]]:
+    """``{meter_id: (newest batch, first start, last start, intervals)}`` computed from the stored
+    blocks (all meters, or the given ones): one aggregate per meter, and the flags of the blocks
+    that have empty slots (only those can hold fewer than a block's intervals or start late)."""
+    import numpy as np
+
+    from auditor.store.blocks import ABSENT, BLOCK
+
+    m = _mark(conn)
+    ids = None if meter_ids is None else sorted({int(x) for x in meter_ids})
+    if ids is not None and not ids:
+        return {}
+    where = "" if ids is None else f" WHERE b.meter_id IN ({', '.join([m] * len(ids))})"
+    params = () if ids is None else tuple(ids)
+    agg = conn.exec_driver_sql(
+        "SELECT b.meter_id, max(b.batch_id), min(b.block_start), max(b.block_start), count(*), "
+        "coalesce(max(x.interval_minutes), 15) FROM reading_block b JOIN meter x ON x.id = b.meter_id"
+        f"{where} GROUP BY b.meter_id", params).all()
+    # newest batch, first start, last start, intervals, interval seconds; full blocks assumed
+    out = {}
+    for mid, newest, lo, hi, n, minutes in agg:
+        step = 60 * int(minutes)
+        out[int(mid)] = [int(newest), int(lo), int(hi) + (BLOCK - 1) * step, BLOCK * int(n), step, int(lo), int(hi)]
+    partial = conn.exec_driver_sql(
+        f"SELECT b.meter_id, b.block_start, b.flags FROM reading_block b{where}"
+        f"{' AND' if where else ' WHERE'} b.flags IS NOT NULL", params)
+    for mid, bs, fl in partial:
+        present = np.flatnonzero(np.frombuffer(fl, "<i2") != ABSENT)
+        o = out[int(mid)]
+        o[3] -= BLOCK - len(present)
+        if len(present) and int(bs) == o[5]:
+            o[1] = int(bs) + int(present[0]) * o[4]
+        if len(present) and int(bs) == o[6]:
+            o[2] = int(bs) + int(present[-1]) * o[4]
+    return {k: (v[0], v[1], v[2], v[3]) for k, v in out.items()}
+
+
 def rebuild(conn: Connection, meter_ids: Iterable[int] | None = None) -> None:
-    """Recompute the versions from ``reading`` (all meters, or the given ones)."""
+    """Recompute the versions from the stored blocks (all meters, or the given ones)."""
     m = _mark(conn)
     ids = None if meter_ids is None else [int(x) for x in meter_ids]
+    found = spans(conn, ids)
     if ids is None:
         conn.exec_driver_sql("DELETE FROM meter_data")
+    else:
+        for mid in ids:
+            conn.exec_driver_sql(f"DELETE FROM meter_data WHERE meter_id = {m}", (mid,))
+    if found:
         conn.exec_driver_sql(
             "INSERT INTO meter_data (meter_id, data_batch_id, first_start, last_start, intervals) "
-            "SELECT meter_id, max(batch_id), min(start), max(start), count(*) FROM reading GROUP BY meter_id")
-        return
-    for mid in ids:
-        conn.exec_driver_sql(f"DELETE FROM meter_data WHERE meter_id = {m}", (mid,))
-        conn.exec_driver_sql(
-            "INSERT INTO meter_data (meter_id, data_batch_id, first_start, last_start, intervals) "
-            f"SELECT meter_id, max(batch_id), min(start), max(start), count(*) FROM reading WHERE meter_id = {m} "
-            "GROUP BY meter_id", (mid,))
+            f"VALUES ({m}, {m}, {m}, {m}, {m})", [(k, *v) for k, v in sorted(found.items())])
 
 
 def ensure_current(conn: Connection) -> bool:

@@ -1,9 +1,11 @@
 """SQLAlchemy 2 typed models. The schema exists only through the Alembic migrations.
 
-Volume design: ``reading`` holds one row per meter interval with one column per canonical
-quantity, keyed by (meter_id, start) with no rowid on SQLite, so a meter-year is 35,040 narrow
-rows clustered by meter and time; every query the audit makes is a primary-key range scan.
-Superseded values move to ``reading_revision`` (kept for audit, never read by the audit).
+Volume design: ``reading_block`` holds a meter's readings in blocks of 24 intervals, one row per
+block with each canonical quantity as a packed array (:mod:`auditor.store.blocks`), keyed by
+(meter_id, block_start) with no rowid on SQLite, so a meter-year of 15-minute data is 1,460 rows
+clustered by meter and time; every query the audit makes is a primary-key range scan.
+Superseded values move to ``reading_revision``, one row per interval (kept for audit, never read
+by the audit).
 """
 from __future__ import annotations
 
@@ -16,6 +18,7 @@ from sqlalchemy import (
     ForeignKey,
     Index,
     Integer,
+    LargeBinary,
     MetaData,
     SmallInteger,
     String,
@@ -32,7 +35,7 @@ NAMING = {
     "pk": "pk_%(table_name)s",
 }
 
-# Bits of reading.flags
+# Bits of an interval's flags (reading_block.flags, reading_revision.flags)
 FLAG_ESTIMATED = 1  # the file flagged the interval as estimated
 FLAG_FILLED = 2  # the value was estimated by this program (--estimate-gaps)
 
@@ -109,17 +112,21 @@ class ImportBatch(Base):
     source_mtime: Mapped[float | None] = mapped_column(Float)
 
 
-class Reading(Base):
-    __tablename__ = "reading"
+class ReadingBlock(Base):
+    """A meter's readings of one block of 24 intervals (:mod:`auditor.store.blocks` has the
+    layout of each column)."""
+
+    __tablename__ = "reading_block"
     __table_args__ = {"sqlite_with_rowid": False}
     meter_id: Mapped[int] = mapped_column(ForeignKey("meter.id"), primary_key=True)
-    start: Mapped[int] = mapped_column(BigInteger, primary_key=True)  # UTC epoch seconds
-    kwh: Mapped[float | None] = mapped_column(Float)
-    kvarh_lag: Mapped[float | None] = mapped_column(Float)
-    kvarh_lead: Mapped[float | None] = mapped_column(Float)
-    kwh_received: Mapped[float | None] = mapped_column(Float)
-    flags: Mapped[int] = mapped_column(SmallInteger, default=0)
+    block_start: Mapped[int] = mapped_column(BigInteger, primary_key=True)  # UTC epoch seconds
+    kwh: Mapped[bytes | None] = mapped_column(LargeBinary)
+    kvarh_lag: Mapped[bytes | None] = mapped_column(LargeBinary)
+    kvarh_lead: Mapped[bytes | None] = mapped_column(LargeBinary)
+    kwh_received: Mapped[bytes | None] = mapped_column(LargeBinary)
+    flags: Mapped[bytes | None] = mapped_column(LargeBinary)
     batch_id: Mapped[int] = mapped_column(Integer)  # not a FK: keeps the bulk path lean
+    batch_ids: Mapped[bytes | None] = mapped_column(LargeBinary)
 
 
 class ReadingRevision(Base):
@@ -326,7 +333,7 @@ class MeterData(Base):
     """What a meter's stored readings are: their span, their count, and the import batch that
     last changed them (the meter's *data version*). Written by the import in the same
     transaction as the readings (:func:`auditor.store.meter_data.record_write`), so listing
-    meters and keeping portfolio summaries never scans ``reading``."""
+    meters and keeping portfolio summaries never scans ``reading_block``."""
 
     __tablename__ = "meter_data"
     meter_id: Mapped[int] = mapped_column(ForeignKey("meter.id"), primary_key=True)

@@ -1,6 +1,7 @@
 """Queries that return DataFrames or plain dicts for the service layer."""
 from __future__ import annotations
 
+from dataclasses import dataclass
 from datetime import UTC, datetime
 from typing import TYPE_CHECKING
 
@@ -37,135 +38,325 @@ def get_meter(session: Session, external_id: str) -> Meter:
 
 def read_intervals(session: Session, meter: Meter, start_utc: int | None = None,
                    end_utc: int | None = None) -> pd.DataFrame:
-    """The interval frame of one meter (DEVELOPERS.md): UTC index, multiplier applied.
+    """The interval frame of one meter (DEVELOPERS.md): UTC index, multiplier applied."""
+    got = read_arrays(session.connection(), [MeterSpan(meter.id, meter.interval_minutes or 15, start_utc, end_utc)])
+    return interval_frame_of(*got[0], meter.multiplier)
 
-    No Python object per interval where the driver allows it: the block layout
-    (:mod:`auditor.store.blocks`, used when the store has ``reading_block``) reads one row per
-    block; PostgreSQL sends each column packed into one ``bytea``, which numpy reads whole; SQLite
-    rows come through the driver's own cursor (SQLAlchemy's per-row processing skipped) into
-    one flat numpy array.
+
+@dataclass(frozen=True)
+class MeterSpan:
+    """What to read of one meter: its id, its interval and the UTC range (None: open)."""
+
+    meter_id: int
+    interval_minutes: int
+    start_utc: int | None = None
+    end_utc: int | None = None
+
+
+def read_arrays(conn, spans: list[MeterSpan]) -> list[tuple]:
+    """Each span's intervals as ``(start, values, flags)`` (UTC epoch seconds, one float64
+    array per quantity with NaN where there is no value, int16 flags), in the order of
+    ``spans``, read with one query for them all (a few for hundreds of scattered ranges).
+
+    No Python object per interval: a block is one row whose columns numpy reads whole
+    (:mod:`auditor.store.blocks`). SQLite rows come through the driver's own cursor
+    (SQLAlchemy's per-row processing skipped), and every column of every block read is joined
+    and decoded in one piece. PostgreSQL concatenates each meter's blocks on the server
+    (``string_agg`` ordered by ``block_start``), so the client gets one row per meter.
+    Spans of one meter that overlap give their common intervals twice.
     """
-    conn = session.connection()
-    if has_blocks(conn):
-        return _read_blocks(conn, meter, start_utc, end_utc)
-    where, params = _range_where(conn, meter, start_utc, end_utc)
-    # COALESCE keeps NULLs (absent channels) out of the rows: numpy converts every value in C,
-    # and on PostgreSQL every packed value has the same length.
-    cols = ", ".join(f"COALESCE({q}, 0)" for q in QUANTITIES)
-    sql = f"SELECT start, {cols}, flags FROM reading WHERE {where} ORDER BY start"
-    if conn.dialect.name == "postgresql":
-        start, vals, flags = _read_pg_packed(conn, sql, params)
-    else:
-        start, vals, flags = _read_rows(conn, sql, params)
-    return _frame(start, vals, flags, meter.multiplier)
-
-
-def _range_where(conn, meter: Meter, start_utc: int | None, end_utc: int | None) -> tuple[str, list]:
-    mark = "?" if conn.dialect.paramstyle == "qmark" else "%s"
-    where = [f"meter_id = {mark}"]
-    params: list = [meter.id]
-    if start_utc is not None:
-        where.append(f"start >= {mark}")
-        params.append(int(start_utc))
-    if end_utc is not None:
-        where.append(f"start < {mark}")
-        params.append(int(end_utc))
-    return " AND ".join(where), params
-
-
-def _read_rows(conn, sql: str, params: list):
-    import itertools
-
     import numpy as np
 
+    from auditor.store.blocks import BLOCK, Intervals, block_seconds, in_order, slots_kept
+
+    if not spans:
+        return []
+    bounds: dict[int, tuple[int | None, int | None]] = {}
+    for sp in spans:  # per meter, the loosest block bounds of its spans: each span is cut exactly below
+        lo = None if sp.start_utc is None else int(sp.start_utc) - block_seconds(sp.interval_minutes)
+        hi = None if sp.end_utc is None else int(sp.end_utc)
+        if sp.meter_id in bounds:
+            a, b = bounds[sp.meter_id]
+            lo = None if a is None or lo is None else min(a, lo)
+            hi = None if b is None or hi is None else max(b, hi)
+        bounds[sp.meter_id] = (lo, hi)
+    fetch = _pg_blocks if conn.dialect.name == "postgresql" else _sqlite_blocks
+    by_meter = fetch(conn, bounds)
+    out = []
+    for sp in spans:
+        found = by_meter.get(sp.meter_id)
+        if found is None:
+            out.append((np.empty(0, np.int64), {q: np.empty(0) for q in QUANTITIES}, np.empty(0, np.int16)))
+            continue
+        block_start, values, flags = found
+        step = 60 * int(sp.interval_minutes)
+        start = (block_start[:, None] + np.arange(BLOCK, dtype=np.int64) * step).ravel()
+        keep = slots_kept(start, flags, sp.start_utc, sp.end_utc)
+        if keep is not None:
+            start, values = start[keep], {q: v[keep] for q, v in values.items()}
+            flags = flags[keep] if flags is not None else None
+        flags = flags if flags is not None else np.zeros(len(start), np.int16)
+        iv = in_order(Intervals(start, values, flags, flags))
+        out.append((iv.start, iv.values, iv.flags))
+    return out
+
+
+_SPANS_PER_QUERY = 200  # meters with bounds of their own per query (an OR of key ranges)
+
+
+def _where(bounds: dict[int, tuple[int | None, int | None]], mark: str, any_array: bool) -> list[tuple[str, list]]:
+    """WHERE clauses (with their parameters) selecting the blocks of ``bounds``: one list of
+    meters when they share their bounds (a batch audit), else an OR of key ranges in chunks."""
+    ids = sorted(bounds)
+    shared = set(bounds.values())
+    if len(shared) == 1:
+        lo, hi = next(iter(shared))
+        if any_array:
+            where, params = ["meter_id = ANY(%s)"], [ids]
+        else:
+            where, params = [f"meter_id IN ({', '.join([mark] * len(ids))})"], list(ids)
+        if lo is not None:
+            where.append(f"block_start > {mark}")
+            params.append(lo)
+        if hi is not None:
+            where.append(f"block_start < {mark}")
+            params.append(hi)
+        return [(" AND ".join(where), params)]
+    out = []
+    for k in range(0, len(ids), _SPANS_PER_QUERY):
+        terms, params = [], []
+        for mid in ids[k:k + _SPANS_PER_QUERY]:
+            lo, hi = bounds[mid]
+            term = [f"meter_id = {mark}"]
+            params.append(mid)
+            if lo is not None:
+                term.append(f"block_start > {mark}")
+                params.append(lo)
+            if hi is not None:
+                term.append(f"block_start < {mark}")
+                params.append(hi)
+            terms.append("(" + " AND ".join(term) + ")")
+        out.append((" OR ".join(terms), params))
+    return out
+
+
+def _sqlite_blocks(conn, bounds: dict) -> dict:
+    """``{meter_id: (block starts, flat values, flat flags or None)}``, one driver row per meter:
+    SQLite concatenates each column of a meter's blocks (``group_concat`` with an empty
+    separator keeps a blob's bytes as they are, NULs included, and ``CAST … AS BLOB`` hands
+    them over unchanged). A NULL column (no value in the block, or no flag) is left out of the
+    concatenation and counted, so a channel the meter does not record and the flags of
+    unflagged blocks cost nothing; the starts of the blocks that have flags come as text, and a
+    channel recorded in some blocks only is read again for those blocks. The block starts come
+    in the same aggregate, so every column is in the same order whatever order SQLite fed the
+    rows in; they are sorted if it was not theirs."""
+    import numpy as np
+
+    from auditor.store.blocks import BLOCK
+
+    if not _utf8(conn):  # a UTF-16 file would re-encode the bytes as text: one row per block
+        return _sqlite_block_rows(conn, bounds)
+    cols = ["count(*)", "group_concat(block_start)"]
+    for c in (*QUANTITIES, "flags"):
+        cols += [f"count({c})", f"CAST(group_concat({c}, '') AS BLOB)"]
+    cols.append("group_concat(CASE WHEN flags IS NOT NULL THEN block_start END)")
+    found: list[tuple] = []
     cur = conn.connection.driver_connection.cursor()
     try:
-        cur.execute(sql, tuple(params))
-        rows = cur.fetchall()
+        for where, params in _where(bounds, "?", False):
+            cur.execute(f"SELECT meter_id, {', '.join(cols)} FROM reading_block WHERE {where} GROUP BY meter_id",
+                        params)
+            found += cur.fetchall()
     finally:
         cur.close()
-    width = 2 + len(QUANTITIES)
-    # one flat pass over the tuples (np.array of a list of tuples inspects each one first)
-    arr = np.fromiter(itertools.chain.from_iterable(rows), dtype=np.float64, count=len(rows) * width)
-    arr = arr.reshape(len(rows), width)
-    return arr[:, 0].astype(np.int64), arr[:, 1:1 + len(QUANTITIES)], arr[:, -1].astype(np.int64)
+    out = {}
+    nq = len(QUANTITIES)
+    for row in found:
+        mid, nb, starts = int(row[0]), int(row[1]), row[2]
+        block_start = np.fromstring(starts, dtype=np.int64, sep=",")
+        if len(block_start) != nb:  # pragma: no cover - the aggregate itself went wrong
+            raise ValueError(f"meter {mid}: {len(block_start)} block starts for {nb} blocks")
+        order = None if nb < 2 or (np.diff(block_start) > 0).all() else np.argsort(block_start, kind="stable")
+        if order is not None:
+            block_start = block_start[order]
+        values = {}
+        for i, q in enumerate(QUANTITIES):
+            n, data = int(row[3 + 2 * i]), row[4 + 2 * i]
+            if n == nb:
+                v = np.frombuffer(data, "<f8")
+                if len(v) != BLOCK * nb:  # pragma: no cover
+                    raise ValueError(f"meter {mid}: blocks of another size than {BLOCK} intervals")
+                values[q] = v if order is None else v.reshape(nb, BLOCK)[order].ravel()
+            elif n == 0:
+                values[q] = np.full(nb * BLOCK, np.nan)
+            else:  # recorded in some blocks only: those blocks again, placed by their starts
+                values[q] = _partial_column(conn, mid, q, bounds[mid], block_start)
+        n_flags, flag_data, flag_starts = int(row[3 + 2 * nq]), row[4 + 2 * nq], row[5 + 2 * nq]
+        flags = None
+        if n_flags:
+            flags = np.zeros((nb, BLOCK), np.int16)
+            at = np.searchsorted(block_start, np.fromstring(flag_starts, dtype=np.int64, sep=","))
+            flags[at] = np.frombuffer(flag_data, "<i2").reshape(n_flags, BLOCK)
+            flags = flags.ravel()
+        out[mid] = (block_start, values, flags)
+    return out
 
 
-def _read_pg_packed(conn, sql: str, params: list):
-    """Rows of ``sql`` (int8 start, float8 quantities, int2 flags, never NULL) as one packed
-    ``bytea`` per column: the server concatenates each value's binary form (``int8send``,
-    ``float8send``, ``int2send``) with ``string_agg``, and numpy reads each column in one piece
-    (big-endian, PostgreSQL's binary format). The client builds no object per row; binary
-    ``COPY`` would, since the driver hands over one message per row.
-
-    The aggregates read a subquery sorted by start, which PostgreSQL's documentation says
-    "usually" keeps the order; the starts are checked and the arrays sorted if it did not.
-    """
+def _partial_column(conn, meter_id: int, column: str, bound: tuple, block_start):
+    """One column of a meter's blocks where only some blocks hold it (NaN elsewhere)."""
     import numpy as np
 
-    n = len(QUANTITIES)
-    names = ["start", *[f"q{i}" for i in range(n)], "flags"]
-    inner = sql.replace(f"SELECT start, {', '.join(f'COALESCE({q}, 0)' for q in QUANTITIES)}, flags",
-                        "SELECT start, " + ", ".join(f"COALESCE({q}, 0) AS q{i}" for i, q in enumerate(QUANTITIES))
-                        + ", flags", 1)
-    send = {"start": "int8send", "flags": "int2send"}
-    packed = ", ".join(f"string_agg({send.get(c, 'float8send')}({c}), ''::bytea)" for c in names)
-    raw = conn.connection.driver_connection
-    with raw.cursor(binary=True) as cur:
-        cur.execute(f"SELECT {packed} FROM ({inner}) AS rows_in_order", params)
-        row = cur.fetchone()
-    if row is None or row[0] is None:
-        return np.empty(0, np.int64), np.empty((0, n)), np.empty(0, np.int64)
-    start = np.frombuffer(row[0], ">i8").astype(np.int64)
-    vals = np.column_stack([np.frombuffer(row[1 + i], ">f8") for i in range(n)]).astype(np.float64)
-    flags = np.frombuffer(row[-1], ">i2").astype(np.int64)
-    if len(start) > 1 and not (np.diff(start) > 0).all():
-        order = np.argsort(start, kind="stable")
-        start, vals, flags = start[order], vals[order], flags[order]
-    return start, vals, flags
+    from auditor.store.blocks import BLOCK
+
+    where, params = _where({meter_id: bound}, "?", False)[0]
+    rows = conn.connection.driver_connection.execute(
+        f"SELECT block_start, {column} FROM reading_block WHERE ({where}) AND {column} IS NOT NULL", params).fetchall()
+    out = np.full((len(block_start), BLOCK), np.nan)
+    if rows:
+        at = np.searchsorted(block_start, np.array([r[0] for r in rows], dtype=np.int64))
+        out[at] = np.frombuffer(b"".join(r[1] for r in rows), "<f8").reshape(len(rows), BLOCK)
+    return out.ravel()
 
 
-def has_blocks(conn) -> bool:
-    """Whether the store keeps readings in the block layout (``reading_block``), asked once per
-    engine (the answer is kept on the engine itself)."""
+def _utf8(conn) -> bool:
+    """Whether the SQLite file stores text as UTF-8 (asked once per engine)."""
     engine = conn.engine
-    found = engine.__dict__.get("_auditor_has_blocks")
+    found = engine.__dict__.get("_auditor_utf8")
     if found is None:
-        from sqlalchemy import inspect
-
-        found = engine.__dict__["_auditor_has_blocks"] = inspect(conn).has_table("reading_block")
+        enc = conn.connection.driver_connection.execute("PRAGMA encoding").fetchone()[0]
+        found = engine.__dict__["_auditor_utf8"] = str(enc).upper() == "UTF-8"
     return found
 
 
-def _read_blocks(conn, meter: Meter, start_utc: int | None, end_utc: int | None) -> pd.DataFrame:
+def _sqlite_block_rows(conn, bounds: dict) -> dict:
+    """``{meter_id: (block starts, flat values, flat flags or None)}``, one driver row per block."""
     import numpy as np
 
-    from auditor.store.blocks import block_seconds, unpack
+    from auditor.store.blocks import BLOCK, decode
 
-    minutes = meter.interval_minutes or 15
-    span = block_seconds(minutes)
-    mark = "?" if conn.dialect.paramstyle == "qmark" else "%s"
-    where, params = [f"meter_id = {mark}"], [meter.id]
-    if start_utc is not None:
-        where.append(f"block_start > {mark}")
-        params.append(int(start_utc) - span)
-    if end_utc is not None:
-        where.append(f"block_start < {mark}")
-        params.append(int(end_utc))
-    sql = (f"SELECT block_start, {', '.join(QUANTITIES)}, flags, batch_id, batch_ids FROM reading_block "
-           f"WHERE {' AND '.join(where)} ORDER BY block_start")
+    rows: list[tuple] = []
     cur = conn.connection.driver_connection.cursor()
     try:
-        cur.execute(sql, tuple(params))
-        rows = cur.fetchall()
+        for where, params in _where(bounds, "?", False):
+            cur.execute(f"SELECT meter_id, block_start, {', '.join(QUANTITIES)}, flags FROM reading_block "
+                        f"WHERE {where} ORDER BY meter_id, block_start", params)
+            rows += cur.fetchall()
     finally:
         cur.close()
-    iv = unpack(rows, minutes, start_utc, end_utc)
-    return _frame(iv.start, iv.values, iv.flags.astype(np.int64), meter.multiplier)
+    if not rows:
+        return {}
+    cols = list(zip(*rows, strict=True))
+    nq = len(QUANTITIES)
+    meter = np.fromiter(cols[0], dtype=np.int64, count=len(rows))
+    block_start = np.fromiter(cols[1], dtype=np.int64, count=len(rows))
+    values, flags = decode(cols[2:2 + nq], cols[2 + nq])
+    cut = np.flatnonzero(np.diff(meter)) + 1
+    out = {}
+    for a, b in zip(np.r_[0, cut].tolist(), np.r_[cut, len(rows)].tolist(), strict=True):
+        out[int(meter[a])] = (block_start[a:b], {q: v[a * BLOCK:b * BLOCK] for q, v in values.items()},
+                              flags[a * BLOCK:b * BLOCK] if flags is not None else None)
+    return out
 
 
-def _frame(start, vals, flags, multiplier: float = 1.0) -> pd.DataFrame:
-    """The interval frame from starts, values (an (n, 4) array or one array per quantity) and flags."""
+def _pg_blocks(conn, bounds: dict) -> dict:
+    """``{meter_id: (block starts, flat values, flat flags or None)}``, one row per meter: the
+    server concatenates each column of a meter's blocks in order (``string_agg(... ORDER BY
+    block_start)``), NULL columns left out, and with each column the starts of the blocks that
+    hold it (only looked at when some blocks lack it); numpy reads each column whole."""
+    import numpy as np
+
+    from auditor.store.blocks import BLOCK
+
+    order = "ORDER BY block_start"
+    cols = ["count(*)", f"string_agg(int8send(block_start), ''::bytea {order})"]
+    for c in (*QUANTITIES, "flags"):
+        cols += [f"count({c})", f"string_agg({c}, ''::bytea {order})",
+                 f"string_agg(int8send(block_start), ''::bytea {order}) FILTER (WHERE {c} IS NOT NULL)"]
+    found: list[tuple] = []
+    raw = conn.connection.driver_connection
+    with raw.cursor(binary=True) as cur:
+        for where, params in _where(bounds, "%s", True):
+            cur.execute(f"SELECT meter_id, {', '.join(cols)} FROM reading_block WHERE {where} GROUP BY meter_id",
+                        params)
+            found += cur.fetchall()
+    out = {}
+    for row in found:
+        mid, nb = int(row[0]), int(row[1])
+        block_start = np.frombuffer(row[2], ">i8").astype(np.int64)
+        values = {}
+        for k, q in enumerate(QUANTITIES):
+            v = _pg_column(row[3 + 3 * k:6 + 3 * k], nb, block_start, "<f8", np.nan)
+            values[q] = v if v is not None else np.full(nb * BLOCK, np.nan)
+        flags = _pg_column(row[3 + 3 * len(QUANTITIES):], nb, block_start, "<i2", 0)
+        if len(block_start) != nb or any(len(v) != BLOCK * nb for v in values.values()):  # pragma: no cover
+            raise ValueError(f"meter {mid}: blocks of another size than {BLOCK} intervals")
+        out[mid] = (block_start, values, flags)
+    return out
+
+
+def _pg_column(parts, nb: int, block_start, dtype: str, fill):
+    """One column of a meter's blocks from ``(count, concatenated bytes, starts of the blocks
+    holding it)``: None when no block holds it, ``fill`` in the blocks that do not."""
+    import numpy as np
+
+    from auditor.store.blocks import BLOCK
+
+    n, data, starts = int(parts[0]), parts[1], parts[2]
+    if n == nb:
+        return np.frombuffer(data, dtype)
+    if n == 0:
+        return None
+    out = np.full((nb, BLOCK), fill, dtype=dtype)
+    out[np.searchsorted(block_start, np.frombuffer(starts, ">i8"))] = np.frombuffer(data, dtype).reshape(n, BLOCK)
+    return out.ravel()
+
+
+def ranges_long(conn, ranges: list[tuple[int, int, int, int]]):
+    """Readings of ``(meter_id, interval minutes, start, end)`` ranges (UTC epoch seconds, end
+    excluded) as ``(meter_id, start, kwh, kvarh_lag, kvarh_lead, flags)`` arrays, values
+    without a multiplier (NaN: no value). Overlapping ranges of a meter give each interval once."""
+    import numpy as np
+
+    merged: dict[tuple[int, int], list[list[int]]] = {}
+    for m, minutes, a, b in sorted(ranges, key=lambda r: (r[0], r[2])):
+        runs = merged.setdefault((m, minutes), [])
+        if runs and a <= runs[-1][1]:
+            runs[-1][1] = max(runs[-1][1], b)
+        else:
+            runs.append([a, b])
+    spans = [MeterSpan(m, minutes, a, b) for (m, minutes), runs in merged.items() for a, b in runs]
+    got = read_arrays(conn, spans)
+    if not got:
+        e = np.empty(0)
+        return np.empty(0, np.int64), np.empty(0, np.int64), e, e, e, np.empty(0, np.int16)
+    meter = np.concatenate([np.full(len(s), sp.meter_id, np.int64) for sp, (s, _, _) in zip(spans, got, strict=True)])
+    return (meter, np.concatenate([s for s, _, _ in got]),
+            *[np.concatenate([v[q] for _, v, _ in got]) for q in ("kwh", "kvarh_lag", "kvarh_lead")],
+            np.concatenate([f for _, _, f in got]))
+
+
+def last_start_before(conn, meter_id: int, interval_minutes: int, before_utc: int) -> int | None:
+    """The start of the meter's last interval before ``before_utc`` (None: there is none): one
+    index seek for the block, then its slots."""
+    mark = "?" if conn.dialect.paramstyle == "qmark" else "%s"
+    bound = int(before_utc)
+    while True:
+        row = conn.exec_driver_sql(
+            f"SELECT block_start FROM reading_block WHERE meter_id = {mark} AND block_start < {mark} "
+            "ORDER BY block_start DESC LIMIT 1", (int(meter_id), bound)).first()
+        if row is None:
+            return None
+        got = read_arrays(conn, [MeterSpan(meter_id, interval_minutes, int(row[0]), int(before_utc))])[0][0]
+        got = got[got < int(before_utc)]
+        if len(got):
+            return int(got.max())
+        bound = int(row[0])  # the block held nothing before the time: look further back
+
+
+def interval_frame_of(start, vals, flags, multiplier: float = 1.0) -> pd.DataFrame:
+    """The interval frame from starts, values (an (n, 4) array or one array per quantity) and
+    flags, as :func:`read_arrays` gives them: the meter's multiplier applied, an absent value
+    as zero energy, ``estimated`` from the flags."""
     import numpy as np  # here, not at the top: listing meters does without them
     import pandas as pd
 
@@ -185,13 +376,13 @@ def interval_frame(rows: list[tuple], multiplier: float = 1.0) -> pd.DataFrame:
 
     if rows:
         arr = np.array(rows, dtype="float64")
-        return _frame(arr[:, 0].astype("int64"), arr[:, 1:5], arr[:, 5].astype("int64"), multiplier)
-    return _frame(np.empty(0, "int64"), np.empty((0, 4)), np.empty(0, "int64"), multiplier)
+        return interval_frame_of(arr[:, 0].astype("int64"), arr[:, 1:5], arr[:, 5].astype("int64"), multiplier)
+    return interval_frame_of(np.empty(0, "int64"), np.empty((0, 4)), np.empty(0, "int64"), multiplier)
 
 
 def meter_summaries(session: Session) -> list[dict]:
     """Every meter by site with the span, count and coverage of its readings (from
-    ``meter_data``: one row per meter, no scan of ``reading``)."""
+    ``meter_data``: one row per meter, no scan of the readings)."""
     from auditor.store.meter_data import ensure_current, versions
 
     conn = session.connection()

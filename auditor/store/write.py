@@ -1,8 +1,15 @@
-"""Bulk writes of validated readings, with revisions.
+"""Bulk writes of validated readings into the block layout, with revisions.
 
-Volume path: rows go through the DBAPI driver's ``executemany`` with plain tuples (SQLite), or
-binary ``COPY`` built by numpy (PostgreSQL), never one ORM object per interval. Everything happens inside the caller's
-transaction, so a file is wholly stored or not at all.
+Readings are stored in blocks of 24 intervals (:mod:`auditor.store.blocks`). For each meter of
+a file, :func:`write_meter` reads the stored blocks its intervals fall in, unpacks them, sorts
+the file's intervals into new (an empty slot), identical (every quantity equal within
+``rtol=1e-12, atol=1e-9``, NaN equal to NaN, same flags) and changed, copies the stored values of
+changed intervals to ``reading_revision`` (with the batch that wrote them and the batch that
+superseded them), lays the new and changed values over the stored ones, packs the touched blocks
+again and writes them: new blocks by the driver's ``executemany`` (SQLite) or binary ``COPY``
+built by numpy (PostgreSQL), stored ones by ``UPDATE`` on their key; blocks that only hold
+identical intervals are not written. Never one ORM object per interval; everything happens
+inside the caller's transaction, so a file is wholly stored or not at all.
 
 Revisions are decided by content, interval by interval (README, "Re-imports and revisions"):
 
@@ -10,15 +17,14 @@ Revisions are decided by content, interval by interval (README, "Re-imports and 
 * one whose incoming values were stored before and later replaced (they are in
   ``reading_revision``) is *superseded*: the file replays old content, as a re-saved copy of an
   old export does, and the stored newer values stay (``force`` applies it anyway);
-* one stored with other values is a revision: the stored row is copied to ``reading_revision``
-  (with the batch that superseded it) and replaced by the newer value — unless the file is
-  *older* than the file that wrote the stored value: its modification time is earlier by more
-  than ``OLDER_SLACK_S``. Then nothing of the meter is written and the counts say how many
-  intervals the file would change; the caller rolls the file back (``force`` applies it).
+* one stored with other values is a revision: the stored values are copied to
+  ``reading_revision`` (with the batch that superseded them) and replaced by the newer ones —
+  unless the file is *older* than the file that wrote the stored value: its modification time is
+  earlier by more than ``OLDER_SLACK_S``. Then nothing of the meter is written and the counts say
+  how many intervals the file would change; the caller rolls the file back (``force`` applies it).
 
 The import pipeline uses only :func:`import_session` (the file's one transaction) and
-:func:`write_meter` (one meter's sorted rows as numpy arrays, returning :class:`WriteCounts`):
-a different storage layout for ``reading`` changes this module, not the pipeline.
+:func:`write_meter` (one meter's sorted rows as numpy arrays, returning :class:`WriteCounts`).
 """
 from __future__ import annotations
 
@@ -27,18 +33,32 @@ from contextlib import contextmanager
 from dataclasses import dataclass, field
 
 import numpy as np
-import pandas as pd
 from sqlalchemy import Connection
 from sqlalchemy.exc import DBAPIError
 from sqlalchemy.orm import Session
 
+from auditor.store.blocks import (
+    ABSENT,
+    BLOCK_COLUMNS,
+    PGCOPY_HEADER,
+    PGCOPY_TRAILER,
+    STORED_COLUMNS,
+    Blocks,
+    Intervals,
+    block_of,
+    block_seconds,
+    copy_payload,
+    from_rows,
+    gather,
+    rows,
+)
 from auditor.store.models import QUANTITIES
 
-READING_COLUMNS = ("meter_id", "start", *QUANTITIES, "flags", "batch_id")
-BATCH_ROWS = 100_000
 # Files whose modification times are this close are taken as written at the same time (a
 # checkout, an unpacked archive or a copy without preserved times): neither is older.
 OLDER_SLACK_S = 60.0
+# a file's blocks that are read with one list of keys (beyond this, or when they are dense, by range)
+_KEYS_PER_QUERY = 500
 
 
 @dataclass
@@ -90,169 +110,132 @@ def _ph(conn: Connection, n: int) -> str:
     return ", ".join([mark] * n)
 
 
-def insert_rows(conn: Connection, meter_id: int, start: np.ndarray, values: dict[str, np.ndarray],
-                flags: np.ndarray, batch_id: int) -> int:
-    if not len(start):
-        return 0
+@contextmanager
+def _driver_errors(conn: Connection, what: str) -> Iterator[None]:
+    """The raw driver's errors (disk full, read-only, a key another import just wrote) as the
+    SQLAlchemy classes every caller handles."""
     try:
-        if conn.dialect.name == "postgresql":
-            return _copy_rows(conn, meter_id, start, values, flags, batch_id)
-        return _executemany_rows(conn, meter_id, start, values, flags, batch_id)
+        yield
     except conn.dialect.loaded_dbapi.Error as exc:
-        # the raw driver's errors (disk full, read-only, a key another import just wrote) as the
-        # SQLAlchemy classes every caller handles
-        raise DBAPIError.instance("INSERT INTO reading", None, exc, conn.dialect.loaded_dbapi.Error,
-                                  dialect=conn.dialect) from exc
+        raise DBAPIError.instance(what, None, exc, conn.dialect.loaded_dbapi.Error, dialect=conn.dialect) from exc
 
 
-def _executemany_rows(conn, meter_id, start, values, flags, batch_id) -> int:
-    """The SQLite bulk path: one prepared INSERT, rows bound as tuples.
-
-    Columns that are the same for every row of the call (the meter, the batch, an absent
-    channel, flags when none is set) are written into the statement as literals, so each row
-    binds only what varies: in the common case 4 values instead of 8, which is most of the cost.
-    All literals are integers or NULL produced here, never text from a file.
-    """
-    n = len(start)
-    exprs: list[str] = []
-    varying: list[np.ndarray] = []
-    mark = "?" if conn.dialect.paramstyle == "qmark" else "%s"
-    for col in READING_COLUMNS:
-        if col == "meter_id":
-            exprs.append(str(int(meter_id)))
-        elif col == "batch_id":
-            exprs.append(str(int(batch_id)))
-        elif col == "flags":
-            if n and (flags == flags[0]).all():
-                exprs.append(str(int(flags[0])))
-            else:
-                exprs.append(mark)
-                varying.append(flags)
-        elif col == "start":
-            exprs.append(mark)
-            varying.append(start)
+def insert_blocks(conn: Connection, meter_id: int, b: Blocks) -> int:
+    """Insert the blocks ``b`` of a meter (none of them stored yet); returns how many."""
+    if not len(b.start):
+        return 0
+    raw = conn.connection.driver_connection
+    with _driver_errors(conn, "INSERT INTO reading_block"):
+        if conn.dialect.name == "postgresql":
+            with raw.cursor() as cur, cur.copy(
+                    f"COPY reading_block ({', '.join(BLOCK_COLUMNS)}) FROM STDIN (FORMAT BINARY)") as copy:
+                copy.write(PGCOPY_HEADER)
+                for part in copy_payload(meter_id, b):
+                    copy.write(part)
+                copy.write(PGCOPY_TRAILER)
         else:
-            v = values[col]
-            if np.isnan(v).all():
-                exprs.append("NULL")
-            else:
-                # SQLite stores a bound NaN as NULL, which is what a missing value means
-                exprs.append(mark)
-                varying.append(v)
-    sql = f"INSERT INTO reading ({', '.join(READING_COLUMNS)}) VALUES ({', '.join(exprs)})"
+            cur = raw.cursor()
+            try:
+                cur.executemany(f"INSERT INTO reading_block ({', '.join(BLOCK_COLUMNS)}) "
+                                f"VALUES ({_ph(conn, len(BLOCK_COLUMNS))})", rows(meter_id, b))
+            finally:
+                cur.close()
+    return len(b.start)
+
+
+def _update_blocks(conn: Connection, meter_id: int, b: Blocks) -> None:
+    if not len(b.start):
+        return
+    mark = _ph(conn, 1)
+    sets = ", ".join(f"{c} = {mark}" for c in BLOCK_COLUMNS[2:])
+    params = [(*r[2:], r[0], r[1]) for r in rows(meter_id, b)]
     raw = conn.connection.driver_connection
-    cur = raw.cursor()
-    try:
-        for lo in range(0, n, BATCH_ROWS):
-            cols = [a[lo:lo + BATCH_ROWS].tolist() for a in varying]
-            cur.executemany(sql, zip(*cols, strict=True))
-    finally:
-        cur.close()
-    return n
+    with _driver_errors(conn, "UPDATE reading_block"):
+        cur = raw.cursor()
+        try:
+            cur.executemany(f"UPDATE reading_block SET {sets} WHERE meter_id = {mark} AND block_start = {mark}",
+                            params)
+        finally:
+            cur.close()
 
 
-# PostgreSQL binary COPY: the fixed binary header, and the trailer (a field count of -1)
-_PGCOPY_HEADER = b"PGCOPY\n\xff\r\n\x00" + b"\x00" * 8
-_PGCOPY_TRAILER = b"\xff\xff"
-_NULL = -1
+def stored_blocks(conn: Connection, meter_id: int, starts: np.ndarray, interval_minutes: int) -> Blocks:
+    """The stored blocks of a meter among the block starts ``starts`` (sorted, unique): by
+    their keys, or by the range they span when they are dense in it."""
+    if not len(starts):
+        return from_rows([])
+    cols = ", ".join(STORED_COLUMNS)
+    m = _ph(conn, 1)
+    span = block_seconds(interval_minutes)
+    found: list[tuple] = []
+    if (int(starts[-1]) - int(starts[0])) // span + 1 <= 2 * len(starts):
+        found = conn.exec_driver_sql(
+            f"SELECT {cols} FROM reading_block WHERE meter_id = {m} AND block_start >= {m} AND block_start <= {m} "
+            "ORDER BY block_start", (int(meter_id), int(starts[0]), int(starts[-1]))).fetchall()
+        b = from_rows(found)
+        return b.take(np.isin(b.start, starts)) if len(b.start) else b
+    for lo in range(0, len(starts), _KEYS_PER_QUERY):
+        part = [int(x) for x in starts[lo:lo + _KEYS_PER_QUERY]]
+        found += conn.exec_driver_sql(
+            f"SELECT {cols} FROM reading_block WHERE meter_id = {m} AND block_start IN ({_ph(conn, len(part))}) "
+            "ORDER BY block_start", (int(meter_id), *part)).fetchall()
+    return from_rows(found)
 
 
-def copy_payload(meter_id: int, start: np.ndarray, values: dict[str, np.ndarray], flags: np.ndarray,
-                 batch_id: int) -> list[bytes]:
-    """Rows of ``reading`` in PostgreSQL's binary COPY format, built with numpy, no loop over rows.
-
-    Each tuple is a big-endian int16 field count, then per field an int32 byte length and the
-    value (length -1 and no bytes for NULL). The column types must match the table exactly:
-    int4 meter_id, int8 start, float8 quantities, int2 flags, int4 batch_id (migration 0001).
-    A NaN (a channel the file does not have) becomes NULL. Rows are grouped by which quantities
-    are NULL, since that changes a tuple's length; row order does not matter to a table.
-
-    References
-    ----------
-    PostgreSQL documentation, "COPY", section "Binary Format".
-    """
-    nan = np.column_stack([np.isnan(values[q]) for q in QUANTITIES])
-    pattern = nan.astype(np.int8) @ (1 << np.arange(len(QUANTITIES), dtype=np.int8))
-    out = []
-    for code in np.unique(pattern):
-        rows = np.flatnonzero(pattern == code) if len(np.unique(pattern)) > 1 else slice(None)
-        null = [bool(code >> i & 1) for i in range(len(QUANTITIES))]
-        fields = [("n", ">i2"), ("l_meter", ">i4"), ("meter", ">i4"), ("l_start", ">i4"), ("start", ">i8")]
-        for q, is_null in zip(QUANTITIES, null, strict=True):
-            fields.append((f"l_{q}", ">i4"))
-            if not is_null:
-                fields.append((q, ">f8"))
-        fields += [("l_flags", ">i4"), ("flags", ">i2"), ("l_batch", ">i4"), ("batch", ">i4")]
-        st = start[rows]
-        rec = np.empty(len(st), dtype=np.dtype(fields))
-        rec["n"] = len(READING_COLUMNS)
-        rec["l_meter"], rec["meter"] = 4, meter_id
-        rec["l_start"], rec["start"] = 8, st
-        for q, is_null in zip(QUANTITIES, null, strict=True):
-            rec[f"l_{q}"] = _NULL if is_null else 8
-            if not is_null:
-                rec[q] = values[q][rows]
-        rec["l_flags"], rec["flags"] = 2, flags[rows]
-        rec["l_batch"], rec["batch"] = 4, batch_id
-        out.append(rec.tobytes())
-    return out
-
-
-def _copy_rows(conn, meter_id, start, values, flags, batch_id) -> int:
-    raw = conn.connection.driver_connection
-    sql = f"COPY reading ({', '.join(READING_COLUMNS)}) FROM STDIN (FORMAT BINARY)"
-    with raw.cursor() as cur:
-        with cur.copy(sql) as copy:
-            copy.write(_PGCOPY_HEADER)
-            for lo in range(0, len(start), BATCH_ROWS):
-                sl = slice(lo, lo + BATCH_ROWS)
-                for block in copy_payload(meter_id, start[sl], {q: v[sl] for q, v in values.items()},
-                                          flags[sl], batch_id):
-                    copy.write(block)
-            copy.write(_PGCOPY_TRAILER)
-    return len(start)
-
-
-_EMPTY = pd.DataFrame(columns=["start", *QUANTITIES, "flags", "batch_id"])
-
-
-def existing_rows(conn: Connection, meter_id: int, first: int, last: int) -> pd.DataFrame:
-    sql = (f"SELECT start, {', '.join(QUANTITIES)}, flags, batch_id FROM reading "
-           f"WHERE meter_id = {_ph(conn, 1)} AND start >= {_ph(conn, 1)} AND start <= {_ph(conn, 1)} ORDER BY start")
-    cur = conn.exec_driver_sql(sql, (meter_id, int(first), int(last)))
-    rows = cur.fetchall()
-    if not rows:
-        return _EMPTY
-    return pd.DataFrame(rows, columns=["start", *QUANTITIES, "flags", "batch_id"]).astype(
-        {"start": "int64", **{q: "float64" for q in QUANTITIES}})
+def _lock_meter(conn: Connection, meter_id: int) -> None:
+    """On PostgreSQL, hold the meter's row until the file's transaction ends: two imports of
+    the same meter at once would otherwise both read a block and write it back, each without
+    the other's intervals. (SQLite has one writer at a time: the import takes the write lock
+    with its first statement.)"""
+    if conn.dialect.name == "postgresql":
+        conn.exec_driver_sql("SELECT id FROM meter WHERE id = %s FOR UPDATE", (int(meter_id),))
 
 
 def write_meter(conn: Connection, meter_id: int, start: np.ndarray, values: dict[str, np.ndarray],
-                flags: np.ndarray, batch_id: int, *, source_mtime: float | None = None, force: bool = False,
-                apply: bool = True) -> WriteCounts:
+                flags: np.ndarray, batch_id: int, *, interval_minutes: int | None = None,
+                source_mtime: float | None = None, force: bool = False, apply: bool = True) -> WriteCounts:
     """Insert new intervals, revise changed ones, leave identical ones; returns the counts.
 
-    ``start`` is sorted. ``source_mtime`` is the file's modification time (recorded on its batch
-    by the caller); with ``force`` superseded and older values are applied too. When the counts
-    say ``older``, nothing was written for this meter. ``apply=False`` only counts.
+    ``start`` is sorted. ``interval_minutes`` is the meter's (read from the meter when not
+    given). ``source_mtime`` is the file's modification time (recorded on its batch by the
+    caller); with ``force`` superseded and older values are applied too. When the counts say
+    ``older``, nothing was written for this meter. ``apply=False`` only counts.
     """
     counts = WriteCounts()
-    if not len(start):
+    n = len(start)
+    if not n:
         return counts
-    old = existing_rows(conn, meter_id, int(start[0]), int(start[-1]))
-    if old.empty:
-        counts.inserted = insert_rows(conn, meter_id, start, values, flags, batch_id) if apply else len(start)
+    start = np.asarray(start, dtype=np.int64)
+    flags = np.asarray(flags, dtype=np.int16)
+    if interval_minutes is None:
+        interval_minutes = conn.exec_driver_sql(
+            f"SELECT interval_minutes FROM meter WHERE id = {_ph(conn, 1)}", (int(meter_id),)).scalar()
+    minutes = int(interval_minutes or 15)
+    step = minutes * 60
+    if apply:
+        _lock_meter(conn, meter_id)
+    block = block_of(start, minutes)
+    touched = np.unique(block)
+    stored = stored_blocks(conn, meter_id, touched, minutes)
+    if not len(stored.start):  # nothing of these blocks is stored: every interval is new
+        counts.inserted = n
+        if apply:
+            insert_blocks(conn, meter_id, gather(Intervals(start, values, flags, np.full(n, batch_id, np.int32)),
+                                                 minutes))
         return counts
-    old_start = old["start"].to_numpy()
-    pos = np.searchsorted(start, old_start)
-    pos_ok = (pos < len(start))
-    pos_ok[pos_ok] = start[pos[pos_ok]] == old_start[pos_ok]
-    old = old.loc[pos_ok]
-    pos = pos[pos_ok]
-    is_old = np.zeros(len(start), bool)
-    is_old[pos] = True
-    same = _same_rows({q: old[q].to_numpy() for q in QUANTITIES}, old["flags"].to_numpy(),
-                      {q: values[q][pos] for q in QUANTITIES}, flags[pos])
+    cur = Blocks.empty(touched)
+    at = np.searchsorted(touched, stored.start)
+    for q in QUANTITIES:
+        cur.values[q][at] = stored.values[q]
+    cur.flags[at] = stored.flags
+    cur.batch[at] = stored.batch
+    bi = np.searchsorted(touched, block)
+    slot = (start - block) // step
+    old_flags = cur.flags[bi, slot]
+    pos = np.flatnonzero(old_flags != ABSENT)  # incoming intervals already stored
+    old_values = {q: cur.values[q][bi[pos], slot[pos]] for q in QUANTITIES}
+    old_batch = cur.batch[bi[pos], slot[pos]]
+    same = _same_rows(old_values, old_flags[pos], {q: values[q][pos] for q in QUANTITIES}, flags[pos])
     changed = ~same
     counts.unchanged = int(same.sum())
     if changed.any() and not force:
@@ -261,35 +244,43 @@ def write_meter(conn: Connection, meter_id: int, start: np.ndarray, values: dict
         keep = np.flatnonzero(changed)[replayed]
         changed[keep] = False
         if changed.any() and source_mtime is not None:
-            newer = _newer_batches(conn, old["batch_id"].to_numpy()[changed], source_mtime)
+            newer = _newer_batches(conn, old_batch[changed], source_mtime)
             if newer:
-                counts.older = int(np.isin(old["batch_id"].to_numpy()[changed], list(newer)).sum())
+                counts.older = int(np.isin(old_batch[changed], list(newer)).sum())
                 counts.newer_batches = newer
                 return counts
-    new_idx = np.flatnonzero(~is_old)
+    new_idx = np.flatnonzero(old_flags == ABSENT)
     counts.revised = int(changed.sum())
-    if not apply:
-        counts.inserted = len(new_idx)
+    counts.inserted = len(new_idx)
+    if not apply or not (counts.inserted or counts.revised):
         return counts
-    counts.inserted = insert_rows(conn, meter_id, start[new_idx], {q: v[new_idx] for q, v in values.items()},
-                                  flags[new_idx], batch_id)
-    if changed.any():
-        prev = old.loc[changed]
-        rev_cols = ("meter_id", "start", *QUANTITIES, "flags", "batch_id", "superseded_by")
-        rev_rows = [
-            (meter_id, int(r.start), *[None if pd.isna(getattr(r, q)) else float(getattr(r, q)) for q in QUANTITIES],
-             int(r.flags), int(r.batch_id), batch_id)
-            for r in prev.itertuples(index=False)
-        ]
-        conn.exec_driver_sql(
-            f"INSERT INTO reading_revision ({', '.join(rev_cols)}) VALUES ({_ph(conn, len(rev_cols))})", rev_rows)
-        idx = pos[changed]
-        upd = [(*[None if np.isnan(values[q][i]) else float(values[q][i]) for q in QUANTITIES], int(flags[i]),
-                batch_id, meter_id, int(start[i])) for i in idx]
-        sets = ", ".join(f"{c} = {_ph(conn, 1)}" for c in (*QUANTITIES, "flags", "batch_id"))
-        conn.exec_driver_sql(
-            f"UPDATE reading SET {sets} WHERE meter_id = {_ph(conn, 1)} AND start = {_ph(conn, 1)}", upd)
+    if counts.revised:
+        _keep_revisions(conn, meter_id, start[pos[changed]], {q: v[changed] for q, v in old_values.items()},
+                        old_flags[pos[changed]], old_batch[changed], batch_id)
+    write = np.concatenate([new_idx, pos[changed]])
+    wb, ws = bi[write], slot[write]
+    for q in QUANTITIES:
+        cur.values[q][wb, ws] = values[q][write]
+    cur.flags[wb, ws] = flags[write]
+    cur.batch[wb, ws] = batch_id
+    dirty = np.zeros(len(touched), bool)
+    dirty[wb] = True
+    existed = np.zeros(len(touched), bool)
+    existed[at] = True
+    insert_blocks(conn, meter_id, cur.take(dirty & ~existed))
+    _update_blocks(conn, meter_id, cur.take(dirty & existed))
     return counts
+
+
+def _keep_revisions(conn: Connection, meter_id: int, start: np.ndarray, values: dict[str, np.ndarray],
+                    flags: np.ndarray, batch: np.ndarray, superseded_by: int) -> None:
+    """The stored values of revised intervals, into ``reading_revision`` (NaN: no value)."""
+    cols = ("meter_id", "start", *QUANTITIES, "flags", "batch_id", "superseded_by")
+    vals = [[None if np.isnan(x) else x for x in values[q].tolist()] for q in QUANTITIES]
+    params = [(int(meter_id), s, *v, f, b, int(superseded_by))
+              for s, *v, f, b in zip(start.tolist(), *vals, flags.tolist(), batch.tolist(), strict=True)]
+    conn.exec_driver_sql(f"INSERT INTO reading_revision ({', '.join(cols)}) VALUES ({_ph(conn, len(cols))})",
+                         params)
 
 
 def _same_rows(a: dict[str, np.ndarray], a_flags: np.ndarray, b: dict[str, np.ndarray],
@@ -307,16 +298,16 @@ def _superseded(conn: Connection, meter_id: int, start: np.ndarray, values: dict
     out = np.zeros(len(idx), bool)
     sql = (f"SELECT start, {', '.join(QUANTITIES)}, flags FROM reading_revision WHERE meter_id = {_ph(conn, 1)} "
            f"AND start >= {_ph(conn, 1)} AND start <= {_ph(conn, 1)}")
-    rows = conn.exec_driver_sql(sql, (meter_id, int(start[idx[0]]), int(start[idx[-1]]))).fetchall()
+    rows = conn.exec_driver_sql(sql, (int(meter_id), int(start[idx[0]]), int(start[idx[-1]]))).fetchall()
     if not rows:
         return out
-    rev = pd.DataFrame(rows, columns=["start", *QUANTITIES, "flags"]).astype(
-        {"start": "int64", **{q: "float64" for q in QUANTITIES}})
-    where = np.searchsorted(start[idx], rev["start"].to_numpy())
+    rev = np.array(rows, dtype=np.float64)  # None (no value) becomes NaN
+    rev_start = rev[:, 0].astype(np.int64)
+    where = np.searchsorted(start[idx], rev_start)
     ok = where < len(idx)
-    ok[ok] = start[idx][where[ok]] == rev["start"].to_numpy()[ok]
+    ok[ok] = start[idx][where[ok]] == rev_start[ok]
     at = idx[where[ok]]
-    match = _same_rows({q: rev[q].to_numpy()[ok] for q in QUANTITIES}, rev["flags"].to_numpy()[ok],
+    match = _same_rows({q: rev[ok, 1 + i] for i, q in enumerate(QUANTITIES)}, rev[ok, -1].astype(np.int64),
                        {q: values[q][at] for q in QUANTITIES}, flags[at])
     out[np.isin(idx, at[match])] = True
     return out
