@@ -157,8 +157,20 @@ def duck_table(work: Path, csv: Path, n: int):
         con.execute(f"""CREATE TABLE reading AS SELECT meter, epoch(CAST(start AS TIMESTAMPTZ))::BIGINT AS start,
                         kwh, kvarh_lag, kvarh_lead FROM read_csv('{csv}', header = true) ORDER BY meter, start""")
         con.execute("CHECKPOINT")
+    con.close()
+    con = duckdb.connect(str(path), read_only=True)  # read-only: the whole-command runs open it too
     con.execute(f"SET threads = {cpu_count()}")
     return con, path
+
+
+#: the reference engine as a whole command: start, import, open its file, the query, the rows
+DUCK_COMMAND = (
+    "import sys, duckdb\n"
+    "con = duckdb.connect(sys.argv[1], read_only=True)\n"
+    "con.execute(f'SET threads = {sys.argv[2]}')\n"
+    "rows = con.execute(sys.argv[3]).fetchall()\n"
+    "print(len(rows))\n"
+)
 
 
 def duck_once(con) -> tuple[float, float, float, list]:
@@ -246,13 +258,34 @@ def read_and_compute(url: str, meters: int) -> dict:
             "read_chunk_ms": 1000 * statistics.median(chunked)}
 
 
-def audit_all(url: str, work: Path, tag: str, repeat: int, duck) -> dict:
+def audit_all(url: str, work: Path, tag: str, repeat: int, duck, duck_path: Path) -> dict:
     """``audit --all`` and the reference engine's monthly query, alternating, ``repeat`` times
-    each; then the ``--json`` document checked against the reference engine's figures."""
+    each; then the ``--json`` document checked against the reference engine's figures. Beside
+    them, like for like: the reference engine as a whole command (``cmd_*``: a Python process
+    that imports it, opens its file and runs the query) against ``audit --all``, and the batch
+    audit in this warm process (``warm_*``: :func:`auditor.services.batch.audit_meters` with its
+    worker pool, the libraries already loaded) against the query in its warm process."""
+    from auditor.services.audit import resolve_tariff
+    from auditor.services.batch import audit_meters, same_tariff, select_meters
+    from auditor.store import open_store
+
     times, cpus, busy, machine = [], [], [], []
     ref_t, ref_c, ref_busy, ref_machine, pairs = [], [], [], [], []
+    cmd_t, warm_t = [], []
     reference: list = []
+    store = open_store(url)
+    meters = select_meters(store, all_meters=True)
+    tariff = resolve_tariff(TARIFF)
     for _ in range(repeat):
+        c = run_timed([sys.executable, "-c", DUCK_COMMAND, str(duck_path), str(cpu_count()), DUCK_QUERY], os.environ.copy())
+        if c["rc"] != 0:
+            sys.exit(f"the reference command failed:\n{c['stderr']}")
+        cmd_t.append(c["wall"])
+        t0 = time.perf_counter()
+        batch = audit_meters(store, meters, same_tariff(tariff))
+        warm_t.append(time.perf_counter() - t0)
+        if batch.failed:
+            sys.exit(f"the batch audit failed on {tag}: {batch.failed[:3]}")
         dw, dc, dm, reference = duck_once(duck)
         ref_t.append(dw)
         ref_c.append(dc)
@@ -270,7 +303,10 @@ def audit_all(url: str, work: Path, tag: str, repeat: int, duck) -> dict:
     out = {"median_s": med(times), "cpu_s": med(cpus), "cpu_busy": med(busy), "machine_busy": med(machine),
            "runs_s": times, "ref_s": med(ref_t), "ref_cpu_s": med(ref_c), "ref_cpu_busy": med(ref_busy),
            "ref_machine_busy": med(ref_machine), "ref_runs_s": ref_t, "pair_ratios": pairs,
-           "ratio": med(times) / med(ref_t), "cpu_ratio": med(cpus) / med(ref_c)}
+           "ratio": med(times) / med(ref_t), "cpu_ratio": med(cpus) / med(ref_c),
+           "cmd_ref_s": med(cmd_t), "cmd_ratio": med(times) / med(cmd_t),
+           "warm_s": med(warm_t), "warm_ratio": med(warm_t) / med(ref_t)}
+    store.dispose()
     js = work / f"audit-{tag}.json"
     r = run_timed(auditor_cmd("audit", "--all", "--tariff", TARIFF, "--json"), env_for(url), js)
     out["json_s"] = r["wall"]
@@ -285,7 +321,10 @@ def audit_line(label: str, a: dict) -> str:
             f"CPU {a['cpu_s']:.2f} s, {a['cpu_ratio']:.2f}× the reference's {a['ref_cpu_s']:.2f} s; cores busy "
             f"{100 * a['cpu_busy']:.0f} % (reference {100 * a['ref_cpu_busy']:.0f} %); machine busy with everything "
             f"{100 * a['machine_busy']:.0f} % (during the reference {100 * a['ref_machine_busy']:.0f} %); "
-            f"figures: {a['check']}")
+            f"figures: {a['check']}\n"
+            f"    like for like: whole command against the reference as a whole command "
+            f"{a['cmd_ref_s']:.2f} s: {a['cmd_ratio']:.2f}×; the batch audit in a warm process "
+            f"{a['warm_s']:.2f} s against the query in its warm process: {a['warm_ratio']:.2f}×")
 
 
 # --------------------------------------------------------------------------------------------
@@ -425,7 +464,7 @@ def main() -> None:
         duck, duck_path = duck_table(work, csv, n)
         r["bytes_per_meter_year"]["duckdb"] = duck_path.stat().st_size / n
         r["split"] = read_and_compute(url, n)
-        r["audit"] = audit_all(url, work, f"sqlite{n}", a.repeat, duck)
+        r["audit"] = audit_all(url, work, f"sqlite{n}", a.repeat, duck, duck_path)
         print(audit_line("SQLite", r["audit"]), flush=True)
         if not a.no_page:
             page_db = work / f"page{n}.sqlite3"  # the page step imports a revision: on a copy
@@ -448,7 +487,7 @@ def main() -> None:
                 pg["import_cpu_s"] = cpu[-1]
                 pg["bytes_per_meter_year"] = pg_bytes(purl) / n
                 pg["split"] = read_and_compute(purl, n)
-                pg["audit"] = audit_all(purl, work, f"pg{n}", a.repeat, duck)
+                pg["audit"] = audit_all(purl, work, f"pg{n}", a.repeat, duck, duck_path)
                 print(f"  PostgreSQL: import {pg['import_s']:.1f} s ({pg['import_cpu_s']:.1f} CPU s of the command) / "
                       f"{pg['import_mb']:.0f} MB, {pg['bytes_per_meter_year'] / 1e6:.2f} MB per meter-year", flush=True)
                 print(audit_line("PostgreSQL", pg["audit"]), flush=True)
