@@ -21,7 +21,9 @@ files are kept there and reused between runs; delete the folder when done):
   same figure is printed for the reference engine — and the busy share of the machine from
   ``/proc/stat`` during each run (all processes, ours and others') says how much of the
   machine other work took. The ``--json`` output is checked figure by figure against the
-  reference engine's;
+  reference engine's. Like for like, the reference also runs as a whole command (start, import,
+  open its file, query) against ``audit --all``, and the batch audit runs in this warm process
+  (its worker pool, the libraries loaded) against the query in its warm process;
 * **read and compute per meter-year** in one process: reading the interval frame vs the audit's
   own computation, which says where the time goes;
 * **portfolio page** — ``GET /`` through the dashboard's WSGI app: cold (no summaries stored),
