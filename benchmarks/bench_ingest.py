@@ -31,8 +31,7 @@ TARGET_PEAK_MB = 400
 
 def find_floor(given: str | None) -> Path:
     for cand in ([Path(given)] if given else []) + [HERE.parent.parent / "shared" / "bench" / "floor_ingest.py",
-                                                    HERE.parent.parent.parent / "shared" / "bench" / "floor_ingest.py",
-                                                    Path("/work/shared/bench/floor_ingest.py")]:
+                                                    HERE.parent.parent.parent / "shared" / "bench" / "floor_ingest.py"]:
         if cand.is_file():
             return cand.resolve()
     sys.exit("floor_ingest.py not found; give --floor PATH")
