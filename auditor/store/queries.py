@@ -104,6 +104,16 @@ def read_arrays(conn, spans: list[MeterSpan]) -> list[tuple]:
 _SPANS_PER_QUERY = 200  # meters with bounds of their own per query (an OR of key ranges)
 
 
+def _add_bounds(terms: list[str], params: list, lo, hi, mark: str) -> None:
+    """Append the block-start bounds ``lo < block_start < hi`` (either may be None) to a WHERE."""
+    if lo is not None:
+        terms.append(f"block_start > {mark}")
+        params.append(lo)
+    if hi is not None:
+        terms.append(f"block_start < {mark}")
+        params.append(hi)
+
+
 def _where(bounds: dict[int, tuple[int | None, int | None]], mark: str, any_array: bool) -> list[tuple[str, list]]:
     """WHERE clauses (with their parameters) selecting the blocks of ``bounds``: one list of
     meters when they share their bounds (a batch audit), else an OR of key ranges in chunks."""
@@ -115,12 +125,7 @@ def _where(bounds: dict[int, tuple[int | None, int | None]], mark: str, any_arra
             where, params = ["meter_id = ANY(%s)"], [ids]
         else:
             where, params = [f"meter_id IN ({', '.join([mark] * len(ids))})"], list(ids)
-        if lo is not None:
-            where.append(f"block_start > {mark}")
-            params.append(lo)
-        if hi is not None:
-            where.append(f"block_start < {mark}")
-            params.append(hi)
+        _add_bounds(where, params, lo, hi, mark)
         return [(" AND ".join(where), params)]
     out = []
     for k in range(0, len(ids), _SPANS_PER_QUERY):
@@ -129,12 +134,7 @@ def _where(bounds: dict[int, tuple[int | None, int | None]], mark: str, any_arra
             lo, hi = bounds[mid]
             term = [f"meter_id = {mark}"]
             params.append(mid)
-            if lo is not None:
-                term.append(f"block_start > {mark}")
-                params.append(lo)
-            if hi is not None:
-                term.append(f"block_start < {mark}")
-                params.append(hi)
+            _add_bounds(term, params, lo, hi, mark)
             terms.append("(" + " AND ".join(term) + ")")
         out.append((" OR ".join(terms), params))
     return out
