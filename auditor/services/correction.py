@@ -442,12 +442,17 @@ def get_scenario(store: Store, name: str) -> dict:
         return out
 
 
+def scenario_row(s, name: str) -> Scenario:
+    """The stored row of the saved scenario ``name`` in session ``s``, or NotFoundError."""
+    row = s.scalar(select(Scenario).where(Scenario.name == name))
+    if row is None:
+        raise NotFoundError(f"no saved scenario {name!r}")
+    return row
+
+
 def delete_scenario(store: Store, name: str) -> None:
     with store.session() as s:
-        row = s.scalar(select(Scenario).where(Scenario.name == name))
-        if row is None:
-            raise NotFoundError(f"no saved scenario {name!r}")
-        s.delete(row)
+        s.delete(scenario_row(s, name))
 
 
 def best_scenario(store: Store, meter: str) -> dict | None:

@@ -28,7 +28,7 @@ from pathlib import Path
 from auditor.correction import CAUTIONS
 from auditor.errors import NotFoundError, UsageError
 from auditor.services.audit import resolve_tariff
-from auditor.services.correction import get_scenario
+from auditor.services.correction import get_scenario, scenario_row
 from auditor.services.exports import Column, Workbook, column_groups, render_csv_table
 from auditor.store import Store
 from auditor.tariffs import Tariff, describe_tariff
@@ -399,31 +399,19 @@ def _clean_cover(values: dict) -> dict:
 
 def scenario_cover(store: Store, name: str) -> dict:
     """``{"client": ..., "project": ..., "author": ...}`` of a saved scenario (None where not given)."""
-    from sqlalchemy import select
-
-    from auditor.store.models import Scenario
-
     with store.session() as s:
-        row = s.scalar(select(Scenario).where(Scenario.name == name))
-        if row is None:
-            raise NotFoundError(f"no saved scenario {name!r}")
+        row = scenario_row(s, name)
         return {k: getattr(row, k) for k in COVER_FIELDS}
 
 
 def set_scenario_cover(store: Store, name: str, **values) -> dict:
     """Set the cover fields given (an empty text clears one); returns the whole cover."""
-    from sqlalchemy import select
-
-    from auditor.store.models import Scenario
-
     unknown = set(values) - set(COVER_FIELDS)
     if unknown:
         raise UsageError(f"a cover has {', '.join(COVER_FIELDS)}; not {', '.join(sorted(unknown))}")
     clean = _clean_cover(values)
     with store.session() as s:
-        row = s.scalar(select(Scenario).where(Scenario.name == name))
-        if row is None:
-            raise NotFoundError(f"no saved scenario {name!r}")
+        row = scenario_row(s, name)
         for k, v in clean.items():
             setattr(row, k, v)
         s.flush()
