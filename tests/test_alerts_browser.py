@@ -4,14 +4,11 @@ to the test's folder (or to AUDITOR_SCREENSHOTS when set, to look at them)."""
 from __future__ import annotations
 
 import os
-import shutil
-import tempfile
-import threading
 from pathlib import Path
 
 import pytest
 from monitoring_helpers import planted_store
-from test_web_browser import CHROMIUM_ARGS, chromium_path
+from test_web_browser import chromium, serving
 
 from auditor.services.alerts import list_alerts
 
@@ -27,33 +24,14 @@ def planted(tmp_path_factory):
 
 @pytest.fixture(scope="module")
 def server(planted, tmp_path_factory):
-    from auditor.commands.serve import make_server
-
-    instance = tmp_path_factory.mktemp("alerts-instance")
-    srv = make_server(planted, "127.0.0.1", 0, config={"INSTANCE_PATH": str(instance), "WARM_CACHE": False})
-    thread = threading.Thread(target=srv.run, daemon=True)
-    thread.start()
-    try:
-        yield f"http://127.0.0.1:{srv.effective_port}"
-    finally:
-        srv.close()
-        thread.join(timeout=10)
+    with serving(planted, tmp_path_factory.mktemp("alerts-instance")) as base:
+        yield base
 
 
 @pytest.fixture(scope="module")
 def browser():
-    path = chromium_path()
-    from playwright.sync_api import sync_playwright
-
-    profile = tempfile.mkdtemp(prefix="auditor-chromium-")
-    with sync_playwright() as p:
-        ctx = p.chromium.launch_persistent_context(profile, executable_path=path, headless=True, args=CHROMIUM_ARGS,
-                                                   viewport={"width": 1280, "height": 800})
-        try:
-            yield ctx
-        finally:
-            ctx.close()
-            shutil.rmtree(profile, ignore_errors=True)
+    with chromium({"width": 1280, "height": 800}) as ctx:
+        yield ctx
 
 
 @pytest.fixture

@@ -3,13 +3,11 @@ drawn, and in print media on A4 and Letter no table runs past the page; on a 128
 nothing scrolls sideways."""
 from __future__ import annotations
 
-import os
-import shutil
-import tempfile
 from pathlib import Path
 
 import pytest
 from conftest import DEMO_SCENARIO
+from test_web_browser import chromium, serving
 
 pytestmark = pytest.mark.browser
 
@@ -34,38 +32,10 @@ OVERFLOW = """() => {
 }"""
 
 
-def chromium_path() -> str:
-    path = os.environ.get("AUDITOR_CHROMIUM") or "/usr/bin/chromium"
-    reason = None
-    if not (Path(path).is_file() and os.access(path, os.X_OK)):
-        reason = f"no Chromium at {path} (apt-get install chromium, or set AUDITOR_CHROMIUM)"
-    else:
-        try:
-            import playwright.sync_api  # noqa: F401
-        except ImportError:
-            reason = "playwright (python) is not installed"
-    if reason:
-        if os.environ.get("AUDITOR_REQUIRE_BROWSER") == "1":
-            pytest.fail(reason + " but AUDITOR_REQUIRE_BROWSER=1 demands the browser tests")
-        pytest.skip(reason)
-    return path
-
-
 @pytest.fixture(scope="module")
 def browser():
-    from playwright.sync_api import sync_playwright
-
-    path = chromium_path()
-    profile = tempfile.mkdtemp(prefix="auditor-chromium-")
-    with sync_playwright() as p:
-        ctx = p.chromium.launch_persistent_context(
-            profile, executable_path=path, headless=True, viewport={"width": 1280, "height": 800},
-            args=["--headless", "--no-sandbox", "--disable-gpu", "--no-first-run", "--disable-background-networking"])
-        try:
-            yield ctx
-        finally:
-            ctx.close()
-            shutil.rmtree(profile, ignore_errors=True)
+    with chromium({"width": 1280, "height": 800}) as ctx:
+        yield ctx
 
 
 @pytest.fixture(scope="module")
@@ -141,19 +111,8 @@ def test_printed_comparison_fits_the_page(browser, documents):
 
 @pytest.fixture(scope="module")
 def server(demo_db, documents, tmp_path_factory):
-    import threading
-
-    from auditor.commands.serve import make_server
-
-    srv = make_server(demo_db, "127.0.0.1", 0, config={"INSTANCE_PATH": str(tmp_path_factory.mktemp("inst")),
-                                                        "WARM_CACHE": False})
-    thread = threading.Thread(target=srv.run, daemon=True)
-    thread.start()
-    try:
-        yield f"http://127.0.0.1:{srv.effective_port}"
-    finally:
-        srv.close()
-        thread.join(timeout=10)
+    with serving(demo_db, tmp_path_factory.mktemp("inst")) as base:
+        yield base
 
 
 def test_compare_page_draws_its_chart_and_fits_the_screen(browser, server):

@@ -3,7 +3,6 @@ the WSGI test client and in Chromium."""
 from __future__ import annotations
 
 import re
-import threading
 
 import pytest
 
@@ -11,7 +10,7 @@ from auditor.ingest.pipeline import import_file
 from auditor.services.meters import set_site
 from auditor.store import open_store
 from tests.ingest_helpers import day_rows, write_csv
-from tests.test_web_browser import browser_context, chromium_path, page  # noqa: F401  (fixtures)
+from tests.test_web_browser import browser_context, chromium_path, page, serving  # noqa: F401  (fixtures)
 
 SITES = {"Alder Mill": 25, "Birch Depot": 20, "Cedar Labs": 15}  # 60 meters
 
@@ -77,17 +76,8 @@ def test_site_filter_and_search(client):
 
 @pytest.fixture(scope="module")
 def server(many, tmp_path_factory):
-    from auditor.commands.serve import make_server
-
-    srv = make_server(many, "127.0.0.1", 0, config={"INSTANCE_PATH": str(tmp_path_factory.mktemp("b")),
-                                                     "WARM_CACHE": False})
-    thread = threading.Thread(target=srv.run, daemon=True)
-    thread.start()
-    try:
-        yield f"http://127.0.0.1:{srv.effective_port}"
-    finally:
-        srv.close()
-        thread.join(timeout=10)
+    with serving(many, tmp_path_factory.mktemp("b")) as base:
+        yield base
 
 
 def test_controls_in_the_browser(server, page):  # noqa: F811  (the page fixture)

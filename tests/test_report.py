@@ -221,19 +221,11 @@ def test_serve_beyond_loopback_needs_a_token(demo_db, capsys, monkeypatch):
 
 
 def test_make_server_serves_with_waitress(demo_db, tmp_path):
-    import threading
     import urllib.request
 
-    from auditor.commands.serve import make_server
+    from tests.test_web_browser import serving
 
-    server = make_server(demo_db, "127.0.0.1", 0, config={"INSTANCE_PATH": str(tmp_path / "i"), "WARM_CACHE": False})
-    thread = threading.Thread(target=server.run, daemon=True)
-    thread.start()
-    try:
-        with urllib.request.urlopen(f"http://127.0.0.1:{server.effective_port}/tariffs", timeout=30) as r:
-            assert r.status == 200
-            assert r.headers["Server"] == "pf-auditor"
-            assert b"Harrowgate Industrial TOU" in r.read()
-    finally:
-        server.close()
-        thread.join(timeout=10)
+    with serving(demo_db, tmp_path / "i") as base, urllib.request.urlopen(f"{base}/tariffs", timeout=30) as r:
+        assert r.status == 200
+        assert r.headers["Server"] == "pf-auditor"
+        assert b"Harrowgate Industrial TOU" in r.read()

@@ -42,41 +42,13 @@ def chromium_path() -> str:
 
 
 @contextmanager
-def served_page(store, instance: Path, **config):
-    """The dashboard (waitress) on ``store`` and a free port, and one Chromium page of 1280 × 800
-    that accepts downloads and collects the page's script errors: yields ``(page, base_url,
-    errors)``; everything is closed afterwards."""
-    from playwright.sync_api import sync_playwright
-
+def serving(store, instance: Path, token: str | None = None, **config):
+    """The dashboard on ``store`` as ``auditor serve`` runs it (waitress, a thread of this
+    process, a free port on 127.0.0.1): yields its base URL; stopped afterwards."""
     from auditor.commands.serve import make_server
 
-    path = chromium_path()
-    srv = make_server(store, "127.0.0.1", 0, config={"INSTANCE_PATH": str(instance), "WARM_CACHE": False, **config})
-    thread = threading.Thread(target=srv.run, daemon=True)
-    thread.start()
-    try:
-        with sync_playwright() as p:
-            browser = p.chromium.launch(executable_path=path, headless=True, args=CHROMIUM_ARGS)
-            try:
-                ctx = browser.new_context(accept_downloads=True, viewport={"width": 1280, "height": 800})
-                page = ctx.new_page()
-                page.set_default_timeout(60_000)
-                errors: list[str] = []
-                page.on("pageerror", lambda e: errors.append(str(e)))
-                yield page, f"http://127.0.0.1:{srv.effective_port}", errors
-            finally:
-                browser.close()
-    finally:
-        srv.close()
-        thread.join(timeout=10)
-
-
-@pytest.fixture(scope="module")
-def server(demo_db, tmp_path_factory):
-    from auditor.commands.serve import make_server
-
-    instance = tmp_path_factory.mktemp("browser-instance")
-    srv = make_server(demo_db, "127.0.0.1", 0, config={"INSTANCE_PATH": str(instance), "WARM_CACHE": False})
+    srv = make_server(store, "127.0.0.1", 0, token=token,
+                      config={"INSTANCE_PATH": str(instance), "WARM_CACHE": False, **config})
     thread = threading.Thread(target=srv.run, daemon=True)
     thread.start()
     try:
@@ -86,21 +58,47 @@ def server(demo_db, tmp_path_factory):
         thread.join(timeout=10)
 
 
-@pytest.fixture(scope="module")
-def browser_context():
+@contextmanager
+def chromium(viewport: dict, args: list[str] = CHROMIUM_ARGS, **options):
+    """Debian's Chromium with a new, empty profile (a persistent context of Playwright's): yields
+    the context; closed and its profile removed afterwards."""
     path = chromium_path()
     from playwright.sync_api import sync_playwright
 
-    profile = tempfile.mkdtemp(prefix="auditor-chromium-")  # a new, empty user data dir
+    profile = tempfile.mkdtemp(prefix="auditor-chromium-")
     with sync_playwright() as p:
-        ctx = p.chromium.launch_persistent_context(profile, executable_path=path, headless=True,
-                                                   args=CHROMIUM_ARGS, accept_downloads=True,
-                                                   viewport={"width": 1400, "height": 900})
+        ctx = p.chromium.launch_persistent_context(profile, executable_path=path, headless=True, args=args,
+                                                   viewport=viewport, **options)
         try:
             yield ctx
         finally:
             ctx.close()
             shutil.rmtree(profile, ignore_errors=True)
+
+
+@contextmanager
+def served_page(store, instance: Path, **config):
+    """The dashboard (see :func:`serving`) and one Chromium page of 1280 × 800 that accepts
+    downloads and collects the page's script errors: yields ``(page, base_url, errors)``."""
+    with serving(store, instance, **config) as base, \
+            chromium({"width": 1280, "height": 800}, accept_downloads=True) as ctx:
+        page = ctx.new_page()
+        page.set_default_timeout(60_000)
+        errors: list[str] = []
+        page.on("pageerror", lambda e: errors.append(str(e)))
+        yield page, base, errors
+
+
+@pytest.fixture(scope="module")
+def server(demo_db, tmp_path_factory):
+    with serving(demo_db, tmp_path_factory.mktemp("browser-instance")) as base:
+        yield base
+
+
+@pytest.fixture(scope="module")
+def browser_context():
+    with chromium({"width": 1400, "height": 900}, accept_downloads=True) as ctx:
+        yield ctx
 
 
 @pytest.fixture

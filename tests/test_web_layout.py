@@ -9,7 +9,6 @@ past the printable width of an A4 or a Letter page (the style sheet's 12 mm marg
 from __future__ import annotations
 
 import sqlite3
-import threading
 from urllib.parse import quote
 
 import pytest
@@ -39,7 +38,6 @@ SCENARIO_PAGES = ["/scenario", "/scenario?meter=KQ-DOCKS", "/scenarios", f"/scen
 @pytest.fixture(scope="module")
 def server(demo_db, tmp_path_factory):
     """The dashboard on a copy of the demo database holding the demo bills too."""
-    from auditor.commands.serve import make_server
     from auditor.services.bills import demo_bills_path, import_bills
     from auditor.store import open_store
 
@@ -58,14 +56,10 @@ def server(demo_db, tmp_path_factory):
 
     save_scenario(store, OPTIMISED, scenario_for_meter(store, ScenarioRequest(meter="KQ-MAIN", tariff=DEMO_TARIFF,
                                                                               optimise=True)))
-    srv = make_server(store, "127.0.0.1", 0, config={"INSTANCE_PATH": str(folder / "instance"), "WARM_CACHE": False})
-    thread = threading.Thread(target=srv.run, daemon=True)
-    thread.start()
     try:
-        yield f"http://127.0.0.1:{srv.effective_port}"
+        with browser.serving(store, folder / "instance") as base:
+            yield base
     finally:
-        srv.close()
-        thread.join(timeout=10)
         store.dispose()
 
 
@@ -190,16 +184,7 @@ def test_in_print_nothing_runs_past_the_page(server, page, paper):
 
 
 def test_login_page_fits(demo_db, tmp_path, page):
-    from auditor.commands.serve import make_server
-
-    srv = make_server(demo_db, "127.0.0.1", 0, token="layout-test-token-123",
-                      config={"INSTANCE_PATH": str(tmp_path / "instance"), "WARM_CACHE": False})
-    thread = threading.Thread(target=srv.run, daemon=True)
-    thread.start()
-    try:
-        _open(page, f"http://127.0.0.1:{srv.effective_port}/login")
+    with browser.serving(demo_db, tmp_path / "instance", token="layout-test-token-123") as base:
+        _open(page, f"{base}/login")
         assert page.locator("input[name=token]").is_visible()
         assert document_width(page) <= 1280
-    finally:
-        srv.close()
-        thread.join(timeout=10)
