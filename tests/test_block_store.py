@@ -57,15 +57,23 @@ def _seed_0009(url: str) -> None:
         store.dispose()
 
 
+def _block_count(store) -> int:
+    with store.engine.connect() as c:
+        return c.exec_driver_sql("SELECT count(*) FROM reading_block").scalar()
+
+
 def test_migration_moves_every_reading_into_blocks_and_back(db_url):
     _seed_0009(db_url)
     rows = sorted(_old_rows())
-    store = open_store(db_url)  # upgrades to the head: 0010 moves the rows
+    store = open_store(db_url, upgrade=False)
     try:
+        store.upgrade("0010")  # rows into blocks of 24 intervals
+        assert _block_count(store) == 5 + 2  # meter 1: 100 slots of 15 min; meter 2: 30 hours at half past
+        store.upgrade()  # 0011: blocks of 96 intervals
         assert store.current_revision() == store.head_revision()
         assert stored_rows(store) == rows  # values bit for bit, NULLs, flags and each interval's batch
+        assert _block_count(store) == 2 + 1  # a UTC day of 15-minute slots; 96 hours from a block boundary
         with store.engine.connect() as c:
-            assert c.exec_driver_sql("SELECT count(*) FROM reading_block").scalar() == 5 + 2
             # the version the import recorded equals the one the blocks give
             assert spans(c) == versions(c)
         # the shifted hourly grid (half past in UTC) reads back on its own times
@@ -73,6 +81,8 @@ def test_migration_moves_every_reading_into_blocks_and_back(db_url):
 
         frame = load_meter(store, "OLD-2").frame
         assert len(frame) == 30 and (frame.index.minute == 30).all() and frame["estimated"].sum() == 1
+        assert store.downgrade("0010") == []  # back into blocks of 24
+        assert _block_count(store) == 5 + 2
         lost = store.downgrade("0009")
         assert lost == []  # moved back, not dropped
         with store.engine.connect() as c:
@@ -81,6 +91,55 @@ def test_migration_moves_every_reading_into_blocks_and_back(db_url):
         assert [tuple(r) for r in back] == rows
         store.upgrade()
         assert stored_rows(store) == rows
+    finally:
+        store.dispose()
+
+
+def test_a_new_sqlite_file_has_pages_a_block_fits_in(tmp_path):
+    import sqlite3
+
+    store = open_store(f"sqlite:///{tmp_path / 'new.sqlite3'}")
+    store.dispose()
+    con = sqlite3.connect(tmp_path / "new.sqlite3")
+    try:
+        assert con.execute("PRAGMA page_size").fetchone()[0] == 16384
+        assert con.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
+    finally:
+        con.close()
+
+
+def test_an_sqlite_file_with_small_pages_is_rewritten_at_the_upgrade(tmp_path):
+    """A file made with SQLite's default 4 KiB pages (as before 0011) gets 16 KiB pages when
+    the upgrade re-blocks it, its readings intact; a file another process holds open is left
+    as it is (it works either way) and rewritten at a later upgrade."""
+    import sqlite3
+
+    path = tmp_path / "old.sqlite3"
+    con = sqlite3.connect(path)
+    con.execute("PRAGMA page_size=4096")
+    con.execute("PRAGMA journal_mode=WAL")
+    con.close()
+    url = f"sqlite:///{path}"
+    _seed_0009(url)
+    store = open_store(url, upgrade=False)
+    try:
+        with store.engine.connect() as c:
+            assert c.exec_driver_sql("PRAGMA page_size").scalar() == 4096
+        other = sqlite3.connect(path)  # another process with the file open
+        other.execute("SELECT count(*) FROM meter").fetchone()
+        store.upgrade()
+        with store.engine.connect() as c:
+            assert c.exec_driver_sql("PRAGMA page_size").scalar() == 4096  # left as it is
+            assert c.exec_driver_sql("PRAGMA journal_mode").scalar() == "wal"
+        other.close()
+        assert stored_rows(store) == sorted(_old_rows())
+        store.downgrade("0010")
+        store.upgrade()
+        with store.engine.connect() as c:
+            assert c.exec_driver_sql("PRAGMA page_size").scalar() == 16384
+            assert c.exec_driver_sql("PRAGMA journal_mode").scalar() == "wal"
+            assert c.exec_driver_sql("PRAGMA integrity_check").scalar() == "ok"
+        assert stored_rows(store) == sorted(_old_rows())
     finally:
         store.dispose()
 
@@ -122,7 +181,7 @@ def test_an_unchanged_file_writes_no_block(store, tmp_path):
 
 
 def test_filling_a_gap_completes_the_block(store, tmp_path):
-    rows = day_rows(n=24)
+    rows = day_rows(n=BLOCK)
     import_file(store, write_csv(tmp_path / "a.csv", rows[:10] + rows[15:]))
     with store.engine.connect() as c:
         assert c.exec_driver_sql("SELECT count(*) FROM reading_block WHERE flags IS NOT NULL").scalar() == 1
@@ -206,8 +265,9 @@ def test_a_channel_recorded_in_some_blocks_only_reads_back_in_place(store, tmp_p
     assert import_file(store, write_csv(tmp_path / "a.csv", day1, header + ",flag")).status == "imported"
     assert import_file(store, write_csv(tmp_path / "b.csv", day2, header + ",kwh_received")).status == "imported"
     with store.engine.connect() as c:
+        per_day = 96 // BLOCK  # blocks of a UTC day of 15-minute data
         assert c.exec_driver_sql("SELECT count(kwh_received), count(flags), count(*) FROM reading_block").one() \
-            == (4, 1, 8)
+            == (per_day, 1, 2 * per_day)
     frame = load_meter(store, "M1").frame
     assert len(frame) == 192 and frame["estimated"].sum() == 1 and frame["estimated"].iloc[30]
     np.testing.assert_array_equal(frame["kwh_received"].to_numpy()[:96], 0.0)

@@ -31,6 +31,7 @@ def assert_same(a: Intervals, b: Intervals) -> None:
 
 
 def test_round_trip_with_gaps_flags_absent_values_and_mixed_batches():
+    size = 24  # blocks of 6 hours, as revision 0010 wrote them: 100 slots span five
     step = 900
     t0 = 1_735_689_600  # 2025-01-01T00:00Z, a block boundary
     start = t0 + step * np.r_[np.arange(0, 30), np.arange(40, 100)]  # a gap inside the second block
@@ -42,19 +43,25 @@ def test_round_trip_with_gaps_flags_absent_values_and_mixed_batches():
     flags[3] = 1  # estimated
     batch = np.where(np.arange(n) < 50, 3, 9)
     iv = intervals(start, kwh, received=received, flags=flags, batch=batch)
-    rows = pack(12, 15, iv)
+    rows = pack(12, 15, iv, size)
     assert all(len(r) == len(BLOCK_COLUMNS) for r in rows)
-    assert [r[1] for r in rows] == [t0 + k * BLOCK * step for k in range(5)]  # 100 slots: 5 blocks
+    assert [r[1] for r in rows] == [t0 + k * size * step for k in range(5)]  # 100 slots: 5 blocks
     by_block = {r[1]: dict(zip(BLOCK_COLUMNS, r, strict=True)) for r in rows}
     first = by_block[t0]
     assert first["kwh_received"] is None  # no value in the block: no bytes
     assert first["flags"] is not None and first["batch_ids"] is None and first["batch_id"] == 3
-    assert by_block[t0 + 3 * BLOCK * step]["flags"] is None  # slots 72-95: full and unflagged
-    assert by_block[t0 + 4 * BLOCK * step]["flags"] is not None  # slots 96-99 of 120: partly empty
-    assert by_block[t0 + 2 * BLOCK * step]["batch_ids"] is not None  # batches 3 and 9 meet there
-    back = unpack([r[1:] for r in rows], 15)
+    assert by_block[t0 + 3 * size * step]["flags"] is None  # slots 72-95: full and unflagged
+    assert by_block[t0 + 4 * size * step]["flags"] is not None  # slots 96-99 of 120: partly empty
+    assert by_block[t0 + 2 * size * step]["batch_ids"] is not None  # batches 3 and 9 meet there
+    back = unpack([r[1:] for r in rows], 15, size=size)
     assert_same(back, iv)
-    part = unpack([r[1:] for r in rows], 15, int(start[10]), int(start[70]))
+    part = unpack([r[1:] for r in rows], 15, int(start[10]), int(start[70]), size=size)
+    np.testing.assert_array_equal(part.start, start[10:70])
+    # the current layout: a day of 15-minute slots per block, the same intervals back
+    day = pack(12, 15, iv)
+    assert [r[1] for r in day] == [t0 + k * BLOCK * step for k in range(-(-100 // BLOCK))]
+    assert_same(unpack([r[1:] for r in day], 15), iv)
+    part = unpack([r[1:] for r in day], 15, int(start[10]), int(start[70]))
     np.testing.assert_array_equal(part.start, start[10:70])
 
 

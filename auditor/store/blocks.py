@@ -28,9 +28,14 @@ interval grid: ``block_start`` is a multiple of ``BLOCK × interval`` shifted by
 (an hourly meter whose hours start at half past in UTC, as in a +05:30 zone, has blocks that
 start at half past too), so every interval falls on a slot.
 
-``BLOCK`` = 24 keeps a block's row below SQLite's in-page limit for index b-tree cells (about
-1,000 bytes with the default 4 KiB pages: 24 × (4 × 8 + 2 + 4) = 912 bytes with every column
-filled), so no row spills to an overflow page; a block is 6 hours of 15-minute data.
+``BLOCK`` = 96 is a day of 15-minute data (8 hours of 5-minute data, 4 days of hourly data),
+and keeps a block's row below SQLite's in-page limit for index b-tree cells with the 16 KiB pages
+the store gives a new database (about 4,080 bytes: 96 × (4 × 8 + 2 + 4) = 3,648 bytes with
+every column filled), so no row spills to an overflow page (:func:`auditor.store.engine.make_engine`
+sets the page size; DEVELOPERS.md, "The block layout", has the measurements behind the choice).
+Migration 0010 wrote blocks of 24 intervals; migration 0011 re-blocks them. The functions that
+lay intervals out in blocks or read stored rows back take the block size (``size``, default
+:data:`BLOCK`), so that each migration keeps the layout of its own revision.
 Revisions (``reading_revision``) and quality flags (``quality_flag``) keep their tables, one row
 per interval.
 """
@@ -43,33 +48,41 @@ import numpy as np
 
 from auditor.store.models import QUANTITIES
 
-BLOCK = 24
+BLOCK = 96
 ABSENT = -1  # flags value of a slot that holds no interval
 GRID = 900  # every interval start lies on the quarter hour (every real UTC offset is a multiple of it)
 
 _F8 = np.dtype("<f8")
 _I2 = np.dtype("<i2")
 _I4 = np.dtype("<i4")
-NAN_BLOCK = np.full(BLOCK, np.nan, dtype=_F8).tobytes()  # a quantity column with no value
-PRESENT_BLOCK = np.zeros(BLOCK, dtype=_I2).tobytes()  # a flags column of full, unflagged slots
+
+
+def nan_block(size: int = BLOCK) -> bytes:
+    """A quantity column with no value."""
+    return np.full(size, np.nan, dtype=_F8).tobytes()
+
+
+def present_block(size: int = BLOCK) -> bytes:
+    """A flags column of full, unflagged slots."""
+    return np.zeros(size, dtype=_I2).tobytes()
 
 BLOCK_COLUMNS = ("meter_id", "block_start", *QUANTITIES, "flags", "batch_id", "batch_ids")
 #: what a stored block is read back as (``from_rows``): the key's second half onwards
 STORED_COLUMNS = BLOCK_COLUMNS[1:]
 
 
-def block_seconds(interval_minutes: int) -> int:
-    return BLOCK * int(interval_minutes) * 60
+def block_seconds(interval_minutes: int, size: int = BLOCK) -> int:
+    return size * int(interval_minutes) * 60
 
 
-def block_of(start: np.ndarray, interval_minutes: int) -> np.ndarray:
+def block_of(start: np.ndarray, interval_minutes: int, size: int = BLOCK) -> np.ndarray:
     """The ``block_start`` of each interval start (UTC epoch seconds, on the interval's grid)."""
     step = int(interval_minutes) * 60
     start = np.asarray(start, dtype=np.int64)
     if np.any(start % min(step, GRID)):
         raise ValueError("interval starts must lie on the meter's interval grid")
     phase = start % step
-    return start - (start - phase) % (BLOCK * step)
+    return start - (start - phase) % (size * step)
 
 
 @dataclass(frozen=True, eq=False)
@@ -96,24 +109,29 @@ class Blocks:
     batch: np.ndarray
 
     @staticmethod
-    def empty(starts: np.ndarray) -> Blocks:
+    def empty(starts: np.ndarray, size: int = BLOCK) -> Blocks:
         nb = len(starts)
         return Blocks(np.asarray(starts, dtype=np.int64),
-                      {q: np.full((nb, BLOCK), np.nan, dtype=_F8) for q in QUANTITIES},
-                      np.full((nb, BLOCK), ABSENT, dtype=_I2), np.zeros((nb, BLOCK), dtype=_I4))
+                      {q: np.full((nb, size), np.nan, dtype=_F8) for q in QUANTITIES},
+                      np.full((nb, size), ABSENT, dtype=_I2), np.zeros((nb, size), dtype=_I4))
+
+    @property
+    def size(self) -> int:
+        """Intervals per block."""
+        return self.flags.shape[1]
 
     def take(self, which) -> Blocks:
         return Blocks(self.start[which], {q: v[which] for q, v in self.values.items()}, self.flags[which],
                       self.batch[which])
 
 
-def gather(iv: Intervals, interval_minutes: int) -> Blocks:
-    """The blocks holding the intervals of ``iv``. Vectorised over intervals."""
+def gather(iv: Intervals, interval_minutes: int, size: int = BLOCK) -> Blocks:
+    """The blocks (of ``size`` intervals) holding the intervals of ``iv``. Vectorised over intervals."""
     start = np.asarray(iv.start, dtype=np.int64)
-    block = block_of(start, interval_minutes)
+    block = block_of(start, interval_minutes, size)
     starts, which = np.unique(block, return_inverse=True)
     slot = (start - block) // (int(interval_minutes) * 60)
-    out = Blocks.empty(starts)
+    out = Blocks.empty(starts, size)
     for q in QUANTITIES:
         out.values[q][which, slot] = iv.values[q]
     out.flags[which, slot] = iv.flags
@@ -155,12 +173,12 @@ def rows(meter_id: int, b: Blocks) -> list[tuple]:
     return out
 
 
-def pack(meter_id: int, interval_minutes: int, iv: Intervals) -> list[tuple]:
-    """Rows of ``reading_block`` (in :data:`BLOCK_COLUMNS` order) holding ``iv``, one per block
-    that has an interval."""
+def pack(meter_id: int, interval_minutes: int, iv: Intervals, size: int = BLOCK) -> list[tuple]:
+    """Rows of ``reading_block`` (in :data:`BLOCK_COLUMNS` order) holding ``iv`` in blocks of
+    ``size`` intervals, one per block that has an interval."""
     if not len(iv.start):
         return []
-    return rows(meter_id, gather(iv, interval_minutes))
+    return rows(meter_id, gather(iv, interval_minutes, size))
 
 
 # PostgreSQL binary COPY: the fixed binary header, and the trailer (a field count of -1)
@@ -197,17 +215,17 @@ def copy_payload(meter_id: int, b: Blocks) -> list[bytes]:
         for c in nullable[:-1]:
             fields.append((f"l_{c}", ">i4"))
             if not is_null[c]:
-                fields.append((c, dtypes[c], (BLOCK,)))
+                fields.append((c, dtypes[c], (b.size,)))
         fields += [("l_batch", ">i4"), ("batch", ">i4"), ("l_batch_ids", ">i4")]
         if not is_null["batch_ids"]:
-            fields.append(("batch_ids", _I4, (BLOCK,)))
+            fields.append(("batch_ids", _I4, (b.size,)))
         st = b.start[sel]
         rec = np.empty(len(st), dtype=np.dtype(fields))
         rec["n"] = len(BLOCK_COLUMNS)
         rec["l_meter"], rec["meter"] = 4, meter_id
         rec["l_start"], rec["start"] = 8, st
         for c in nullable:
-            width = BLOCK * dtypes[c].itemsize
+            width = b.size * dtypes[c].itemsize
             rec[f"l_{c}"] = -1 if is_null[c] else width
             if not is_null[c]:
                 rec[c] = data[c][sel]
@@ -226,23 +244,24 @@ def _joined(col: Sequence[bytes | None], filler: bytes, dtype: np.dtype) -> np.n
     return np.frombuffer(b"".join(parts), dtype)
 
 
-def from_rows(stored: list[tuple]) -> Blocks:
-    """Blocks from ``reading_block`` rows (:data:`STORED_COLUMNS`: ``block_start``, the
-    quantities, ``flags``, ``batch_id``, ``batch_ids``), as the writer reads them."""
+def from_rows(stored: list[tuple], size: int = BLOCK) -> Blocks:
+    """Blocks (of ``size`` intervals) from ``reading_block`` rows (:data:`STORED_COLUMNS`:
+    ``block_start``, the quantities, ``flags``, ``batch_id``, ``batch_ids``), as the writer
+    reads them."""
     nb = len(stored)
     if not nb:
-        return Blocks.empty(np.empty(0, np.int64))
+        return Blocks.empty(np.empty(0, np.int64), size)
     cols = list(zip(*stored, strict=True))
     nq = len(QUANTITIES)
     starts = np.fromiter(cols[0], dtype=np.int64, count=nb)
     values = {}
     for i, q in enumerate(QUANTITIES):
-        a = _joined(cols[1 + i], NAN_BLOCK, _F8)
-        values[q] = np.full((nb, BLOCK), np.nan) if a is None else a.reshape(nb, BLOCK).copy()
-    f = _joined(cols[1 + nq], PRESENT_BLOCK, _I2)
-    flags = np.zeros((nb, BLOCK), _I2) if f is None else f.reshape(nb, BLOCK).copy()
+        a = _joined(cols[1 + i], nan_block(size), _F8)
+        values[q] = np.full((nb, size), np.nan) if a is None else a.reshape(nb, size).copy()
+    f = _joined(cols[1 + nq], present_block(size), _I2)
+    flags = np.zeros((nb, size), _I2) if f is None else f.reshape(nb, size).copy()
     per_block = np.fromiter(cols[2 + nq], dtype=np.int64, count=nb)
-    batch = np.repeat(per_block.astype(_I4), BLOCK).reshape(nb, BLOCK)
+    batch = np.repeat(per_block.astype(_I4), size).reshape(nb, size)
     if cols[3 + nq].count(None) < nb:
         for i, x in enumerate(cols[3 + nq]):
             if x is not None:
@@ -259,18 +278,19 @@ def decode(values: Sequence[Sequence[bytes | None]], flags: Sequence[bytes | Non
     nb = len(flags)
     out = {}
     for q, col in zip(QUANTITIES, values, strict=True):
-        a = _joined(col, NAN_BLOCK, _F8)
+        a = _joined(col, nan_block(), _F8)
         out[q] = a if a is not None else np.full(nb * BLOCK, np.nan)
-    return out, _joined(flags, PRESENT_BLOCK, _I2)
+    return out, _joined(flags, present_block(), _I2)
 
 
 def unpack(stored: list[tuple], interval_minutes: int, start_utc: int | None = None,
-           end_utc: int | None = None) -> Intervals:
+           end_utc: int | None = None, size: int = BLOCK) -> Intervals:
     """The intervals held by ``reading_block`` rows (:data:`STORED_COLUMNS`, sorted by
-    ``block_start``), limited to ``start_utc <= start < end_utc``, sorted by start."""
-    b = from_rows(stored)
+    ``block_start``, blocks of ``size`` intervals), limited to ``start_utc <= start < end_utc``,
+    sorted by start."""
+    b = from_rows(stored, size)
     step = int(interval_minutes) * 60
-    start = (b.start[:, None] + np.arange(BLOCK, dtype=np.int64) * step).ravel()
+    start = (b.start[:, None] + np.arange(size, dtype=np.int64) * step).ravel()
     keep = slots_kept(start, b.flags.ravel(), start_utc, end_utc)
     iv = Intervals(start, {q: v.ravel() for q, v in b.values.items()}, b.flags.ravel(), b.batch.ravel())
     return in_order(iv if keep is None else Intervals(

@@ -36,6 +36,9 @@ from auditor import APP_DIR_NAME, __version__
 from auditor.errors import StoreError
 
 SQLITE_BUSY_TIMEOUT_MS = 30_000
+#: The page size of a new SQLite file: a block of readings (up to 3.7 kB, ``store.blocks``)
+#: then fits in its page (SQLite's default of 4 KiB would put each row's tail on a page of its own).
+SQLITE_PAGE_SIZE = 16_384
 
 
 def default_db_url() -> str:
@@ -51,6 +54,7 @@ def _sqlite_pragmas(dbapi_conn, _record) -> None:
     # writer wait instead of failing; NORMAL sync is safe in WAL mode (a crash loses at most the
     # last transactions, never consistency).
     cur = dbapi_conn.cursor()
+    cur.execute(f"PRAGMA page_size={SQLITE_PAGE_SIZE}")  # takes effect in a new file only
     cur.execute("PRAGMA journal_mode=WAL")
     cur.execute(f"PRAGMA busy_timeout={SQLITE_BUSY_TIMEOUT_MS}")
     cur.execute("PRAGMA synchronous=NORMAL")
@@ -369,6 +373,37 @@ class Store:
             cfg.attributes["connection"] = conn
             command.upgrade(cfg, revision)
             self._check_foreign_keys(conn)
+        self._larger_pages()
+
+    def _larger_pages(self) -> bool:
+        """Rewrite an SQLite file made with smaller pages than :data:`SQLITE_PAGE_SIZE`
+        (``VACUUM``, outside the write-ahead log, which cannot change the page size), so that a
+        block of readings fits in its page. Only when no other connection holds the file: the
+        database works either way (rows spill to overflow pages), so a file in use is left as it
+        is until a later upgrade. True when the file was rewritten."""
+        import sqlite3
+
+        if not self.is_sqlite or self.url.endswith(":memory:"):
+            return False
+        self.engine.dispose()  # this process's pooled connections would hold the file
+        with self.engine.connect() as conn:
+            raw = conn.connection.driver_connection
+            if raw.execute("PRAGMA page_size").fetchone()[0] >= SQLITE_PAGE_SIZE:
+                return False
+            if raw.execute("SELECT count(*) FROM sqlite_master WHERE name = 'reading_block'").fetchone()[0] == 0:
+                return False
+            raw.execute("PRAGMA busy_timeout=0")  # another process in the file: give up at once
+            try:
+                if str(raw.execute("PRAGMA journal_mode=DELETE").fetchone()[0]).lower() != "delete":
+                    return False  # another connection keeps the log
+                raw.execute(f"PRAGMA page_size={SQLITE_PAGE_SIZE}")
+                raw.execute("VACUUM")
+                return True
+            except sqlite3.OperationalError:
+                return False
+            finally:
+                raw.execute(f"PRAGMA busy_timeout={SQLITE_BUSY_TIMEOUT_MS}")
+                raw.execute("PRAGMA journal_mode=WAL")  # waits, as every connection of the store does
 
     def downgrade(self, revision: str, *, allow_loss: bool = False, dry_run: bool = False,
                   backup: Callable[[], None] | None = None) -> list[LostData]:
@@ -504,6 +539,19 @@ _MOVED_TO = {"reading_block": "reading"}
 _READINGS = ("reading_block",)
 
 
+# Revisions whose blocks hold another number of intervals than the current layout's.
+_BLOCK_SIZE_AT = {"0010": 24}
+
+
+def _block_size_at(conn) -> int | None:
+    """Intervals per block at the stored revision (None: the current layout's)."""
+    try:
+        found = [r[0] for r in conn.exec_driver_sql("SELECT version_num FROM alembic_version").all()]
+    except DBAPIError:
+        return None
+    return _BLOCK_SIZE_AT.get(found[0]) if len(found) == 1 else None
+
+
 def _holdings(conn) -> dict[str, tuple[int, dict[str, int]]]:
     """Every table's row count and, per column, how many rows hold a value (one scan a table;
     the schema's bookkeeping table left out). A column that is dropped while it holds no value
@@ -521,7 +569,7 @@ def _holdings(conn) -> dict[str, tuple[int, dict[str, int]]]:
         if t in _READINGS and rows:
             from auditor.store.meter_data import spans
 
-            rows = sum(v[3] for v in spans(conn).values())
+            rows = sum(v[3] for v in spans(conn, size=_block_size_at(conn)).values())
         out[t] = (rows, {c: int(n) for c, n in zip(cols, counts[1:], strict=True)})
     return out
 

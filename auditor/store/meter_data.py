@@ -44,14 +44,17 @@ def record_write(conn: Connection, meter_id: int, batch_id: int, *, inserted: in
             (int(meter_id), int(batch_id), int(first_start), int(last_start), int(inserted)))
 
 
-def spans(conn: Connection, meter_ids: Iterable[int] | None = None) -> dict[int, tuple[int, int, int, int]]:
+def spans(conn: Connection, meter_ids: Iterable[int] | None = None,
+          size: int | None = None) -> dict[int, tuple[int, int, int, int]]:
     """``{meter_id: (newest batch, first start, last start, intervals)}`` computed from the stored
-    blocks (all meters, or the given ones): one aggregate per meter, and the flags of the blocks
-    that have empty slots (only those can hold fewer than a block's intervals or start late)."""
+    blocks (all meters, or the given ones; blocks of ``size`` intervals, default the current
+    layout's): one aggregate per meter, and the flags of the blocks that have empty slots (only
+    those can hold fewer than a block's intervals or start late)."""
     import numpy as np
 
     from auditor.store.blocks import ABSENT, BLOCK
 
+    per_block = size or BLOCK
     m = _mark(conn)
     ids = None if meter_ids is None else sorted({int(x) for x in meter_ids})
     if ids is not None and not ids:
@@ -66,14 +69,14 @@ def spans(conn: Connection, meter_ids: Iterable[int] | None = None) -> dict[int,
     out = {}
     for mid, newest, lo, hi, n, minutes in agg:
         step = 60 * int(minutes)
-        out[int(mid)] = [int(newest), int(lo), int(hi) + (BLOCK - 1) * step, BLOCK * int(n), step, int(lo), int(hi)]
+        out[int(mid)] = [int(newest), int(lo), int(hi) + (per_block - 1) * step, per_block * int(n), step, int(lo), int(hi)]
     partial = conn.exec_driver_sql(
         f"SELECT b.meter_id, b.block_start, b.flags FROM reading_block b{where}"
         f"{' AND' if where else ' WHERE'} b.flags IS NOT NULL", params)
     for mid, bs, fl in partial:
         present = np.flatnonzero(np.frombuffer(fl, "<i2") != ABSENT)
         o = out[int(mid)]
-        o[3] -= BLOCK - len(present)
+        o[3] -= per_block - len(present)
         if len(present) and int(bs) == o[5]:
             o[1] = int(bs) + int(present[0]) * o[4]
         if len(present) and int(bs) == o[6]:

