@@ -31,10 +31,10 @@ from auditor.quantities import (
     energy_pf,
     expected_intervals,
     local_bounds_utc,
+    local_iso_times,
     peak_figures,
     ratio_figures,
     reactive_period_figures,
-    segment_argmax,
     segment_bounds,
     segment_sum,
 )
@@ -242,7 +242,7 @@ class PreparedAudit:
             history_demand=self.history_demand,
             intervals=intervals,
         )
-        return q, {"kva": r.kva, "pf_at_peak_sense": r.pf_at_peak_sense}
+        return q, {"peak_kva_pos": r.peak_kva_pos, "pf_at_peak_sense": r.pf_at_peak_sense}
 
     def run_charges(self, kvarh_lag=None, kvarh_lead=None) -> Charges:
         """Charges only (arrays per period), the fastest path for an optimiser."""
@@ -253,47 +253,36 @@ class PreparedAudit:
         """Figures and charges, optionally with replaced per-interval reactive energies."""
         q, extra = self.quantities(kvarh_lag, kvarh_lead)
         ch = compute_charges(self.tariff, q)
-        n = len(self.periods)
         ratios = ratio_figures(q.kwh, q.kvarh_lag, self.peak_kw, self.intervals, self.expected,
                                self.interval_minutes)
-        pf, tan_phi = ratios["pf"], ratios["tan_phi"]
-        load_factor, coverage = ratios["load_factor"], ratios["coverage"]
-        kva_pos = segment_argmax(extra["kva"], self.bounds) if self.kw.size else np.full(n, -1)
+        pf = ratios["pf"]
         warnings = list(self.warnings)
         for k in np.flatnonzero(~np.isfinite(pf) & (self.intervals > 0)):
             warnings.append(f"{self.periods[k].label}: no load, so no power factor; PF clauses charge nothing")
         keys = self.tariff.charge_keys
-        results = []
-        for k, p in enumerate(self.periods):
-            results.append(
-                PeriodResult(
-                    start=p.start,
-                    end=p.end,
-                    kwh=float(q.kwh[k]),
-                    kvarh_lag=float(q.kvarh_lag[k]),
-                    kvarh_lead=float(q.kvarh_lead[k]),
-                    pf=float(pf[k]),
-                    tan_phi=float(tan_phi[k]),
-                    peak_kw=float(self.peak_kw[k]),
-                    peak_kw_at=self.peak_kw_at[k],
-                    peak_kva=float(q.peak_kva[k]),
-                    peak_kva_at=self._local_index[kva_pos[k]].isoformat() if kva_pos[k] >= 0 else None,
-                    peak_kvar=float(q.peak_kvar[k]),
-                    pf_at_peak=float(q.pf_at_peak[k]),
-                    pf_at_peak_sense=str(extra["pf_at_peak_sense"][k]),
-                    load_factor=float(load_factor[k]),
-                    coverage=float(coverage[k]),
-                    intervals=int(self.intervals[k]),
-                    expected_intervals=int(self.expected[k]),
-                    estimated_intervals=int(self.estimated[k]),
-                    partial=bool(self.partial[k]),
-                    billing_pf=float(ch.billing_pf[k]),
-                    billing_demand=float(ch.billing_demand[k]),
-                    charges={key: float(ch.amounts[key][k]) for key in keys},
-                    reactive_total=float(ch.reactive_total[k]),
-                    total=float(ch.total[k]),
-                )
-            )
+        # every per-period array as a list of Python numbers at once (tolist converts in C)
+        figures = {
+            "kwh": q.kwh, "kvarh_lag": q.kvarh_lag, "kvarh_lead": q.kvarh_lead, "pf": pf,
+            "tan_phi": ratios["tan_phi"], "peak_kw": self.peak_kw, "peak_kva": q.peak_kva,
+            "peak_kvar": q.peak_kvar, "pf_at_peak": q.pf_at_peak, "load_factor": ratios["load_factor"],
+            "coverage": ratios["coverage"], "billing_pf": ch.billing_pf, "billing_demand": ch.billing_demand,
+            "reactive_total": ch.reactive_total, "total": ch.total,
+        }
+        columns = {name: np.asarray(a, dtype=float).tolist() for name, a in figures.items()}
+        counts = {"intervals": self.intervals, "expected_intervals": self.expected,
+                  "estimated_intervals": self.estimated}
+        columns.update({name: np.asarray(a, dtype=np.int64).tolist() for name, a in counts.items()})
+        columns["partial"] = np.asarray(self.partial, dtype=bool).tolist()
+        columns["pf_at_peak_sense"] = [str(x) for x in extra["pf_at_peak_sense"].tolist()]
+        columns["peak_kw_at"] = self.peak_kw_at
+        columns["peak_kva_at"] = local_iso_times(self._local_index, extra["peak_kva_pos"])
+        amounts = {key: np.asarray(ch.amounts[key], dtype=float).tolist() for key in keys}
+        names = list(columns)
+        results = [
+            PeriodResult(start=p.start, end=p.end, charges={key: amounts[key][k] for key in keys},
+                         **{name: columns[name][k] for name in names})
+            for k, p in enumerate(self.periods)
+        ]
         kwh_all = float(q.kwh.sum())
         lag_all = float(q.kvarh_lag.sum())
         totals = {
@@ -561,7 +550,7 @@ def _active_figures(sel: _Selected, ps: list[BillingPeriod], tz: str, interval_m
         expected=expected_intervals(ps, tz, interval_minutes),
         estimated=segment_sum(sel.estimated.astype(float), sel.bounds).astype(np.int64),
         period_kwh=period_kwh, peak_kw=peak_kw, peak_kw_pos=peak_kw_pos,
-        peak_kw_at=[sel.local_index[i].isoformat() if i >= 0 else None for i in peak_kw_pos],
+        peak_kw_at=local_iso_times(sel.local_index, peak_kw_pos),
     )
 
 
