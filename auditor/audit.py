@@ -37,6 +37,7 @@ from auditor.quantities import (
     reactive_period_figures,
     segment_bounds,
     segment_sum,
+    ticks_per_second,
 )
 from auditor.tariffs.engine import (
     Charges,
@@ -305,7 +306,8 @@ class PreparedAudit:
         )
 
 
-def _check_frame(frame: pd.DataFrame) -> pd.DataFrame:
+def _check_frame(frame: pd.DataFrame) -> tuple[pd.DataFrame, dict[str, np.ndarray]]:
+    """The frame, time-sorted, and its required columns as float arrays (read once here)."""
     if not isinstance(frame, pd.DataFrame):
         raise UsageError("the interval data must be a DataFrame (the interval frame of DEVELOPERS.md)")
     missing = [c for c in REQUIRED_COLUMNS if c not in frame.columns]
@@ -313,16 +315,28 @@ def _check_frame(frame: pd.DataFrame) -> pd.DataFrame:
         raise UsageError(f"the interval frame lacks column(s) {', '.join(missing)}")
     if not isinstance(frame.index, pd.DatetimeIndex) or frame.index.tz is None:
         raise UsageError("the interval frame needs a timezone-aware (UTC) DatetimeIndex of interval starts")
-    if not frame.index.is_monotonic_increasing:
-        frame = frame.sort_index()
-    if frame.index.has_duplicates:
-        dup = frame.index[frame.index.duplicated()][0]
-        raise UsageError(f"the interval frame has duplicate interval starts (first: {dup.isoformat()})")
+    if not _strictly_increasing(frame.index):  # else sorted without duplicates: nothing to look at
+        if not frame.index.is_monotonic_increasing:
+            frame = frame.sort_index()
+        if frame.index.has_duplicates:
+            dup = frame.index[frame.index.duplicated()][0]
+            raise UsageError(f"the interval frame has duplicate interval starts (first: {dup.isoformat()})")
+    columns = {}
     for c in REQUIRED_COLUMNS:
         v = frame[c].to_numpy(dtype=float)
-        if v.size and not (np.nanmin(v) >= 0 and np.isfinite(v).all()):
+        # NaN fails both comparisons, -inf the first, +inf the second
+        if v.size and not (v.min() >= 0 and v.max() < np.inf):
             raise UsageError(f"column {c} must hold finite values of at least 0")
-    return frame
+        columns[c] = v
+    return frame, columns
+
+
+def _strictly_increasing(index: pd.DatetimeIndex) -> bool:
+    """Every start after the one before (sorted, no duplicates), from the integer ticks: one pass
+    instead of pandas' two (order, then a hash table for duplicates). NaT, the smallest tick,
+    can only come first: that index takes pandas' own checks."""
+    ticks = index.asi8
+    return ticks.size < 2 or (ticks[0] != np.iinfo(np.int64).min and bool((ticks[1:] > ticks[:-1]).all()))
 
 
 def prepare_audit(
@@ -367,9 +381,9 @@ def prepare_audit(
     ----------
     .. [1] IEEE Std 1459-2010, section 3.1.1 (P, Q, S, PF).
     """
-    frame = _check_inputs(frame, tariff, interval_minutes, start, end)
+    frame, columns = _check_inputs(frame, tariff, interval_minutes, start, end)
     ps, clipped = _choose_periods(frame, tz, interval_minutes, periods, billing_day, start, end)
-    sel = _select_intervals(frame, ps, tz, interval_minutes)
+    sel = _select_intervals(frame, columns, ps, tz, interval_minutes)
     active = _active_figures(sel, ps, tz, interval_minutes)
     windows = _tariff_windows(tariff, sel, tz, interval_minutes)
     partial, warnings = _coverage_and_warnings(frame, ps, clipped, tz, interval_minutes, active,
@@ -411,15 +425,16 @@ def prepare_audit(
 # the steps of prepare_audit
 # --------------------------------------------------------------------------------------------
 def _check_inputs(frame: pd.DataFrame, tariff: Tariff, interval_minutes: int, start: date | None,
-                  end: date | None) -> pd.DataFrame:
-    """Step 1: the interval length, the tariff, the frame (sorted) and the range."""
+                  end: date | None) -> tuple[pd.DataFrame, dict[str, np.ndarray]]:
+    """Step 1: the interval length, the tariff, the frame (sorted, with its required columns as
+    arrays) and the range."""
     check_interval_minutes(interval_minutes)
     if not isinstance(tariff, Tariff):
         raise UsageError("tariff must be a Tariff (load it with auditor.tariffs.load_tariff)")
-    frame = _check_frame(frame)
+    frame, columns = _check_frame(frame)
     if start is not None and end is not None and end <= start:
         raise UsageError(f"end {end.isoformat()} must be after start {start.isoformat()}")
-    return frame
+    return frame, columns
 
 
 def _choose_periods(frame: pd.DataFrame, tz: str, interval_minutes: int,
@@ -475,7 +490,7 @@ def _regular_index_key(index: pd.DatetimeIndex, interval_minutes: int) -> tuple 
     n = len(index)
     if n < 2:
         return None
-    per_second = {"s": 1, "ms": 10**3, "us": 10**6, "ns": 10**9}[index.unit]  # no converted copy of the index
+    per_second = ticks_per_second(index)  # no converted copy of the index
     ticks = index.asi8
     first, last = int(ticks[0]), int(ticks[-1])
     if last - first != (n - 1) * interval_minutes * 60 * per_second or first % per_second:
@@ -506,9 +521,10 @@ def _shared_value(key: tuple | None, make):
     return value
 
 
-def _select_intervals(frame: pd.DataFrame, ps: list[BillingPeriod], tz: str, interval_minutes: int) -> _Selected:
+def _select_intervals(frame: pd.DataFrame, columns: dict[str, np.ndarray], ps: list[BillingPeriod], tz: str,
+                      interval_minutes: int) -> _Selected:
     """Step 3: the intervals of the periods and their boundaries (period k is
-    ``[bounds[k], bounds[k+1])``)."""
+    ``[bounds[k], bounds[k+1])``); ``columns`` are the frame's required columns as arrays."""
     regular = _regular_index_key(frame.index, interval_minutes)
 
     def positions():
@@ -518,14 +534,18 @@ def _select_intervals(frame: pd.DataFrame, ps: list[BillingPeriod], tz: str, int
 
     sel, bounds, index, local_index = _shared_value(
         None if regular is None else ("select", regular, tz, tuple(ps)), positions)
-    f = frame if sel.all() else frame[sel]  # usually every interval is in some period: no copy
-    kwh = f["kwh"].to_numpy(dtype=float)
-    est = f["estimated"].to_numpy(dtype=bool) if "estimated" in f.columns else np.zeros(len(f), dtype=bool)
+    every = bool(sel.all())  # usually every interval is in some period: no copy
+
+    def selected(values: np.ndarray) -> np.ndarray:
+        return values if every else values[sel]
+
+    kwh = selected(columns["kwh"])
+    est = (selected(frame["estimated"].to_numpy(dtype=bool)) if "estimated" in frame.columns
+           else np.zeros(len(kwh), dtype=bool))
     return _Selected(bounds=bounds, index=index, local_index=local_index, kwh=kwh,
                      kw=demand_from_energy(kwh, interval_minutes),
-                     kvarh_lag=f["kvarh_lag"].to_numpy(dtype=float),
-                     kvarh_lead=f["kvarh_lead"].to_numpy(dtype=float), estimated=est,
-                     shared_key=None if regular is None else (regular, tz, tuple(ps)))
+                     kvarh_lag=selected(columns["kvarh_lag"]), kvarh_lead=selected(columns["kvarh_lead"]),
+                     estimated=est, shared_key=None if regular is None else (regular, tz, tuple(ps)))
 
 
 @dataclass(frozen=True, eq=False)
@@ -548,7 +568,8 @@ def _active_figures(sel: _Selected, ps: list[BillingPeriod], tz: str, interval_m
     return _Active(
         intervals=np.diff(sel.bounds),
         expected=expected_intervals(ps, tz, interval_minutes),
-        estimated=segment_sum(sel.estimated.astype(float), sel.bounds).astype(np.int64),
+        estimated=(segment_sum(sel.estimated.astype(float), sel.bounds).astype(np.int64) if sel.estimated.any()
+                   else np.zeros(len(ps), dtype=np.int64)),
         period_kwh=period_kwh, peak_kw=peak_kw, peak_kw_pos=peak_kw_pos,
         peak_kw_at=local_iso_times(sel.local_index, peak_kw_pos),
     )
@@ -581,17 +602,17 @@ def _tariff_windows(tariff: Tariff, sel: _Selected, tz: str, interval_minutes: i
                 masks.append(mask.astype(float))
             else:
                 rows.append(None)
-        return (tariff, energy_window_index(tariff.energy, cal), np.repeat(np.arange(n), np.diff(sel.bounds)),
-                np.vstack(masks) if masks else np.zeros((0, len(sel.index))), tuple(rows), cal)
+        # bin of each interval in the kWh per (energy window, period): window × periods + period
+        bins = energy_window_index(tariff.energy, cal) * n + np.repeat(np.arange(n), np.diff(sel.bounds))
+        return (tariff, bins, np.vstack(masks) if masks else np.zeros((0, len(sel.index))), tuple(rows), cal)
 
     key = None if sel.shared_key is None else ("windows", sel.shared_key, id(tariff))
     parts = _shared_value(key, calendar_parts)
     if parts[0] is not tariff:  # another tariff object took the same id: compute afresh
         parts = calendar_parts()
-    _, e_idx, period_of, window_masks, rows, cal = parts
-    # kWh per (energy window, period) in one pass: bin = window × periods + period
-    energy_kwh = np.bincount(e_idx * n + period_of, weights=sel.kwh,
-                             minlength=(len(tariff.energy.windows) + 1) * n).reshape(-1, n)
+    _, bins, window_masks, rows, cal = parts
+    # kWh per (energy window, period) in one pass
+    energy_kwh = np.bincount(bins, weights=sel.kwh, minlength=(len(tariff.energy.windows) + 1) * n).reshape(-1, n)
     masks = window_masks.shape[0]
     window_kwh = segment_sum(window_masks * sel.kwh, sel.bounds) if masks else np.zeros((0, n))
     plan = plan_intervals(tariff, cal, sel.bounds, interval_minutes, sel.kwh)
@@ -609,9 +630,10 @@ def _coverage_and_warnings(frame: pd.DataFrame, ps: list[BillingPeriod], clipped
     partial = np.array(clipped, dtype=bool)
     warnings: list[str] = []
     if not frame.empty:
-        data_first, data_end = frame.index[0], frame.index[-1] + step
-        beyond = (p_start < data_first) | (p_end > data_end)
-        partial |= np.asarray(beyond)
+        # compared as integer nanoseconds (the index and the bounds may differ in unit)
+        data_first, data_last = frame.index[[0, -1]].as_unit("ns").asi8.tolist()
+        data_end = data_last + interval_minutes * 60 * 10**9
+        partial |= (p_start.as_unit("ns").asi8 < data_first) | (p_end.as_unit("ns").asi8 > data_end)
     for k, p in enumerate(ps):
         label = p.label
         if intervals[k] == 0:

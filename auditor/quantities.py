@@ -51,6 +51,7 @@ __all__ = [
     "segment_argmax",
     "segment_max",
     "segment_sum",
+    "ticks_per_second",
 ]
 
 
@@ -292,17 +293,23 @@ def billing_periods(
     last = _to_local_date(last_utc, tz)
     if last < first:
         raise UsageError("the last interval is before the first")
-    start = _cycle_start(first, int(billing_day))
+    return list(_cycles(first, last, int(billing_day)))
+
+
+@functools.lru_cache(maxsize=256)
+def _cycles(first: date, last: date, billing_day: int) -> tuple[BillingPeriod, ...]:
+    # cached: the meters of a batch cover the same dates (billing periods are frozen)
+    start = _cycle_start(first, billing_day)
     out: list[BillingPeriod] = []
     k = 0
     # One iteration per billing cycle (a dozen a year), not per interval.
     while True:
-        s = _add_months(start, k, int(billing_day))
+        s = _add_months(start, k, billing_day)
         if s > last:
             break
-        out.append(BillingPeriod(s, _add_months(start, k + 1, int(billing_day))))
+        out.append(BillingPeriod(s, _add_months(start, k + 1, billing_day)))
         k += 1
-    return out
+    return tuple(out)
 
 
 def check_periods(periods: Sequence[BillingPeriod]) -> list[BillingPeriod]:
@@ -371,6 +378,11 @@ def _expected_intervals(periods: tuple[BillingPeriod, ...], tz: str, interval_mi
     expected = np.floor(seconds / (interval_minutes * 60) + 1e-9).astype(np.int64)
     expected.flags.writeable = False
     return expected
+
+
+def ticks_per_second(index: pd.DatetimeIndex) -> int:
+    """Ticks of ``index.asi8`` in a second (pandas holds datetimes in s, ms, us or ns)."""
+    return {"s": 1, "ms": 10**3, "us": 10**6, "ns": 10**9}[index.unit]
 
 
 def local_iso_times(local_index: pd.DatetimeIndex, positions) -> list[str | None]:
