@@ -30,6 +30,7 @@ from auditor.quantities import (
     demand_from_energy,
     energy_pf,
     expected_intervals,
+    local_bounds_ns,
     local_bounds_utc,
     local_iso_times,
     peak_figures,
@@ -631,9 +632,10 @@ def _coverage_and_warnings(frame: pd.DataFrame, ps: list[BillingPeriod], clipped
     warnings: list[str] = []
     if not frame.empty:
         # compared as integer nanoseconds (the index and the bounds may differ in unit)
-        data_first, data_last = frame.index[[0, -1]].as_unit("ns").asi8.tolist()
-        data_end = data_last + interval_minutes * 60 * 10**9
-        partial |= (p_start.as_unit("ns").asi8 < data_first) | (p_end.as_unit("ns").asi8 > data_end)
+        ticks, to_ns = frame.index.asi8, 10**9 // ticks_per_second(frame.index)
+        data_first, data_end = int(ticks[0]) * to_ns, int(ticks[-1]) * to_ns + interval_minutes * 60 * 10**9
+        partial |= (local_bounds_ns([p.start for p in ps], tz) < data_first) | \
+            (local_bounds_ns([p.end for p in ps], tz) > data_end)
     for k, p in enumerate(ps):
         label = p.label
         if intervals[k] == 0:

@@ -19,7 +19,8 @@ import calendar
 import functools
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from datetime import date
+from datetime import UTC, date, datetime, timedelta, timezone
+from zoneinfo import ZoneInfo
 
 import numpy as np
 import pandas as pd
@@ -38,6 +39,7 @@ __all__ = [
     "energy_pf",
     "expected_intervals",
     "interval_power",
+    "local_bounds_ns",
     "local_bounds_utc",
     "local_iso_times",
     "period_figures",
@@ -353,6 +355,18 @@ def local_bounds_utc(dates: Sequence[date], tz: str) -> pd.DatetimeIndex:
     return _local_bounds_utc(tuple(dates), tz)
 
 
+def local_bounds_ns(dates: Sequence[date], tz: str) -> np.ndarray:
+    """:func:`local_bounds_utc` as integer nanoseconds since 1970-01-01 UTC (read-only)."""
+    return _local_bounds_ns(tuple(dates), tz)
+
+
+@functools.lru_cache(maxsize=256)
+def _local_bounds_ns(dates: tuple[date, ...], tz: str) -> np.ndarray:
+    ns = _local_bounds_utc(dates, tz).as_unit("ns").asi8.copy()
+    ns.flags.writeable = False
+    return ns
+
+
 @functools.lru_cache(maxsize=256)
 def _local_bounds_utc(dates: tuple[date, ...], tz: str) -> pd.DatetimeIndex:
     # cached: every meter audited over the same billing periods asks for the same instants
@@ -387,18 +401,27 @@ def ticks_per_second(index: pd.DatetimeIndex) -> int:
 
 def local_iso_times(local_index: pd.DatetimeIndex, positions) -> list[str | None]:
     """ISO 8601 texts of the local interval starts at ``positions`` (None where a position is
-    -1), as :meth:`pandas.Timestamp.isoformat` writes them. The intervals are picked in one go
-    and converted to ``datetime`` together: boxing one Timestamp at a time costs ten times more.
+    -1), as :meth:`pandas.Timestamp.isoformat` writes them.
+
+    With the site's zone as a ``zoneinfo`` (or fixed-offset) zone, which is what pandas makes
+    of a zone's name, each start goes from its integer ticks to a ``datetime`` in that zone
+    directly: boxing a Timestamp costs ten times more. Other zones and starts between
+    microseconds take the Timestamp.
     """
     positions = np.asarray(positions, dtype=np.int64)
     found = positions >= 0
-    picked = local_index[positions[found]]
-    if picked.unit == "ns" and (picked.asi8 % 1000).any():  # nanoseconds: datetime has none
-        texts = [t.isoformat() for t in picked]
+    tz, per_second = local_index.tz, ticks_per_second(local_index)
+    ticks = local_index.asi8[positions[found]]  # UTC
+    if isinstance(tz, ZoneInfo | timezone) and (per_second <= 10**6 or not (ticks % 1000).any()):
+        micros = (ticks * (10**6 // per_second) if per_second <= 10**6 else ticks // 1000).tolist()
+        texts = [(_EPOCH + timedelta(microseconds=m)).astimezone(tz).isoformat() for m in micros]
     else:
-        texts = [t.isoformat() for t in picked.to_pydatetime()]
+        texts = [t.isoformat() for t in local_index[positions[found]]]
     it = iter(texts)
     return [next(it) if f else None for f in found.tolist()]
+
+
+_EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
 
 
 # --------------------------------------------------------------------------------------------
@@ -415,8 +438,8 @@ def segment_bounds(index_utc: pd.DatetimeIndex, periods: Sequence[BillingPeriod]
         In the *selected* array, period ``k`` is ``[bounds[k], bounds[k+1])``.
     """
     # Compare in one unit: pandas may hold the index and the bounds at different resolutions.
-    starts = local_bounds_utc([p.start for p in periods], tz).as_unit("ns").asi8
-    ends = local_bounds_utc([p.end for p in periods], tz).as_unit("ns").asi8
+    starts = local_bounds_ns([p.start for p in periods], tz)
+    ends = local_bounds_ns([p.end for p in periods], tz)
     t = pd.DatetimeIndex(index_utc).tz_convert("UTC").as_unit("ns").asi8
     pos = np.searchsorted(starts, t, side="right") - 1
     ok = pos >= 0
@@ -451,7 +474,11 @@ def segment_max(values, bounds) -> np.ndarray:
 def segment_argmax(values, bounds) -> np.ndarray:
     """Position of the first maximum of each period (-1 for an empty period)."""
     values = np.asarray(values, dtype=float)
-    peaks = segment_max(values, bounds)
+    return _first_at(values, segment_max(values, bounds), bounds)
+
+
+def _first_at(values: np.ndarray, peaks: np.ndarray, bounds: np.ndarray) -> np.ndarray:
+    """Position of the first interval of each period whose value equals the period's ``peaks``."""
     hits = np.flatnonzero(values[: bounds[-1]] == np.repeat(peaks, np.diff(bounds)))
     return _first_in_segments(hits, bounds)
 
@@ -490,10 +517,11 @@ def _peak_hypot(p: np.ndarray, q: np.ndarray, bounds: np.ndarray) -> tuple[np.nd
     near = np.flatnonzero(~(squares < np.repeat(floor, np.diff(bounds))))  # NaN squares stay
     near_bounds = np.searchsorted(near, bounds, side="left").astype(np.int64)
     h = np.hypot(p[near], q[near])
-    pos = segment_argmax(h, near_bounds)
+    peaks = segment_max(h, near_bounds)
+    pos = _first_at(h, peaks, near_bounds)
     found = pos >= 0
     pos[found] = near[pos[found]]
-    return segment_max(h, near_bounds), pos
+    return peaks, pos
 
 
 # --------------------------------------------------------------------------------------------
@@ -504,7 +532,7 @@ def peak_figures(kwh: np.ndarray, kw: np.ndarray, bounds: np.ndarray) -> tuple[n
     n = len(bounds) - 1
     period_kwh = segment_sum(kwh, bounds)
     peak_kw = segment_max(kw, bounds)
-    peak_kw_pos = segment_argmax(kw, bounds) if kw.size else np.full(n, -1, dtype=np.int64)
+    peak_kw_pos = _first_at(kw, peak_kw, bounds) if kw.size else np.full(n, -1, dtype=np.int64)
     return period_kwh, peak_kw, peak_kw_pos
 
 
@@ -575,7 +603,7 @@ def ratio_figures(kwh: np.ndarray, kvarh_lag: np.ndarray, peak_kw: np.ndarray, i
     return {
         "pf": energy_pf(kwh, kvarh_lag),
         "tan_phi": np.divide(kvarh_lag, kwh, out=np.full(n, np.nan), where=kwh > 0),
-        "load_factor": np.divide(kwh, denom, out=np.full(n, np.nan), where=np.nan_to_num(denom) > 0),
+        "load_factor": np.divide(kwh, denom, out=np.full(n, np.nan), where=denom > 0),  # NaN > 0 is False
         "coverage": np.divide(intervals, expected, out=np.full(n, np.nan), where=expected > 0),
     }
 
