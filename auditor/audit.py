@@ -10,6 +10,7 @@ figures themselves come from :mod:`auditor.quantities` (one copy, shared with
 """
 from __future__ import annotations
 
+import functools
 import math
 import threading
 from collections import OrderedDict
@@ -186,8 +187,6 @@ class PreparedAudit:
     index: pd.DatetimeIndex
     kwh: np.ndarray
     kw: np.ndarray
-    kvar_lag: np.ndarray
-    kvar_lead: np.ndarray
     kvarh_lag: np.ndarray
     kvarh_lead: np.ndarray
     bounds: np.ndarray
@@ -207,6 +206,17 @@ class PreparedAudit:
     warnings: tuple[str, ...]
     _local_index: pd.DatetimeIndex = field(repr=False, default=None)
     interval_plan: IntervalPlan | None = field(repr=False, default=None)  # per-band / per-interval clauses
+
+    @functools.cached_property
+    def kvar_lag(self) -> np.ndarray:
+        """Lagging kvar per interval, worked out on first use (a correction needs it; an audit
+        does not)."""
+        return demand_from_energy(self.kvarh_lag, self.interval_minutes)
+
+    @functools.cached_property
+    def kvar_lead(self) -> np.ndarray:
+        """Leading kvar per interval, worked out on first use."""
+        return demand_from_energy(self.kvarh_lead, self.interval_minutes)
 
     # ---------------------------------------------------------------------------------------
     def _check(self, values, name: str) -> np.ndarray:
@@ -398,8 +408,6 @@ def prepare_audit(
         index=sel.index,
         kwh=sel.kwh,
         kw=sel.kw,
-        kvar_lag=demand_from_energy(sel.kvarh_lag, interval_minutes),
-        kvar_lead=demand_from_energy(sel.kvarh_lead, interval_minutes),
         kvarh_lag=sel.kvarh_lag,
         kvarh_lead=sel.kvarh_lead,
         bounds=sel.bounds,
