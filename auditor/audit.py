@@ -634,8 +634,6 @@ def _coverage_and_warnings(frame: pd.DataFrame, ps: list[BillingPeriod], clipped
     warning for every partial, gappy or estimated period — never silent."""
     step = pd.Timedelta(minutes=interval_minutes)
     intervals, expected, estimated = active.intervals, active.expected, active.estimated
-    p_start = local_bounds_utc([p.start for p in ps], tz)
-    p_end = local_bounds_utc([p.end for p in ps], tz)
     partial = np.array(clipped, dtype=bool)
     warnings: list[str] = []
     if not frame.empty:
@@ -644,7 +642,10 @@ def _coverage_and_warnings(frame: pd.DataFrame, ps: list[BillingPeriod], clipped
         data_first, data_end = int(ticks[0]) * to_ns, int(ticks[-1]) * to_ns + interval_minutes * 60 * 10**9
         partial |= (local_bounds_ns([p.start for p in ps], tz) < data_first) | \
             (local_bounds_ns([p.end for p in ps], tz) > data_end)
-    for k, p in enumerate(ps):
+    # only the periods with something to say are looked at one by one (usually the first and last)
+    quiet = (intervals > 0) & ~partial & (intervals >= expected) & (estimated == 0)
+    for k in np.flatnonzero(~quiet).tolist():
+        p = ps[k]
         label = p.label
         if intervals[k] == 0:
             warnings.append(f"{label}: no interval data; only fixed charges (and any demand ratchet) are billed")
@@ -652,8 +653,8 @@ def _coverage_and_warnings(frame: pd.DataFrame, ps: list[BillingPeriod], clipped
         if clipped[k]:
             warnings.append(f"{label}: partial billing period (the billing cycle is cut by the audited range)")
         elif partial[k]:
-            a = max(p_start[k], frame.index[0]).tz_convert(tz)
-            b = min(p_end[k], frame.index[-1] + step).tz_convert(tz)
+            a = max(local_bounds_utc([p.start], tz)[0], frame.index[0]).tz_convert(tz)
+            b = min(local_bounds_utc([p.end], tz)[0], frame.index[-1] + step).tz_convert(tz)
             warnings.append(
                 f"{label}: partial period: data cover {a.isoformat()} to {b.isoformat()} only"
             )
