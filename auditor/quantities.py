@@ -508,11 +508,11 @@ def _peak_hypot(p: np.ndarray, q: np.ndarray, bounds: np.ndarray) -> tuple[np.nd
     bounds = np.asarray(bounds, dtype=np.int64)
     n = int(bounds[-1])
     p, q = p[:n], q[:n]
-    squares = p * p
-    squares += q * q
+    with np.errstate(over="ignore", under="ignore"):  # such periods keep every interval (below)
+        squares = p * p
+        squares += q * q
     top = segment_max(squares, bounds)
-    with np.errstate(invalid="ignore"):
-        normal = (top >= 1e-280) & (top < np.inf)
+    normal = (top >= 1e-280) & (top < np.inf)
     floor = np.where(normal, top * (1.0 - 1e-9), -np.inf)
     near = np.flatnonzero(~(squares < np.repeat(floor, np.diff(bounds))))  # NaN squares stay
     near_bounds = np.searchsorted(near, bounds, side="left").astype(np.int64)
