@@ -288,12 +288,13 @@ class PreparedAudit:
         columns["pf_at_peak_sense"] = [str(x) for x in extra["pf_at_peak_sense"].tolist()]
         columns["peak_kw_at"] = self.peak_kw_at
         columns["peak_kva_at"] = local_iso_times(self._local_index, extra["peak_kva_pos"])
-        amounts = {key: np.asarray(ch.amounts[key], dtype=float).tolist() for key in keys}
+        amounts = [np.asarray(ch.amounts[key], dtype=float).tolist() for key in keys]
+        charges = [dict(zip(keys, row, strict=True)) for row in zip(*amounts, strict=True)] if keys \
+            else [{} for _ in self.periods]
         names = list(columns)
         results = [
-            PeriodResult(start=p.start, end=p.end, charges={key: amounts[key][k] for key in keys},
-                         **{name: columns[name][k] for name in names})
-            for k, p in enumerate(self.periods)
+            PeriodResult(start=p.start, end=p.end, charges=c, **dict(zip(names, row, strict=True)))
+            for p, c, row in zip(self.periods, charges, zip(*columns.values(), strict=True), strict=True)
         ]
         kwh_all = float(q.kwh.sum())
         lag_all = float(q.kvarh_lag.sum())

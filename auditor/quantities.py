@@ -451,9 +451,10 @@ def segment_bounds(index_utc: pd.DatetimeIndex, periods: Sequence[BillingPeriod]
 def _reduce(ufunc, values: np.ndarray, bounds: np.ndarray, empty: float) -> np.ndarray:
     values = np.asarray(values, dtype=float)
     n = len(bounds) - 1
-    lead = values.shape[:-1]
-    out = np.full(lead + (n,), empty, dtype=float)
     nonempty = bounds[1:] > bounds[:-1]
+    if n and nonempty.all():  # the usual case: every period has intervals
+        return ufunc.reduceat(values[..., : bounds[-1]], bounds[:-1], axis=-1)
+    out = np.full(values.shape[:-1] + (n,), empty, dtype=float)
     if nonempty.any():
         # Empty periods have start == end == next start, so dropping them keeps reduceat's
         # "up to the next index" semantics exact.
