@@ -10,6 +10,7 @@ figures themselves come from :mod:`auditor.quantities` (one copy, shared with
 """
 from __future__ import annotations
 
+import functools
 import math
 import threading
 from collections import OrderedDict
@@ -30,13 +31,15 @@ from auditor.quantities import (
     demand_from_energy,
     energy_pf,
     expected_intervals,
+    local_bounds_ns,
     local_bounds_utc,
+    local_iso_times,
     peak_figures,
     ratio_figures,
     reactive_period_figures,
-    segment_argmax,
     segment_bounds,
     segment_sum,
+    ticks_per_second,
 )
 from auditor.tariffs.engine import (
     Charges,
@@ -184,8 +187,6 @@ class PreparedAudit:
     index: pd.DatetimeIndex
     kwh: np.ndarray
     kw: np.ndarray
-    kvar_lag: np.ndarray
-    kvar_lead: np.ndarray
     kvarh_lag: np.ndarray
     kvarh_lead: np.ndarray
     bounds: np.ndarray
@@ -205,6 +206,17 @@ class PreparedAudit:
     warnings: tuple[str, ...]
     _local_index: pd.DatetimeIndex = field(repr=False, default=None)
     interval_plan: IntervalPlan | None = field(repr=False, default=None)  # per-band / per-interval clauses
+
+    @functools.cached_property
+    def kvar_lag(self) -> np.ndarray:
+        """Lagging kvar per interval, worked out on first use (a correction needs it; an audit
+        does not)."""
+        return demand_from_energy(self.kvarh_lag, self.interval_minutes)
+
+    @functools.cached_property
+    def kvar_lead(self) -> np.ndarray:
+        """Leading kvar per interval, worked out on first use."""
+        return demand_from_energy(self.kvarh_lead, self.interval_minutes)
 
     # ---------------------------------------------------------------------------------------
     def _check(self, values, name: str) -> np.ndarray:
@@ -242,7 +254,7 @@ class PreparedAudit:
             history_demand=self.history_demand,
             intervals=intervals,
         )
-        return q, {"kva": r.kva, "pf_at_peak_sense": r.pf_at_peak_sense}
+        return q, {"peak_kva_pos": r.peak_kva_pos, "pf_at_peak_sense": r.pf_at_peak_sense}
 
     def run_charges(self, kvarh_lag=None, kvarh_lead=None) -> Charges:
         """Charges only (arrays per period), the fastest path for an optimiser."""
@@ -253,47 +265,37 @@ class PreparedAudit:
         """Figures and charges, optionally with replaced per-interval reactive energies."""
         q, extra = self.quantities(kvarh_lag, kvarh_lead)
         ch = compute_charges(self.tariff, q)
-        n = len(self.periods)
         ratios = ratio_figures(q.kwh, q.kvarh_lag, self.peak_kw, self.intervals, self.expected,
                                self.interval_minutes)
-        pf, tan_phi = ratios["pf"], ratios["tan_phi"]
-        load_factor, coverage = ratios["load_factor"], ratios["coverage"]
-        kva_pos = segment_argmax(extra["kva"], self.bounds) if self.kw.size else np.full(n, -1)
+        pf = ratios["pf"]
         warnings = list(self.warnings)
         for k in np.flatnonzero(~np.isfinite(pf) & (self.intervals > 0)):
             warnings.append(f"{self.periods[k].label}: no load, so no power factor; PF clauses charge nothing")
         keys = self.tariff.charge_keys
-        results = []
-        for k, p in enumerate(self.periods):
-            results.append(
-                PeriodResult(
-                    start=p.start,
-                    end=p.end,
-                    kwh=float(q.kwh[k]),
-                    kvarh_lag=float(q.kvarh_lag[k]),
-                    kvarh_lead=float(q.kvarh_lead[k]),
-                    pf=float(pf[k]),
-                    tan_phi=float(tan_phi[k]),
-                    peak_kw=float(self.peak_kw[k]),
-                    peak_kw_at=self.peak_kw_at[k],
-                    peak_kva=float(q.peak_kva[k]),
-                    peak_kva_at=self._local_index[kva_pos[k]].isoformat() if kva_pos[k] >= 0 else None,
-                    peak_kvar=float(q.peak_kvar[k]),
-                    pf_at_peak=float(q.pf_at_peak[k]),
-                    pf_at_peak_sense=str(extra["pf_at_peak_sense"][k]),
-                    load_factor=float(load_factor[k]),
-                    coverage=float(coverage[k]),
-                    intervals=int(self.intervals[k]),
-                    expected_intervals=int(self.expected[k]),
-                    estimated_intervals=int(self.estimated[k]),
-                    partial=bool(self.partial[k]),
-                    billing_pf=float(ch.billing_pf[k]),
-                    billing_demand=float(ch.billing_demand[k]),
-                    charges={key: float(ch.amounts[key][k]) for key in keys},
-                    reactive_total=float(ch.reactive_total[k]),
-                    total=float(ch.total[k]),
-                )
-            )
+        # every per-period array as a list of Python numbers at once (tolist converts in C)
+        figures = {
+            "kwh": q.kwh, "kvarh_lag": q.kvarh_lag, "kvarh_lead": q.kvarh_lead, "pf": pf,
+            "tan_phi": ratios["tan_phi"], "peak_kw": self.peak_kw, "peak_kva": q.peak_kva,
+            "peak_kvar": q.peak_kvar, "pf_at_peak": q.pf_at_peak, "load_factor": ratios["load_factor"],
+            "coverage": ratios["coverage"], "billing_pf": ch.billing_pf, "billing_demand": ch.billing_demand,
+            "reactive_total": ch.reactive_total, "total": ch.total,
+        }
+        columns = {name: np.asarray(a, dtype=float).tolist() for name, a in figures.items()}
+        counts = {"intervals": self.intervals, "expected_intervals": self.expected,
+                  "estimated_intervals": self.estimated}
+        columns.update({name: np.asarray(a, dtype=np.int64).tolist() for name, a in counts.items()})
+        columns["partial"] = np.asarray(self.partial, dtype=bool).tolist()
+        columns["pf_at_peak_sense"] = [str(x) for x in extra["pf_at_peak_sense"].tolist()]
+        columns["peak_kw_at"] = self.peak_kw_at
+        columns["peak_kva_at"] = local_iso_times(self._local_index, extra["peak_kva_pos"])
+        amounts = [np.asarray(ch.amounts[key], dtype=float).tolist() for key in keys]
+        charges = [dict(zip(keys, row, strict=True)) for row in zip(*amounts, strict=True)] if keys \
+            else [{} for _ in self.periods]
+        names = list(columns)
+        results = [
+            PeriodResult(start=p.start, end=p.end, charges=c, **dict(zip(names, row, strict=True)))
+            for p, c, row in zip(self.periods, charges, zip(*columns.values(), strict=True), strict=True)
+        ]
         kwh_all = float(q.kwh.sum())
         lag_all = float(q.kvarh_lag.sum())
         totals = {
@@ -316,7 +318,8 @@ class PreparedAudit:
         )
 
 
-def _check_frame(frame: pd.DataFrame) -> pd.DataFrame:
+def _check_frame(frame: pd.DataFrame) -> tuple[pd.DataFrame, dict[str, np.ndarray]]:
+    """The frame, time-sorted, and its required columns as float arrays (read once here)."""
     if not isinstance(frame, pd.DataFrame):
         raise UsageError("the interval data must be a DataFrame (the interval frame of DEVELOPERS.md)")
     missing = [c for c in REQUIRED_COLUMNS if c not in frame.columns]
@@ -324,16 +327,28 @@ def _check_frame(frame: pd.DataFrame) -> pd.DataFrame:
         raise UsageError(f"the interval frame lacks column(s) {', '.join(missing)}")
     if not isinstance(frame.index, pd.DatetimeIndex) or frame.index.tz is None:
         raise UsageError("the interval frame needs a timezone-aware (UTC) DatetimeIndex of interval starts")
-    if not frame.index.is_monotonic_increasing:
-        frame = frame.sort_index()
-    if frame.index.has_duplicates:
-        dup = frame.index[frame.index.duplicated()][0]
-        raise UsageError(f"the interval frame has duplicate interval starts (first: {dup.isoformat()})")
+    if not _strictly_increasing(frame.index):  # else sorted without duplicates: nothing to look at
+        if not frame.index.is_monotonic_increasing:
+            frame = frame.sort_index()
+        if frame.index.has_duplicates:
+            dup = frame.index[frame.index.duplicated()][0]
+            raise UsageError(f"the interval frame has duplicate interval starts (first: {dup.isoformat()})")
+    columns = {}
     for c in REQUIRED_COLUMNS:
         v = frame[c].to_numpy(dtype=float)
-        if v.size and not (np.nanmin(v) >= 0 and np.isfinite(v).all()):
+        # NaN fails both comparisons, -inf the first, +inf the second
+        if v.size and not (v.min() >= 0 and v.max() < np.inf):
             raise UsageError(f"column {c} must hold finite values of at least 0")
-    return frame
+        columns[c] = v
+    return frame, columns
+
+
+def _strictly_increasing(index: pd.DatetimeIndex) -> bool:
+    """Every start after the one before (sorted, no duplicates), from the integer ticks: one pass
+    instead of pandas' two (order, then a hash table for duplicates). NaT, the smallest tick,
+    can only come first: that index takes pandas' own checks."""
+    ticks = index.asi8
+    return ticks.size < 2 or (ticks[0] != np.iinfo(np.int64).min and bool((ticks[1:] > ticks[:-1]).all()))
 
 
 def prepare_audit(
@@ -378,9 +393,9 @@ def prepare_audit(
     ----------
     .. [1] IEEE Std 1459-2010, section 3.1.1 (P, Q, S, PF).
     """
-    frame = _check_inputs(frame, tariff, interval_minutes, start, end)
+    frame, columns = _check_inputs(frame, tariff, interval_minutes, start, end)
     ps, clipped = _choose_periods(frame, tz, interval_minutes, periods, billing_day, start, end)
-    sel = _select_intervals(frame, ps, tz, interval_minutes)
+    sel = _select_intervals(frame, columns, ps, tz, interval_minutes)
     active = _active_figures(sel, ps, tz, interval_minutes)
     windows = _tariff_windows(tariff, sel, tz, interval_minutes)
     partial, warnings = _coverage_and_warnings(frame, ps, clipped, tz, interval_minutes, active,
@@ -394,8 +409,6 @@ def prepare_audit(
         index=sel.index,
         kwh=sel.kwh,
         kw=sel.kw,
-        kvar_lag=demand_from_energy(sel.kvarh_lag, interval_minutes),
-        kvar_lead=demand_from_energy(sel.kvarh_lead, interval_minutes),
         kvarh_lag=sel.kvarh_lag,
         kvarh_lead=sel.kvarh_lead,
         bounds=sel.bounds,
@@ -422,15 +435,16 @@ def prepare_audit(
 # the steps of prepare_audit
 # --------------------------------------------------------------------------------------------
 def _check_inputs(frame: pd.DataFrame, tariff: Tariff, interval_minutes: int, start: date | None,
-                  end: date | None) -> pd.DataFrame:
-    """Step 1: the interval length, the tariff, the frame (sorted) and the range."""
+                  end: date | None) -> tuple[pd.DataFrame, dict[str, np.ndarray]]:
+    """Step 1: the interval length, the tariff, the frame (sorted, with its required columns as
+    arrays) and the range."""
     check_interval_minutes(interval_minutes)
     if not isinstance(tariff, Tariff):
         raise UsageError("tariff must be a Tariff (load it with auditor.tariffs.load_tariff)")
-    frame = _check_frame(frame)
+    frame, columns = _check_frame(frame)
     if start is not None and end is not None and end <= start:
         raise UsageError(f"end {end.isoformat()} must be after start {start.isoformat()}")
-    return frame
+    return frame, columns
 
 
 def _choose_periods(frame: pd.DataFrame, tz: str, interval_minutes: int,
@@ -486,7 +500,7 @@ def _regular_index_key(index: pd.DatetimeIndex, interval_minutes: int) -> tuple 
     n = len(index)
     if n < 2:
         return None
-    per_second = {"s": 1, "ms": 10**3, "us": 10**6, "ns": 10**9}[index.unit]  # no converted copy of the index
+    per_second = ticks_per_second(index)  # no converted copy of the index
     ticks = index.asi8
     first, last = int(ticks[0]), int(ticks[-1])
     if last - first != (n - 1) * interval_minutes * 60 * per_second or first % per_second:
@@ -517,9 +531,10 @@ def _shared_value(key: tuple | None, make):
     return value
 
 
-def _select_intervals(frame: pd.DataFrame, ps: list[BillingPeriod], tz: str, interval_minutes: int) -> _Selected:
+def _select_intervals(frame: pd.DataFrame, columns: dict[str, np.ndarray], ps: list[BillingPeriod], tz: str,
+                      interval_minutes: int) -> _Selected:
     """Step 3: the intervals of the periods and their boundaries (period k is
-    ``[bounds[k], bounds[k+1])``)."""
+    ``[bounds[k], bounds[k+1])``); ``columns`` are the frame's required columns as arrays."""
     regular = _regular_index_key(frame.index, interval_minutes)
 
     def positions():
@@ -529,14 +544,18 @@ def _select_intervals(frame: pd.DataFrame, ps: list[BillingPeriod], tz: str, int
 
     sel, bounds, index, local_index = _shared_value(
         None if regular is None else ("select", regular, tz, tuple(ps)), positions)
-    f = frame if sel.all() else frame[sel]  # usually every interval is in some period: no copy
-    kwh = f["kwh"].to_numpy(dtype=float)
-    est = f["estimated"].to_numpy(dtype=bool) if "estimated" in f.columns else np.zeros(len(f), dtype=bool)
+    every = bool(sel.all())  # usually every interval is in some period: no copy
+
+    def selected(values: np.ndarray) -> np.ndarray:
+        return values if every else values[sel]
+
+    kwh = selected(columns["kwh"])
+    est = (selected(frame["estimated"].to_numpy(dtype=bool)) if "estimated" in frame.columns
+           else np.zeros(len(kwh), dtype=bool))
     return _Selected(bounds=bounds, index=index, local_index=local_index, kwh=kwh,
                      kw=demand_from_energy(kwh, interval_minutes),
-                     kvarh_lag=f["kvarh_lag"].to_numpy(dtype=float),
-                     kvarh_lead=f["kvarh_lead"].to_numpy(dtype=float), estimated=est,
-                     shared_key=None if regular is None else (regular, tz, tuple(ps)))
+                     kvarh_lag=selected(columns["kvarh_lag"]), kvarh_lead=selected(columns["kvarh_lead"]),
+                     estimated=est, shared_key=None if regular is None else (regular, tz, tuple(ps)))
 
 
 @dataclass(frozen=True, eq=False)
@@ -559,9 +578,10 @@ def _active_figures(sel: _Selected, ps: list[BillingPeriod], tz: str, interval_m
     return _Active(
         intervals=np.diff(sel.bounds),
         expected=expected_intervals(ps, tz, interval_minutes),
-        estimated=segment_sum(sel.estimated.astype(float), sel.bounds).astype(np.int64),
+        estimated=(segment_sum(sel.estimated.astype(float), sel.bounds).astype(np.int64) if sel.estimated.any()
+                   else np.zeros(len(ps), dtype=np.int64)),
         period_kwh=period_kwh, peak_kw=peak_kw, peak_kw_pos=peak_kw_pos,
-        peak_kw_at=[sel.local_index[i].isoformat() if i >= 0 else None for i in peak_kw_pos],
+        peak_kw_at=local_iso_times(sel.local_index, peak_kw_pos),
     )
 
 
@@ -592,17 +612,17 @@ def _tariff_windows(tariff: Tariff, sel: _Selected, tz: str, interval_minutes: i
                 masks.append(mask.astype(float))
             else:
                 rows.append(None)
-        return (tariff, energy_window_index(tariff.energy, cal), np.repeat(np.arange(n), np.diff(sel.bounds)),
-                np.vstack(masks) if masks else np.zeros((0, len(sel.index))), tuple(rows), cal)
+        # bin of each interval in the kWh per (energy window, period): window × periods + period
+        bins = energy_window_index(tariff.energy, cal) * n + np.repeat(np.arange(n), np.diff(sel.bounds))
+        return (tariff, bins, np.vstack(masks) if masks else np.zeros((0, len(sel.index))), tuple(rows), cal)
 
     key = None if sel.shared_key is None else ("windows", sel.shared_key, id(tariff))
     parts = _shared_value(key, calendar_parts)
     if parts[0] is not tariff:  # another tariff object took the same id: compute afresh
         parts = calendar_parts()
-    _, e_idx, period_of, window_masks, rows, cal = parts
-    # kWh per (energy window, period) in one pass: bin = window × periods + period
-    energy_kwh = np.bincount(e_idx * n + period_of, weights=sel.kwh,
-                             minlength=(len(tariff.energy.windows) + 1) * n).reshape(-1, n)
+    _, bins, window_masks, rows, cal = parts
+    # kWh per (energy window, period) in one pass
+    energy_kwh = np.bincount(bins, weights=sel.kwh, minlength=(len(tariff.energy.windows) + 1) * n).reshape(-1, n)
     masks = window_masks.shape[0]
     window_kwh = segment_sum(window_masks * sel.kwh, sel.bounds) if masks else np.zeros((0, n))
     plan = plan_intervals(tariff, cal, sel.bounds, interval_minutes, sel.kwh)
@@ -615,15 +635,18 @@ def _coverage_and_warnings(frame: pd.DataFrame, ps: list[BillingPeriod], clipped
     warning for every partial, gappy or estimated period — never silent."""
     step = pd.Timedelta(minutes=interval_minutes)
     intervals, expected, estimated = active.intervals, active.expected, active.estimated
-    p_start = local_bounds_utc([p.start for p in ps], tz)
-    p_end = local_bounds_utc([p.end for p in ps], tz)
     partial = np.array(clipped, dtype=bool)
     warnings: list[str] = []
     if not frame.empty:
-        data_first, data_end = frame.index[0], frame.index[-1] + step
-        beyond = (p_start < data_first) | (p_end > data_end)
-        partial |= np.asarray(beyond)
-    for k, p in enumerate(ps):
+        # compared as integer nanoseconds (the index and the bounds may differ in unit)
+        ticks, to_ns = frame.index.asi8, 10**9 // ticks_per_second(frame.index)
+        data_first, data_end = int(ticks[0]) * to_ns, int(ticks[-1]) * to_ns + interval_minutes * 60 * 10**9
+        partial |= (local_bounds_ns([p.start for p in ps], tz) < data_first) | \
+            (local_bounds_ns([p.end for p in ps], tz) > data_end)
+    # only the periods with something to say are looked at one by one (usually the first and last)
+    quiet = (intervals > 0) & ~partial & (intervals >= expected) & (estimated == 0)
+    for k in np.flatnonzero(~quiet).tolist():
+        p = ps[k]
         label = p.label
         if intervals[k] == 0:
             warnings.append(f"{label}: no interval data; only fixed charges (and any demand ratchet) are billed")
@@ -631,8 +654,8 @@ def _coverage_and_warnings(frame: pd.DataFrame, ps: list[BillingPeriod], clipped
         if clipped[k]:
             warnings.append(f"{label}: partial billing period (the billing cycle is cut by the audited range)")
         elif partial[k]:
-            a = max(p_start[k], frame.index[0]).tz_convert(tz)
-            b = min(p_end[k], frame.index[-1] + step).tz_convert(tz)
+            a = max(local_bounds_utc([p.start], tz)[0], frame.index[0]).tz_convert(tz)
+            b = min(local_bounds_utc([p.end], tz)[0], frame.index[-1] + step).tz_convert(tz)
             warnings.append(
                 f"{label}: partial period: data cover {a.isoformat()} to {b.isoformat()} only"
             )

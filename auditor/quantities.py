@@ -18,8 +18,9 @@ from __future__ import annotations
 import calendar
 import functools
 from collections.abc import Sequence
-from dataclasses import dataclass
-from datetime import date
+from dataclasses import dataclass, field
+from datetime import UTC, date, datetime, timedelta, timezone
+from zoneinfo import ZoneInfo
 
 import numpy as np
 import pandas as pd
@@ -38,7 +39,9 @@ __all__ = [
     "energy_pf",
     "expected_intervals",
     "interval_power",
+    "local_bounds_ns",
     "local_bounds_utc",
+    "local_iso_times",
     "period_figures",
     "peak_figures",
     "power_factor",
@@ -50,6 +53,7 @@ __all__ = [
     "segment_argmax",
     "segment_max",
     "segment_sum",
+    "ticks_per_second",
 ]
 
 
@@ -291,17 +295,23 @@ def billing_periods(
     last = _to_local_date(last_utc, tz)
     if last < first:
         raise UsageError("the last interval is before the first")
-    start = _cycle_start(first, int(billing_day))
+    return list(_cycles(first, last, int(billing_day)))
+
+
+@functools.lru_cache(maxsize=256)
+def _cycles(first: date, last: date, billing_day: int) -> tuple[BillingPeriod, ...]:
+    # cached: the meters of a batch cover the same dates (billing periods are frozen)
+    start = _cycle_start(first, billing_day)
     out: list[BillingPeriod] = []
     k = 0
     # One iteration per billing cycle (a dozen a year), not per interval.
     while True:
-        s = _add_months(start, k, int(billing_day))
+        s = _add_months(start, k, billing_day)
         if s > last:
             break
-        out.append(BillingPeriod(s, _add_months(start, k + 1, int(billing_day))))
+        out.append(BillingPeriod(s, _add_months(start, k + 1, billing_day)))
         k += 1
-    return out
+    return tuple(out)
 
 
 def check_periods(periods: Sequence[BillingPeriod]) -> list[BillingPeriod]:
@@ -345,6 +355,18 @@ def local_bounds_utc(dates: Sequence[date], tz: str) -> pd.DatetimeIndex:
     return _local_bounds_utc(tuple(dates), tz)
 
 
+def local_bounds_ns(dates: Sequence[date], tz: str) -> np.ndarray:
+    """:func:`local_bounds_utc` as integer nanoseconds since 1970-01-01 UTC (read-only)."""
+    return _local_bounds_ns(tuple(dates), tz)
+
+
+@functools.lru_cache(maxsize=256)
+def _local_bounds_ns(dates: tuple[date, ...], tz: str) -> np.ndarray:
+    ns = _local_bounds_utc(dates, tz).as_unit("ns").asi8.copy()
+    ns.flags.writeable = False
+    return ns
+
+
 @functools.lru_cache(maxsize=256)
 def _local_bounds_utc(dates: tuple[date, ...], tz: str) -> pd.DatetimeIndex:
     # cached: every meter audited over the same billing periods asks for the same instants
@@ -356,12 +378,50 @@ def _local_bounds_utc(dates: tuple[date, ...], tz: str) -> pd.DatetimeIndex:
 
 def expected_intervals(periods: Sequence[BillingPeriod], tz: str, interval_minutes: int) -> np.ndarray:
     """Intervals a complete meter records in each local-time period (92 or 100 quarter hours on a
-    DST change day in zones that shift by one hour)."""
+    DST change day in zones that shift by one hour). The array is read-only."""
     check_interval_minutes(interval_minutes)
+    return _expected_intervals(tuple(periods), tz, int(interval_minutes))
+
+
+@functools.lru_cache(maxsize=256)
+def _expected_intervals(periods: tuple[BillingPeriod, ...], tz: str, interval_minutes: int) -> np.ndarray:
+    # cached like _local_bounds_utc (every meter of a batch has the same periods), so frozen
     starts = local_bounds_utc([p.start for p in periods], tz)
     ends = local_bounds_utc([p.end for p in periods], tz)
     seconds = (ends - starts).total_seconds().to_numpy()
-    return np.floor(seconds / (interval_minutes * 60) + 1e-9).astype(np.int64)
+    expected = np.floor(seconds / (interval_minutes * 60) + 1e-9).astype(np.int64)
+    expected.flags.writeable = False
+    return expected
+
+
+def ticks_per_second(index: pd.DatetimeIndex) -> int:
+    """Ticks of ``index.asi8`` in a second (pandas holds datetimes in s, ms, us or ns)."""
+    return {"s": 1, "ms": 10**3, "us": 10**6, "ns": 10**9}[index.unit]
+
+
+def local_iso_times(local_index: pd.DatetimeIndex, positions) -> list[str | None]:
+    """ISO 8601 texts of the local interval starts at ``positions`` (None where a position is
+    -1), as :meth:`pandas.Timestamp.isoformat` writes them.
+
+    With the site's zone as a ``zoneinfo`` (or fixed-offset) zone, which is what pandas makes
+    of a zone's name, each start goes from its integer ticks to a ``datetime`` in that zone
+    directly: boxing a Timestamp costs ten times more. Other zones and starts between
+    microseconds take the Timestamp.
+    """
+    positions = np.asarray(positions, dtype=np.int64)
+    found = positions >= 0
+    tz, per_second = local_index.tz, ticks_per_second(local_index)
+    ticks = local_index.asi8[positions[found]]  # UTC
+    if isinstance(tz, ZoneInfo | timezone) and (per_second <= 10**6 or not (ticks % 1000).any()):
+        micros = (ticks * (10**6 // per_second) if per_second <= 10**6 else ticks // 1000).tolist()
+        texts = [(_EPOCH + timedelta(microseconds=m)).astimezone(tz).isoformat() for m in micros]
+    else:
+        texts = [t.isoformat() for t in local_index[positions[found]]]
+    it = iter(texts)
+    return [next(it) if f else None for f in found.tolist()]
+
+
+_EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
 
 
 # --------------------------------------------------------------------------------------------
@@ -378,8 +438,8 @@ def segment_bounds(index_utc: pd.DatetimeIndex, periods: Sequence[BillingPeriod]
         In the *selected* array, period ``k`` is ``[bounds[k], bounds[k+1])``.
     """
     # Compare in one unit: pandas may hold the index and the bounds at different resolutions.
-    starts = local_bounds_utc([p.start for p in periods], tz).as_unit("ns").asi8
-    ends = local_bounds_utc([p.end for p in periods], tz).as_unit("ns").asi8
+    starts = local_bounds_ns([p.start for p in periods], tz)
+    ends = local_bounds_ns([p.end for p in periods], tz)
     t = pd.DatetimeIndex(index_utc).tz_convert("UTC").as_unit("ns").asi8
     pos = np.searchsorted(starts, t, side="right") - 1
     ok = pos >= 0
@@ -391,9 +451,10 @@ def segment_bounds(index_utc: pd.DatetimeIndex, periods: Sequence[BillingPeriod]
 def _reduce(ufunc, values: np.ndarray, bounds: np.ndarray, empty: float) -> np.ndarray:
     values = np.asarray(values, dtype=float)
     n = len(bounds) - 1
-    lead = values.shape[:-1]
-    out = np.full(lead + (n,), empty, dtype=float)
     nonempty = bounds[1:] > bounds[:-1]
+    if n and nonempty.all():  # the usual case: every period has intervals
+        return ufunc.reduceat(values[..., : bounds[-1]], bounds[:-1], axis=-1)
+    out = np.full(values.shape[:-1] + (n,), empty, dtype=float)
     if nonempty.any():
         # Empty periods have start == end == next start, so dropping them keeps reduceat's
         # "up to the next index" semantics exact.
@@ -414,14 +475,54 @@ def segment_max(values, bounds) -> np.ndarray:
 def segment_argmax(values, bounds) -> np.ndarray:
     """Position of the first maximum of each period (-1 for an empty period)."""
     values = np.asarray(values, dtype=float)
-    n = len(bounds) - 1
-    peaks = segment_max(values, bounds)
-    seg = np.repeat(np.arange(n), np.diff(bounds))
-    hits = np.flatnonzero(values[: bounds[-1]] == peaks[seg])
-    out = np.full(n, -1, dtype=np.int64)
-    first_seg, first_pos = np.unique(seg[hits], return_index=True)
-    out[first_seg] = hits[first_pos]
+    return _first_at(values, segment_max(values, bounds), bounds)
+
+
+def _first_at(values: np.ndarray, peaks: np.ndarray, bounds: np.ndarray) -> np.ndarray:
+    """Position of the first interval of each period whose value equals the period's ``peaks``."""
+    hits = np.flatnonzero(values[: bounds[-1]] == np.repeat(peaks, np.diff(bounds)))
+    return _first_in_segments(hits, bounds)
+
+
+def _first_in_segments(hits: np.ndarray, bounds: np.ndarray) -> np.ndarray:
+    """The first of the sorted positions ``hits`` inside each period (-1: none)."""
+    bounds = np.asarray(bounds, dtype=np.int64)
+    out = np.full(len(bounds) - 1, -1, dtype=np.int64)
+    if hits.size:
+        first = np.searchsorted(hits, bounds[:-1], side="left")
+        ok = first < hits.size
+        ok[ok] = hits[first[ok]] < bounds[1:][ok]
+        out[ok] = hits[first[ok]]
     return out
+
+
+def _peak_hypot(p: np.ndarray, q: np.ndarray, bounds: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Per period the largest ``hypot(p, q)`` and the position of its first interval (-1: none),
+    equal to :func:`segment_max` and :func:`segment_argmax` of ``np.hypot(p, q)``.
+
+    ``hypot`` (a tenth of a microsecond per interval) is taken only for the intervals whose
+    ``p^2 + q^2`` lies within a relative 1e-9 of the period's largest: the others are smaller by
+    far more than the few ulps ``hypot`` and the squares can be off, so they can neither be nor
+    tie the peak. A period whose largest square is not in the normal range (zero load, values
+    near the limits of a double, NaN) keeps every interval.
+    """
+    bounds = np.asarray(bounds, dtype=np.int64)
+    n = int(bounds[-1])
+    p, q = p[:n], q[:n]
+    with np.errstate(over="ignore", under="ignore"):  # such periods keep every interval (below)
+        squares = p * p
+        squares += q * q
+    top = segment_max(squares, bounds)
+    normal = (top >= 1e-280) & (top < np.inf)
+    floor = np.where(normal, top * (1.0 - 1e-9), -np.inf)
+    near = np.flatnonzero(~(squares < np.repeat(floor, np.diff(bounds))))  # NaN squares stay
+    near_bounds = np.searchsorted(near, bounds, side="left").astype(np.int64)
+    h = np.hypot(p[near], q[near])
+    peaks = segment_max(h, near_bounds)
+    pos = _first_at(h, peaks, near_bounds)
+    found = pos >= 0
+    pos[found] = near[pos[found]]
+    return peaks, pos
 
 
 # --------------------------------------------------------------------------------------------
@@ -432,7 +533,7 @@ def peak_figures(kwh: np.ndarray, kw: np.ndarray, bounds: np.ndarray) -> tuple[n
     n = len(bounds) - 1
     period_kwh = segment_sum(kwh, bounds)
     peak_kw = segment_max(kw, bounds)
-    peak_kw_pos = segment_argmax(kw, bounds) if kw.size else np.full(n, -1, dtype=np.int64)
+    peak_kw_pos = _first_at(kw, peak_kw, bounds) if kw.size else np.full(n, -1, dtype=np.int64)
     return period_kwh, peak_kw, peak_kw_pos
 
 
@@ -443,11 +544,19 @@ class ReactivePeriodFigures:
 
     kvarh_lag: np.ndarray  # per period
     kvarh_lead: np.ndarray  # per period
-    kva: np.ndarray  # per interval, with Q_net
     peak_kva: np.ndarray
+    peak_kva_pos: np.ndarray  # position of the (first) interval of the kVA peak (-1: none)
     peak_kvar: np.ndarray  # lagging
     pf_at_peak: np.ndarray  # interval PF at the kW peak (NaN: no interval)
     pf_at_peak_sense: np.ndarray  # 'lag', 'lead' or ''
+    kw: np.ndarray = field(repr=False)  # per interval
+    kvar_net: np.ndarray = field(repr=False)  # per interval
+
+    @functools.cached_property
+    def kva(self) -> np.ndarray:
+        """Per interval apparent power with Q_net, ``hypot(kW, kvar_net)``: worked out on first
+        use (the peaks above do not need it for every interval)."""
+        return np.hypot(self.kw, self.kvar_net)
 
 
 def reactive_period_figures(kw: np.ndarray, kvarh_lag: np.ndarray, kvarh_lead: np.ndarray, bounds: np.ndarray,
@@ -460,10 +569,11 @@ def reactive_period_figures(kw: np.ndarray, kvarh_lag: np.ndarray, kvarh_lead: n
     .. [1] IEEE Std 1459-2010, section 3.1.1 (S = sqrt(P^2 + Q^2), PF = P / S).
     """
     to_demand = 60.0 / interval_minutes
-    kvar_lag = kvarh_lag * to_demand
     kvar_net = (kvarh_lag - kvarh_lead) * to_demand
-    kva = np.hypot(kw, kvar_net)
-    sums = segment_sum(np.vstack([kvarh_lag, kvarh_lead]), bounds)
+    peak_kva, peak_kva_pos = _peak_hypot(kw, kvar_net, bounds)
+    # x -> x * to_demand (> 0) keeps the order of floats, so the peak of the products is the
+    # product of the peak, to the bit, without a product per interval
+    peak_kvar = segment_max(kvarh_lag, bounds) * to_demand
     at = np.maximum(peak_kw_pos, 0)
     has = peak_kw_pos >= 0
     if kw.size:
@@ -471,9 +581,10 @@ def reactive_period_figures(kw: np.ndarray, kvarh_lag: np.ndarray, kvarh_lead: n
     else:
         pf_peak, sense = np.full(len(at), np.nan), np.full(len(at), "")
     return ReactivePeriodFigures(
-        kvarh_lag=sums[0], kvarh_lead=sums[1], kva=kva, peak_kva=segment_max(kva, bounds),
-        peak_kvar=segment_max(kvar_lag, bounds), pf_at_peak=np.where(has, pf_peak, np.nan),
-        pf_at_peak_sense=np.where(has, sense, ""),
+        kvarh_lag=segment_sum(kvarh_lag, bounds), kvarh_lead=segment_sum(kvarh_lead, bounds),
+        peak_kva=peak_kva, peak_kva_pos=peak_kva_pos, peak_kvar=peak_kvar,
+        pf_at_peak=np.where(has, pf_peak, np.nan), pf_at_peak_sense=np.where(has, sense, ""),
+        kw=kw, kvar_net=kvar_net,
     )
 
 
@@ -493,7 +604,7 @@ def ratio_figures(kwh: np.ndarray, kvarh_lag: np.ndarray, peak_kw: np.ndarray, i
     return {
         "pf": energy_pf(kwh, kvarh_lag),
         "tan_phi": np.divide(kvarh_lag, kwh, out=np.full(n, np.nan), where=kwh > 0),
-        "load_factor": np.divide(kwh, denom, out=np.full(n, np.nan), where=np.nan_to_num(denom) > 0),
+        "load_factor": np.divide(kwh, denom, out=np.full(n, np.nan), where=denom > 0),  # NaN > 0 is False
         "coverage": np.divide(intervals, expected, out=np.full(n, np.nan), where=expected > 0),
     }
 
@@ -538,11 +649,11 @@ def period_figures(
     present = np.diff(bounds)
     expected = expected_intervals(periods, tz, interval_minutes)
     ratios = ratio_figures(kwh, r.kvarh_lag, peak_kw, present, expected, interval_minutes)
-    i_kva = segment_argmax(r.kva, bounds)
+    i_kva = r.peak_kva_pos
     local = f.index.tz_convert(tz)
 
     def at(i):
-        return [local[j].isoformat() if j >= 0 else None for j in i]
+        return local_iso_times(local, i)
 
     return pd.DataFrame(
         {

@@ -174,10 +174,25 @@ def test_bad_frames_and_options():
         audit(f.tz_localize(None), tariff(), tz=TZ, interval_minutes=60)
     with pytest.raises(UsageError, match="duplicate"):
         audit(pd.concat([f, f.iloc[:1]]).sort_index(), tariff(), tz=TZ, interval_minutes=60)
+    with pytest.raises(UsageError, match=r"duplicate interval starts \(first: 2025-06-03T00:00:00\+00:00\)"):
+        audit(pd.concat([f, f.iloc[50:51]]).iloc[::-1], tariff(), tz=TZ, interval_minutes=60)
+    for column in ("kwh", "kvarh_lag", "kvarh_lead"):
+        for bad in (np.nan, np.inf, -np.inf, -0.5):
+            g = f.copy()
+            g.iloc[100, g.columns.get_loc(column)] = bad
+            with pytest.raises(UsageError, match=f"^column {column} must hold finite values of at least 0$"):
+                audit(g, tariff(), tz=TZ, interval_minutes=60)
     with pytest.raises(UsageError, match="end .* after start"):
         audit(f, tariff(), tz=TZ, interval_minutes=60, start=date(2025, 6, 5), end=date(2025, 6, 1))
     with pytest.raises(UsageError, match="no interval data"):
         audit(f.iloc[:0], tariff(), tz=TZ, interval_minutes=60)
+
+
+def test_unsorted_frame_audits_as_the_sorted_one():
+    f = june_frame()
+    shuffled = f.sample(frac=1.0, random_state=3)
+    assert audit(shuffled, tariff(), tz=TZ, interval_minutes=60).to_dict() == \
+        audit(f, tariff(), tz=TZ, interval_minutes=60).to_dict()
 
 
 def test_period_without_data_bills_fixed_and_ratchet():

@@ -21,8 +21,10 @@ from auditor.quantities import (
     energy_pf,
     expected_intervals,
     interval_power,
+    local_iso_times,
     period_figures,
     power_factor,
+    reactive_period_figures,
     round_pf,
     segment_argmax,
     segment_max,
@@ -218,6 +220,62 @@ def test_segment_reductions_handle_empty_periods():
     assert_allclose(segment_max(v, bounds), [5.0, np.nan, 7.0])
     assert list(segment_argmax(v, bounds)) == [1, -1, 3]  # first of tied maxima
     assert_allclose(segment_sum(np.vstack([v, 2 * v]), bounds), [[8, 0, 17], [16, 0, 34]])
+
+
+def _bit_equal(a, b) -> bool:
+    a, b = np.asarray(a, dtype=float), np.asarray(b, dtype=float)
+    return a.shape == b.shape and bool(np.all((a == b) | (np.isnan(a) & np.isnan(b))))
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.lists(st.tuples(st.sampled_from([0.0, 1.0, 2.5, 1e-200, 1e-150, 1e150, 1e200, 3.0, 4.0]),
+                          st.sampled_from([0.0, 1.0, -1.0, 2.5, -4.0, 1e-160, 1e160, 3.0, 4.0, np.nan])),
+                max_size=40),
+       st.lists(st.integers(0, 40), max_size=5))
+def test_kva_peak_is_numpys_hypot_peak_to_the_bit(rows, cuts):
+    # The kVA peak and its (first) interval must be exactly what numpy's hypot over every
+    # interval gives, whatever the ties, zero-load or empty periods, extreme magnitudes and NaN.
+    kw = np.array([r[0] for r in rows], dtype=float)
+    net = np.array([r[1] for r in rows], dtype=float)
+    bounds = np.array([0, *sorted(min(c, len(rows)) for c in cuts), len(rows)], dtype=np.int64)
+    lag, lead = np.where(net > 0, net, 0.0) / 4.0, np.where(net < 0, -net, 0.0) / 4.0
+    lag[np.isnan(net)] = np.nan
+    r = reactive_period_figures(kw, lag, lead, bounds, 15, np.full(len(bounds) - 1, -1))
+    kva = np.hypot(kw, (lag - lead) * 4.0)
+    assert _bit_equal(r.peak_kva, segment_max(kva, bounds))
+    assert list(r.peak_kva_pos) == list(segment_argmax(kva, bounds))
+    assert _bit_equal(r.kva, kva)
+    assert _bit_equal(r.peak_kvar, segment_max(lag * 4.0, bounds))
+
+
+def test_kva_peak_ties_and_near_ties():
+    # 3-4-5 and 5-0 give the same kVA (a tie: the first wins); 1 ulp below 5 is not a tie
+    kw = np.array([3.0, 5.0, np.nextafter(5.0, 0), 4.0, 0.0, 0.0])
+    lag = np.array([1.0, 0.0, 0.0, 0.75, 0.0, 0.0])
+    bounds = np.array([0, 4, 6])
+    r = reactive_period_figures(kw, lag, np.zeros(6), bounds, 15, np.array([1, -1]))
+    assert list(r.peak_kva_pos) == [0, 4] and r.peak_kva[0] == 5.0 and r.peak_kva[1] == 0.0
+
+
+@pytest.mark.parametrize("unit", ["s", "ms", "us", "ns"])
+@pytest.mark.parametrize("tz", ["Europe/Berlin", "Australia/Lord_Howe", "America/St_Johns", "UTC", "Europe/Amsterdam"])
+def test_local_iso_times_write_what_pandas_writes(tz, unit):
+    # The reference is pandas' own Timestamp.isoformat, across both DST changes of a year
+    # (the repeated autumn hour included), half-hour shifts and a local-mean-time offset (1890).
+    for start, freq, n in (("2025-01-01", "15min", 35040), ("1890-01-01", "7h", 3000)):
+        local = pd.date_range(start, periods=n, freq=freq, tz="UTC", unit=unit).tz_convert(tz)
+        positions = np.r_[np.arange(0, n, 5), -1]
+        want = [local[p].isoformat() for p in positions[:-1]] + [None]
+        assert local_iso_times(local, positions) == want
+
+
+def test_local_iso_times_between_microseconds_and_other_zone_types():
+    local = (pd.date_range("2025-10-26", periods=12, freq="15min", tz="UTC", unit="ns")
+             + pd.Timedelta(7, "ns")).tz_convert("Europe/Berlin")
+    assert local_iso_times(local, [0, -1, 11]) == [local[0].isoformat(), None, local[11].isoformat()]
+    assert local_iso_times(local, [0])[0].endswith(".000000007+02:00")
+    dateutil_zone = local.tz_convert("dateutil/Europe/Berlin")
+    assert local_iso_times(dateutil_zone, [4, 8]) == [dateutil_zone[4].isoformat(), dateutil_zone[8].isoformat()]
 
 
 def test_period_figures_of_the_hand_worked_month():

@@ -150,10 +150,15 @@ def meter_row(audit, document: dict) -> dict:
     kWh, energy PF, reactive charges, total, coverage (intervals present / expected from the
     first interval read to the last, as ``auditor meters`` counts it) and the worst month (the
     period with the lowest energy PF, lagging kvarh)."""
+    from auditor.quantities import ticks_per_second
+
     periods = audit.result.periods
     index = audit.data.frame.index
     present = len(index)
-    expected = ((index[-1] - index[0]).total_seconds() // (audit.data.interval_minutes * 60) + 1) if present else 0
+    expected = 0
+    if present:  # seconds from the first interval read to the last, from the integer ticks
+        seconds = (int(index.asi8[-1]) - int(index.asi8[0])) / ticks_per_second(index)
+        expected = seconds // (audit.data.interval_minutes * 60) + 1
     with_pf = [p for p in periods if p.intervals and math.isfinite(p.pf)]
     worst = min(with_pf, key=lambda p: p.pf) if with_pf else None
     t = document["totals"]

@@ -400,6 +400,13 @@ def kvarh_of(basis: str, kvarh_lag, kvarh_lead) -> np.ndarray:
     raise ValueError(f"unknown kvarh basis {basis!r}")
 
 
+def _no_nan(x) -> np.ndarray:
+    """``np.nan_to_num`` of ``x`` as a new float array (NaN: 0, ±inf: ± the largest float), with
+    a quick path for the usual case of finite figures (it runs several times per audit)."""
+    a = np.asarray(x, dtype=float)
+    return a.copy() if np.isfinite(a).all() else np.nan_to_num(a)
+
+
 def _round(x, rounding: Rounding | None):
     return np.asarray(x, dtype=float) if rounding is None else rounding.apply(x)
 
@@ -462,7 +469,7 @@ def pf_adjusted_demand(
     also lowers demand when PF > base_pf, by at most ``max_credit_percent``. A period without PF
     keeps its demand.
     """
-    demand_kw = np.nan_to_num(np.asarray(demand_kw, dtype=float))
+    demand_kw = _no_nan(demand_kw)
     pf = np.asarray(pf, dtype=float)
     ok = np.isfinite(pf) & (pf > 0)
     ratio = np.divide(base_pf, pf, out=np.ones_like(pf), where=ok)
@@ -484,11 +491,11 @@ def ratcheted_demand(demand, ratchet_percent: float | None, ratchet_periods: int
     ``looked_back`` demand (default: ``demand`` itself); the ratchet looks at demand before the
     ratchet (no feedback from one ratchet to the next).
     """
-    demand = np.nan_to_num(np.asarray(demand, dtype=float))
+    demand = _no_nan(demand)
     if ratchet_percent is None:
         return demand
-    back = demand if looked_back is None else np.nan_to_num(np.asarray(looked_back, dtype=float))
-    hist = np.nan_to_num(np.asarray(history, dtype=float))
+    back = demand if looked_back is None else _no_nan(looked_back)
+    hist = _no_nan(history)
     seq = np.concatenate([np.full(ratchet_periods, -np.inf), hist, back])
     windows = np.lib.stride_tricks.sliding_window_view(seq[:-1], ratchet_periods)
     previous_max = windows[len(hist) :].max(axis=1)
@@ -542,8 +549,8 @@ def kvar_demand_charge(peak_kvar, peak_kw, allowance_ratio: float, price_per_kva
                        excess_rounding: Rounding | None = None) -> np.ndarray:
     """``price x max(0, peak kvar - allowance_ratio x kW)``; ``peak_kw`` is the kW the allowance
     is a share of (the period's peak, or the highest of a look-back). No data charges 0."""
-    kvar = np.nan_to_num(np.asarray(peak_kvar, dtype=float))
-    kw = np.nan_to_num(np.asarray(peak_kw, dtype=float))
+    kvar = _no_nan(peak_kvar)
+    kw = _no_nan(peak_kw)
     return price_per_kvar * _round(np.maximum(0.0, kvar - allowance_ratio * kw), excess_rounding)
 
 
@@ -660,8 +667,8 @@ def _leading(m: LeadingKvarh, i: int, q: PeriodQuantities, plan: ClausePlan | No
 
 def _highest_kw(peak_kw, history, lookback: int) -> np.ndarray:
     """The highest kW of each period and the ``lookback`` periods before it (history first)."""
-    kw = np.nan_to_num(np.asarray(peak_kw, dtype=float))
-    hist = np.nan_to_num(np.asarray(history, dtype=float))
+    kw = _no_nan(peak_kw)
+    hist = _no_nan(history)
     seq = np.concatenate([np.full(lookback, -np.inf), hist, kw])
     return np.lib.stride_tricks.sliding_window_view(seq, lookback + 1)[len(hist):].max(axis=1)
 
@@ -671,7 +678,7 @@ def _demand_windows(tariff: Tariff, q: PeriodQuantities) -> np.ndarray:
     d = tariff.demand
     iq = _need(q.intervals, "demand.windows")
     series = iq.kva if d.basis == "kva" else iq.kw
-    peaks = np.nan_to_num(segment_max(iq.plan.demand_masks * series, iq.bounds))
+    peaks = _no_nan(segment_max(iq.plan.demand_masks * series, iq.bounds))
     peaks = _round(peaks, d.rounding)
     names = [w.name for w in d.windows]
     total = np.zeros(peaks.shape[-1])
@@ -692,7 +699,7 @@ def _adjust_pf(tariff: Tariff, m: PfDemandAdjust, q: PeriodQuantities, measured_
     if m.pf == "at_peak":
         return tariff.round_pf(q.pf_at_peak)
     if m.pf == "peak_kva":
-        kva = np.nan_to_num(np.asarray(q.peak_kva, dtype=float))
+        kva = _no_nan(q.peak_kva)
         ratio = np.divide(measured_kw, kva, out=np.full(len(kva), np.nan), where=kva > 0)
         return tariff.round_pf(ratio)
     return _billing_pf(tariff, m.kvarh, q)
@@ -728,15 +735,15 @@ def _compute(tariff: Tariff, q: PeriodQuantities) -> Charges:
     plans = q.intervals.plan.clauses if q.intervals is not None else ()
 
     billing_demand = zeros
-    ratchet_basis = np.nan_to_num(np.asarray(q.peak_kw, dtype=float))
+    ratchet_basis = _no_nan(q.peak_kw)
     reactive: dict[str, np.ndarray] = {}
     if tariff.demand is not None:
         d = tariff.demand
-        measured = _round(np.nan_to_num(q.peak_kva if d.basis == "kva" else q.peak_kw), d.rounding)
+        measured = _round(_no_nan(q.peak_kva if d.basis == "kva" else q.peak_kw), d.rounding)
         adjust = next((m for m in tariff.reactive if isinstance(m, PfDemandAdjust)), None)
         adjusted = measured
         if adjust is not None:
-            pf = _adjust_pf(tariff, adjust, q, np.nan_to_num(q.peak_kw))
+            pf = _adjust_pf(tariff, adjust, q, _no_nan(q.peak_kw))
             adjusted = pf_adjusted_demand(measured, pf, adjust.base_pf, adjust.credit, adjust.max_credit_percent,
                                           adjust.apply_below_pf, adjust.max_increase_percent)
             if adjust.adjusted_rounding is not None:
