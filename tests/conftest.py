@@ -18,6 +18,20 @@ from auditor.store import open_store
 PG_ENV = "AUDITOR_TEST_PG_URL"
 
 
+@pytest.fixture(autouse=True, scope="session")
+def _own_cache_folder(tmp_path_factory):
+    """The program's cache (the holidays kept between runs) in a folder of the test session's,
+    never the user's; child processes the tests start inherit it."""
+    folder = tmp_path_factory.mktemp("cache")
+    before = os.environ.get("AUDITOR_CACHE_DIR")
+    os.environ["AUDITOR_CACHE_DIR"] = str(folder)
+    yield folder
+    if before is None:
+        os.environ.pop("AUDITOR_CACHE_DIR", None)
+    else:
+        os.environ["AUDITOR_CACHE_DIR"] = before
+
+
 def pg_base_url() -> str:
     """The PostgreSQL test URL, or skip (fail under AUDITOR_REQUIRE_PG=1) when there is none."""
     url = os.environ.get(PG_ENV)

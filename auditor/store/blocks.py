@@ -3,9 +3,9 @@ quantity of the block held as one packed array.
 
 Why: reading a meter-year of one-row-per-interval data built 35,040 Python tuples, which was
 most of an audit's time (``benchmarks/bench_portfolio.py`` measures it). In blocks a meter-year
-is 1,460 rows whose arrays numpy takes over without a Python object per interval.
+is 365 rows whose arrays numpy takes over without a Python object per interval.
 
-Table ``reading_block`` (migration 0010):
+Table ``reading_block`` (migrations 0010 and 0011):
 
 ============  ==========  ==================================================================
 column        type        meaning

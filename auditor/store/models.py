@@ -1,8 +1,8 @@
 """SQLAlchemy 2 typed models. The schema exists only through the Alembic migrations.
 
-Volume design: ``reading_block`` holds a meter's readings in blocks of 24 intervals, one row per
+Volume design: ``reading_block`` holds a meter's readings in blocks of 96 intervals, one row per
 block with each canonical quantity as a packed array (:mod:`auditor.store.blocks`), keyed by
-(meter_id, block_start) with no rowid on SQLite, so a meter-year of 15-minute data is 1,460 rows
+(meter_id, block_start) with no rowid on SQLite, so a meter-year of 15-minute data is 365 rows
 clustered by meter and time; every query the audit makes is a primary-key range scan.
 Superseded values move to ``reading_revision``, one row per interval (kept for audit, never read
 by the audit).
@@ -113,7 +113,7 @@ class ImportBatch(Base):
 
 
 class ReadingBlock(Base):
-    """A meter's readings of one block of 24 intervals (:mod:`auditor.store.blocks` has the
+    """A meter's readings of one block of 96 intervals (:mod:`auditor.store.blocks` has the
     layout of each column)."""
 
     __tablename__ = "reading_block"

@@ -1,6 +1,6 @@
 """Bulk writes of validated readings into the block layout, with revisions.
 
-Readings are stored in blocks of 24 intervals (:mod:`auditor.store.blocks`). For each meter of
+Readings are stored in blocks of 96 intervals (:mod:`auditor.store.blocks`). For each meter of
 a file, :func:`write_meter` reads the stored blocks its intervals fall in, unpacks them, sorts
 the file's intervals into new (an empty slot), identical (every quantity equal within
 ``rtol=1e-12, atol=1e-9``, NaN equal to NaN, same flags) and changed, copies the stored values of

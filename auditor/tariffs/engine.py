@@ -36,7 +36,6 @@ References
 """
 from __future__ import annotations
 
-import functools
 from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 
@@ -144,16 +143,13 @@ def local_calendar(index_utc: pd.DatetimeIndex, tz: str, calendar: Calendar | No
     )
 
 
-@functools.lru_cache(maxsize=64)
 def _holiday_days(country: str, subdivision: str | None, years: tuple[int, int]) -> np.ndarray:
     """Public holidays of the years ``years[0]..years[1]`` as days since 1970-01-01, from the
-    ``holidays`` library (the trusted source); cached, since every meter of a batch asks again."""
-    import holidays
+    ``holidays`` library (the trusted source), kept between runs and per process
+    (:mod:`auditor.tariffs.holiday_days`), since every meter of a batch asks again."""
+    from auditor.tariffs.holiday_days import holiday_days
 
-    found = holidays.country_holidays(country, subdiv=subdivision, years=range(years[0], years[1] + 1))
-    days = np.array(sorted(found.keys()), dtype="datetime64[D]").astype(np.int64)
-    days.flags.writeable = False
-    return days
+    return holiday_days(country, subdivision, years)
 
 
 def window_mask(window: Window, cal: LocalCalendar) -> np.ndarray:

@@ -663,17 +663,13 @@ def tariff_from_dict(d: Mapping[str, Any], source: str | None = None) -> Tariff:
 
 
 def _calendar(c: _V) -> Calendar:
-    import holidays  # the trusted source of public holidays
-    from holidays.registry import EntityLoader
+    from auditor.tariffs.holiday_days import country_subdivisions  # the holidays library's answers
 
-    # The library's registry of country codes (aliases included, as list_supported_countries
-    # gives them) needs no country module; only the one country named is then loaded for its
-    # subdivisions. list_supported_countries would import every country of the world.
     country = c.string("country", required=True, what="an ISO 3166 country code such as \"DE\"")
-    if country not in set(EntityLoader.get_country_codes()):
+    subdivisions = country_subdivisions(country)
+    if subdivisions is None:
         c.fail("calendar.country", f"{country!r} is not a country the holidays library knows; use an ISO 3166 code such as \"DE\", \"FR\", \"US\"")
     sub = c.string("subdivision", what="a subdivision code")
-    subdivisions = list(getattr(holidays, country).subdivisions)
     if sub is not None and sub not in subdivisions:
         allowed = ", ".join(subdivisions) or "none for this country"
         c.fail("calendar.subdivision", f"{sub!r} is not a subdivision of {country}; allowed: {allowed}")
