@@ -231,14 +231,17 @@ def pg_bytes(url: str) -> int:
 
 
 def read_and_compute(url: str, meters: int) -> dict:
-    """Per meter-year, in this process: reading the interval frame (one meter at a time as the
-    single audit reads it, and 16 at a time as the batch audit's workers do) vs the audit's
-    computation (median CPU milliseconds)."""
+    """Per meter-year, in this process (with the allocator settings of the batch audit's
+    workers): reading the interval frame (one meter at a time as the single audit reads it, and
+    16 at a time as the batch audit's workers do) vs the audit's computation (median CPU
+    milliseconds)."""
     from auditor.audit import audit
     from auditor.services.audit import resolve_tariff
+    from auditor.services.batch import _keep_freed_memory
     from auditor.services.meters import load_meter, load_meters
     from auditor.store import open_store
 
+    _keep_freed_memory()  # the allocator settings the batch audit's workers run with
     store = open_store(url)
     tariff = resolve_tariff(TARIFF)
     names = [f"M{i:04d}" for i in range(min(meters, 32))]
