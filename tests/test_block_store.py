@@ -5,6 +5,9 @@ the data versions rebuilt from blocks, and two imports of one meter at once on P
 Every test with the ``store`` or ``db_url`` fixture runs on SQLite and on PostgreSQL."""
 from __future__ import annotations
 
+import os
+import subprocess
+import sys
 import threading
 
 import numpy as np
@@ -134,7 +137,13 @@ def test_an_sqlite_file_with_small_pages_is_rewritten_at_the_upgrade(tmp_path):
         other.close()
         assert stored_rows(store) == sorted(_old_rows())
         store.downgrade("0010")
-        store.upgrade()
+        store.dispose()
+        # the command says so when it rewrites the file
+        env = dict(os.environ, AUDITOR_DB_URL=url)
+        done = subprocess.run([sys.executable, "-m", "auditor", "db", "upgrade"], capture_output=True, text=True,
+                              env=env, timeout=120)
+        assert done.returncode == 0, done.stderr
+        assert "schema 0010 → 0011" in done.stdout and "16 KiB pages" in done.stdout
         with store.engine.connect() as c:
             assert c.exec_driver_sql("PRAGMA page_size").scalar() == 16384
             assert c.exec_driver_sql("PRAGMA journal_mode").scalar() == "wal"

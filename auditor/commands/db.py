@@ -28,7 +28,10 @@ def db_upgrade(ctx: Context, revision: str, revision_option: str | None):
         if revision not in ("head", revision_option):
             raise click.UsageError("give the revision once (as an argument)")
         revision = revision_option
-    ctx.say(_revision_line(upgrade_schema(ctx.db_url, revision)))
+    done = upgrade_schema(ctx.db_url, revision)
+    ctx.say(_revision_line(done))
+    if done["pages_rewritten"]:
+        ctx.say("rewrote the file with 16 KiB pages, so that a day's block of readings fits in a page")
     return 0
 
 

@@ -67,14 +67,16 @@ def _known_revision(revision: str):
 
 def upgrade_schema(url: str | None = None, revision: str = "head") -> dict:
     """Apply the migrations up to ``revision`` (creating the database if absent).
-    Returns ``{"database", "before", "after"}`` (None: empty). A database newer than this
-    program is refused (exit 2), a damaged SQLite file too (exit 1), before anything changes."""
+    Returns ``{"database", "before", "after", "pages_rewritten"}`` (None: empty; the last True
+    when an SQLite file was rewritten with larger pages). A database newer than this program is
+    refused (exit 2), a damaged SQLite file too (exit 1), before anything changes."""
     store = open_store(url, upgrade=False)
     try:
         before = store.current_revision()
         with _known_revision(revision):
-            store.upgrade(revision)
-        return {"database": safe_url(store.url), "before": before, "after": store.current_revision()}
+            rewritten = store.upgrade(revision)
+        return {"database": safe_url(store.url), "before": before, "after": store.current_revision(),
+                "pages_rewritten": rewritten}
     finally:
         store.dispose()
 

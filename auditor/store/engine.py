@@ -362,7 +362,9 @@ class Store:
                 raise StoreError(f"the migration would leave rows of table {broken[0][0]!r} without the "
                                  f"row of {broken[0][2]!r} they refer to; nothing was changed")
 
-    def upgrade(self, revision: str = "head") -> None:
+    def upgrade(self, revision: str = "head") -> bool:
+        """Migrate to ``revision``; True when an SQLite file was then rewritten with larger
+        pages (:meth:`_larger_pages`)."""
         from alembic import command
 
         self.refuse_if_damaged()
@@ -373,7 +375,7 @@ class Store:
             cfg.attributes["connection"] = conn
             command.upgrade(cfg, revision)
             self._check_foreign_keys(conn)
-        self._larger_pages()
+        return self._larger_pages()
 
     def _larger_pages(self) -> bool:
         """Rewrite an SQLite file made with smaller pages than :data:`SQLITE_PAGE_SIZE`
