@@ -91,9 +91,9 @@ def test_a_later_process_bills_holidays_without_loading_the_library(fresh):
     code = textwrap.dedent("""
         import sys
         from auditor.services.audit import resolve_tariff
-        from auditor.tariffs.engine import _holiday_days
+        from auditor.tariffs.holiday_days import holiday_days
         t = resolve_tariff("harrowgate_industrial_tou")
-        days = _holiday_days(t.calendar.country, t.calendar.subdivision, (2025, 2026))
+        days = holiday_days(t.calendar.country, t.calendar.subdivision, (2025, 2026))
         print(len(days), "holidays" in sys.modules)
     """)
     env = dict(os.environ, AUDITOR_CACHE_DIR=str(fresh))

@@ -44,6 +44,7 @@ import pandas as pd
 
 from auditor.errors import InputError, UsageError
 from auditor.quantities import energy_pf, segment_max, segment_sum
+from auditor.tariffs.holiday_days import holiday_days
 from auditor.tariffs.model import (
     Band,
     Calendar,
@@ -109,8 +110,8 @@ class LocalCalendar:
 def local_calendar(index_utc: pd.DatetimeIndex, tz: str, calendar: Calendar | None) -> LocalCalendar:
     """Local weekday, hour, month, minute and public-holiday flag for each interval start.
 
-    Public holidays come from the ``holidays`` library for the tariff's country and subdivision;
-    without a calendar no day is a holiday.
+    Public holidays come from the ``holidays`` library for the tariff's country and subdivision,
+    kept between runs (:mod:`auditor.tariffs.holiday_days`); without a calendar no day is a holiday.
     """
     # Wall-clock seconds once (pandas converts the whole index in C), then every feature by
     # integer arithmetic: pandas' per-field accessors would each convert the index again.
@@ -127,7 +128,7 @@ def local_calendar(index_utc: pd.DatetimeIndex, tz: str, calendar: Calendar | No
     if calendar is not None:
         years = (int(np.datetime64(first, "D").astype("datetime64[Y]").astype(int)) + 1970,
                  int(np.datetime64(last, "D").astype("datetime64[Y]").astype(int)) + 1970)
-        hol = _holiday_days(calendar.country, calendar.subdivision, years)
+        hol = holiday_days(calendar.country, calendar.subdivision, years)
         if len(hol):
             hol = hol[(hol >= first) & (hol <= last)]
             lut = np.zeros(last - first + 1, dtype=bool)
@@ -141,15 +142,6 @@ def local_calendar(index_utc: pd.DatetimeIndex, tz: str, calendar: Calendar | No
         minute=((local // 60) % 1440).astype(np.int16),
         wall_minutes=local // 60,
     )
-
-
-def _holiday_days(country: str, subdivision: str | None, years: tuple[int, int]) -> np.ndarray:
-    """Public holidays of the years ``years[0]..years[1]`` as days since 1970-01-01, from the
-    ``holidays`` library (the trusted source), kept between runs and per process
-    (:mod:`auditor.tariffs.holiday_days`), since every meter of a batch asks again."""
-    from auditor.tariffs.holiday_days import holiday_days
-
-    return holiday_days(country, subdivision, years)
 
 
 def window_mask(window: Window, cal: LocalCalendar) -> np.ndarray:

@@ -85,11 +85,11 @@ def _loaded() -> dict:
     return {"countries": {}, "days": {}}
 
 
-def _remember(section: str, key: str, value) -> None:
-    """Add one answer to the file (and to this process's copy); failures are ignored."""
+def _remember(section: str, answers: dict) -> None:
+    """Add answers to the file (and to this process's copy), in one write; failures are ignored."""
     with _lock:
         data = _loaded()
-        data[section][key] = value
+        data[section].update(answers)
         path = _cache_file()
         if path is None:
             return
@@ -119,7 +119,7 @@ def country_subdivisions(country: str) -> list[str] | None:
         found = None
     else:
         found = [str(s) for s in getattr(holidays, country).subdivisions]
-    _remember("countries", country, found)
+    _remember("countries", {country: found})
     return None if found is None else list(found)
 
 
@@ -135,9 +135,9 @@ def holiday_days(country: str, subdivision: str | None, years: tuple[int, int]) 
     if missing:
         import holidays
 
-        for y in missing:
-            found = holidays.country_holidays(country, subdiv=subdivision, years=y)
-            _remember("days", keys[y], sorted(int(np.datetime64(d, "D").astype(np.int64)) for d in found.keys()))
+        _remember("days", {keys[y]: sorted(int(np.datetime64(d, "D").astype(np.int64))
+                                           for d in holidays.country_holidays(country, subdiv=subdivision, years=y))
+                           for y in missing})
     days = np.unique(np.array([x for y in wanted for x in known[keys[y]]], dtype=np.int64))
     days.flags.writeable = False
     return days
